@@ -1,0 +1,15 @@
+"""simwave: run real signals through a proposed analog system H(s) and measure the result.
+
+Public API
+----------
+System      continuous-time model H(s) (zeros/poles/gain core)
+Waveform    uniformly sampled multi-channel data with rate and provenance
+"""
+
+__version__ = "0.1.0"
+
+from simwave.errors import SimwaveError  # noqa: E402
+from simwave.model.system import System  # noqa: E402
+from simwave.signals.waveform import Waveform  # noqa: E402
+
+__all__ = ["System", "Waveform", "SimwaveError", "__version__"]

@@ -1,0 +1,11 @@
+"""Command-line interface: thin click commands over the public API.
+
+Each command lives in its own ``cmd_*.py`` module and registers itself on
+:data:`main` when imported below.
+"""
+
+from simwave.cli.app import main
+
+# Command modules (each adds one command to ``main``): keep one import per line.
+
+__all__ = ["main"]

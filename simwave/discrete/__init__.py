@@ -1,0 +1,1 @@
+"""From H(s) to a runnable discrete model."""

@@ -1,0 +1,1 @@
+"""What the output did: transient and steady-state metrics."""
