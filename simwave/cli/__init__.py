@@ -7,5 +7,6 @@ Each command lives in its own ``cmd_*.py`` module and registers itself on
 from simwave.cli.app import main
 
 # Command modules (each adds one command to ``main``): keep one import per line.
+from simwave.cli import cmd_inspect  # noqa: F401,E402
 
 __all__ = ["main"]

@@ -184,7 +184,8 @@ def design(
     elif fam == "chebyshev1":
         z, p, k = signal.cheby1(order, _positive_db(ripple_db, "ripple_db", fam), wn, **kw)
     elif fam == "chebyshev2":
-        z, p, k = signal.cheby2(order, _positive_db(attenuation_db, "attenuation_db", fam), wn, **kw)
+        rs = _positive_db(attenuation_db, "attenuation_db", fam)
+        z, p, k = signal.cheby2(order, rs, wn, **kw)
     elif fam == "elliptic":
         rp = _positive_db(ripple_db, "ripple_db", fam)
         rs = _positive_db(attenuation_db, "attenuation_db", fam)

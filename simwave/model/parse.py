@@ -523,7 +523,7 @@ class _RationalEvaluator:
             poly = divisor is not None and _mentions(divisor, ("s",))
             raise self.fail(pos, "division by the zero polynomial" if poly else "division by zero")
         if b.delay:
-            raise self.fail(pos, "a dead time exp(-s*T) cannot divide: that would be a time advance")
+            raise self.fail(pos, "a dead time exp(-s*T) cannot divide: that is a time advance")
         if b.is_const:
             # Divide the coefficients directly, as a calculator would.
             with np.errstate(all="ignore"):
@@ -658,7 +658,7 @@ class _ODEEvaluator:
                     )
                 elif op == "*":
                     if acc.has_var and rhs.has_var:
-                        raise self.fail(pos, "product of two terms in y or x: the ODE must be linear")
+                        raise self.fail(pos, "product of terms in y or x: the ODE must be linear")
                     acc = _lscale(rhs, acc.c) if rhs.has_var else _lscale(acc, rhs.c)
                 else:
                     if rhs.has_var:

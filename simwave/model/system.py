@@ -192,7 +192,9 @@ class System:
         try:
             delay = float(delay_s)
         except (TypeError, ValueError):
-            raise InvalidSystemError(f"dead time must be a number of seconds, got {delay_s!r}") from None
+            raise InvalidSystemError(
+                f"dead time must be a number of seconds, got {delay_s!r}"
+            ) from None
         if not math.isfinite(delay) or delay < 0:
             raise InvalidSystemError(f"dead time must be >= 0 seconds and finite, got {delay_s!r}")
         self.zeros = _real_if_close(z) if k.real != 0.0 else np.array([], dtype=np.float64)
@@ -249,7 +251,9 @@ class System:
         b = _coefficients(num, "numerator coefficients")
         a = _coefficients(den, "denominator coefficients")
         if a.size == 0:
-            raise InvalidSystemError("denominator is empty or all zero: division by a zero polynomial")
+            raise InvalidSystemError(
+                "denominator is empty or all zero: division by a zero polynomial"
+            )
         if b.size == 0:
             raise InvalidSystemError("numerator is empty or all zero: H(s) = 0 passes nothing")
         _check_order(a.size - 1, b.size - 1, ode=kw.get("ode") is not None)
@@ -415,7 +419,7 @@ class System:
         h = np.full(s.shape, self.gain, dtype=np.complex128)
         with np.errstate(divide="ignore", invalid="ignore"):
             nz = self.zeros.size
-            for z, p in zip(self.zeros, self.poles[:nz]):
+            for z, p in zip(self.zeros, self.poles[:nz], strict=False):
                 h *= (s - z) / (s - p)
             for p in self.poles[nz:]:
                 h /= s - p
@@ -471,7 +475,9 @@ class System:
         if not math.isfinite(h0):
             return None, "DC gain is infinite (pole at s = 0), so -3 dB below DC is not defined"
         if h0 == 0.0:
-            return None, "DC gain is 0 (high-pass- or band-pass-like), so -3 dB below DC is not defined"
+            return None, (
+                "DC gain is 0 (high-pass- or band-pass-like), so -3 dB below DC is not defined"
+            )
         target = abs(h0) * HALF_POWER
         if not abs(self.high_frequency_gain) < target:
             return None, (
@@ -581,7 +587,8 @@ class System:
             modes.append({
                 "kind": "pair",
                 "pole": complex(pole),
-                "mode": "oscillating" if pole.real == 0 else ("decaying" if pole.real < 0 else "growing"),
+                "mode": ("oscillating" if pole.real == 0
+                         else ("decaying" if pole.real < 0 else "growing")),
                 "natural_frequency_hz": float(wn / (2 * math.pi)),
                 "damping_ratio": float(zeta),
                 "damped_frequency_hz": float(abs(pole.imag) / (2 * math.pi)),
@@ -647,7 +654,7 @@ class System:
                       delay_s=self.delay_s, text=text)
 
     def feedback(self, path: System | float | None = None) -> System:
-        """Negative feedback: closed loop self / (1 + self * path); unity feedback when path is None.
+        """Negative feedback: self / (1 + self * path); unity feedback when path is None.
 
         With forward path G = kg Ng/Dg and feedback path H = kh Nh/Dh the closed
         loop is kg Ng Dh / (Dg Dh + kg kh Ng Nh) [1]_. A dead time anywhere in the
@@ -760,7 +767,9 @@ class System:
         }
 
     def __repr__(self) -> str:
-        label = self.text or f"zeros={list(self.zeros)}, poles={list(self.poles)}, gain={self.gain:g}"
+        label = self.text or (
+            f"zeros={list(self.zeros)}, poles={list(self.poles)}, gain={self.gain:g}"
+        )
         return f"System({label})"
 
 
