@@ -1,0 +1,133 @@
+"""Side-by-side benchmarks for the main job (``simulate`` / ``simwave run``).
+
+Run:  python benchmarks/bench_run.py [--minutes 10] [--repeat 3]
+
+Prints ratios measured in one process run, interleaving the contenders and
+keeping each one's best time (the machines are shared and noisy):
+
+1. simwave ramp-invariant vs scipy.signal.lsim (first-order hold), 200k samples,
+   order 4: speed ratio (target >= 300x) and the largest difference relative to
+   the output's peak (target <= 1e-9).
+2. ``simwave run`` on an N-minute 48 kHz stereo float WAV vs a plain script that
+   reads the whole file with soundfile, filters with scipy.signal.sosfilt and
+   writes it: time ratio (target <= 1.0x) and each one's peak memory (simwave's
+   target: under 200 MB whatever the file length). Each contender runs in a fresh
+   subprocess, so its peak RSS (ru_maxrss) is its own.
+
+The filter core alone vs sosfilt is in bench_filter_core.py.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import subprocess
+import sys
+import tempfile
+import time
+
+import numpy as np
+import scipy.signal
+import soundfile
+
+import simwave
+
+# 4th-order Butterworth low-pass at 1 kHz (section damping 0.3827 and 0.9239)
+SYSTEM = (
+    "(2*pi*1k)^4/((s^2 + 0.7654*2*pi*1k*s + (2*pi*1k)^2)"
+    "*(s^2 + 1.8478*2*pi*1k*s + (2*pi*1k)^2))"
+)
+
+
+def bench_lsim(repeat: int) -> None:
+    rate = 48_000.0
+    n = 200_000
+    rng = np.random.default_rng(0)
+    x = np.cumsum(rng.standard_normal(n)) * 1e-2
+    system = simwave.System.parse(SYSTEM)
+    t = np.arange(n) / rate
+    wave = simwave.Waveform(x, rate)
+    lti = scipy.signal.lti(system.zeros, system.poles, system.gain)
+    best_sw = best_ref = np.inf
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        y_sw = simwave.simulate(system, wave, method="ramp-invariant").data[:, 0]
+        best_sw = min(best_sw, time.perf_counter() - t0)
+        t0 = time.perf_counter()
+        _, y_ref, _ = scipy.signal.lsim(lti, x, t, interp=True)
+        best_ref = min(best_ref, time.perf_counter() - t0)
+    diff = np.max(np.abs(y_sw - y_ref)) / np.max(np.abs(y_ref))
+    print("1. ramp-invariant vs scipy.signal.lsim (FOH), 200k samples, order 4")
+    print(f"   simwave {best_sw * 1e3:8.1f} ms   lsim {best_ref * 1e3:8.1f} ms   "
+          f"speed-up {best_ref / best_sw:7.1f}x (target >= 300x)")
+    print(f"   max |difference| / max |output| = {diff:.2e} (target <= 1e-9)")
+
+
+PLAIN_SCRIPT = """
+import sys, numpy as np, scipy.signal, soundfile, simwave
+src, dst = sys.argv[1], sys.argv[2]
+sos = simwave.System.parse(sys.argv[3]).discretize(48000.0, "bilinear").sos
+x, rate = soundfile.read(src, always_2d=True)
+y = scipy.signal.sosfilt(sos, x, axis=0)
+soundfile.write(dst, y, rate, subtype="FLOAT")
+"""
+
+SIMWAVE_SCRIPT = """
+import sys, simwave
+simwave.simulate(sys.argv[3], sys.argv[1], method="bilinear", output=sys.argv[2])
+"""
+
+
+def _measure_in_helper(code: str, *args: str) -> tuple[float, float]:
+    """Time a child and read that child's own peak RSS via a wrapper process."""
+    wrapper = (
+        "import resource, subprocess, sys, time\n"
+        "t0 = time.perf_counter()\n"
+        "subprocess.run([sys.executable, '-c', sys.argv[1], *sys.argv[2:]], check=True)\n"
+        "dt = time.perf_counter() - t0\n"
+        "print(dt, resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024.0)\n"
+    )
+    out = subprocess.run(
+        [sys.executable, "-c", wrapper, code, *args], check=True, capture_output=True, text=True
+    ).stdout.split()
+    return float(out[-2]), float(out[-1])
+
+
+def bench_file(minutes: float, repeat: int) -> None:
+    rate = 48_000
+    n = int(minutes * 60 * rate)
+    with tempfile.TemporaryDirectory() as tmp:
+        src = os.path.join(tmp, "in.wav")
+        rng = np.random.default_rng(1)
+        with soundfile.SoundFile(src, "w", rate, 2, subtype="FLOAT") as f:
+            for start in range(0, n, 1 << 20):
+                m = min(1 << 20, n - start)
+                f.write((0.1 * rng.standard_normal((m, 2))).astype(np.float32))
+        size_mb = os.path.getsize(src) / 1e6
+        best = {"plain": (np.inf, 0.0), "simwave": (np.inf, 0.0)}
+        for _ in range(repeat):
+            for name, code in (("plain", PLAIN_SCRIPT), ("simwave", SIMWAVE_SCRIPT)):
+                dst = os.path.join(tmp, f"out-{name}.wav")
+                dt, rss = _measure_in_helper(code, src, dst, SYSTEM)
+                if dt < best[name][0]:
+                    best[name] = (dt, rss)
+                os.remove(dst)
+    (t_plain, m_plain), (t_sw, m_sw) = best["plain"], best["simwave"]
+    print(f"2. simwave run vs plain read-whole/sosfilt/write script, {minutes:g} min 48 kHz "
+          f"stereo float WAV ({size_mb:.0f} MB)")
+    print(f"   plain   {t_plain:6.2f} s   peak memory {m_plain:7.1f} MB")
+    print(f"   simwave {t_sw:6.2f} s   peak memory {m_sw:7.1f} MB (target < 200 MB)")
+    print(f"   time ratio simwave/plain = {t_sw / t_plain:.2f}x (target <= 1.0x)")
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--minutes", type=float, default=10.0)
+    ap.add_argument("--repeat", type=int, default=3)
+    args = ap.parse_args()
+    bench_lsim(args.repeat)
+    bench_file(args.minutes, args.repeat)
+
+
+if __name__ == "__main__":
+    main()
