@@ -11,5 +11,6 @@ __version__ = "0.1.0"
 from simwave.errors import SimwaveError  # noqa: E402
 from simwave.model.system import System  # noqa: E402
 from simwave.signals.waveform import Waveform  # noqa: E402
+from simwave.measure import key_metrics, measure  # noqa: E402
 
-__all__ = ["System", "Waveform", "SimwaveError", "__version__"]
+__all__ = ["System", "Waveform", "SimwaveError", "__version__", "measure", "key_metrics"]

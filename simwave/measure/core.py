@@ -1,0 +1,1015 @@
+"""simwave.measure: the passes over the record and the assembly of the result.
+
+Memory: the record is read in blocks (``block_size`` samples) in four passes
+(1: count, range, NaN check; 2: level histograms and the steady-state window;
+3: transitions; 4: crossing values and aberration/settling regions). Held at
+once: one block per stream, one histogram of 32768 counts per channel, the
+steady-state window (the last ``steady_fraction`` of the record, at most
+``max_window_samples`` samples per channel) and the list of transitions.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field, fields
+from typing import Any
+
+import numpy as np
+
+from simwave.errors import MeasurementError
+from simwave.measure import levels as lv
+from simwave.measure import steady as st
+from simwave.measure.predict import Predictions, compare_rows, predictions_for
+from simwave.measure.result import MeasurementResult
+from simwave.measure.source import MeasureSource
+from simwave.measure.transient import (
+    WORST_IS_MAX,
+    Edge,
+    EdgeFinder,
+    EdgeRegions,
+    pulse_table,
+    summarize,
+)
+
+SIGNAL_KINDS = ("auto", "transitions", "sine", "multitone", "ramp", "other")
+
+#: A waveform counts as two-state when at least this fraction of its samples lies
+#: within 10 % of the amplitude of one of its state levels (our choice; a sine has
+#: about 41 %, a clean pulse train nearly 100 %).
+TWO_STATE_FRACTION = 0.5
+#: A sine (or a set of tones) is taken as present when the fit accounts for this
+#: fraction of the AC power (auto detection) ...
+SINE_AUTO_EXPLAINED = 0.9
+#: ... and at least this fraction when a sine fit is asked for (SINAD >= 0 dB).
+SINE_MIN_EXPLAINED = 0.5
+#: A window is a ramp when a straight line explains this fraction of its variance.
+RAMP_R2 = 0.999
+#: Fewest samples a steady-state window may have.
+MIN_WINDOW = 8
+
+
+@dataclass
+class MeasureOptions:
+    """Options of :func:`simwave.measure.measure` (all keyword arguments)."""
+
+    reference_levels_pct: tuple = (10.0, 50.0, 90.0)
+    settling_band_pct: float = 2.0
+    harmonics: int = 10
+    sine_hz: float | None = None
+    tones_hz: list | None = None
+    steady_fraction: float = 0.25
+    state_level_method: str = "histogram"
+    signal_kind: str = "auto"
+    reference_channel: Any = None
+    discrete: Any = None
+    gain_tolerance_db: float = 0.1
+    phase_tolerance_deg: float = 1.0
+    overshoot_tolerance_pct: float = 1.0
+    time_tolerance_pct: float = 2.0
+    block_size: int = 65536
+    max_window_samples: int = 4_000_000
+    read_options: dict = field(default_factory=dict)
+
+    @classmethod
+    def from_kwargs(cls, opts: dict) -> "MeasureOptions":
+        known = {f.name for f in fields(cls)}
+        unknown = sorted(set(opts) - known)
+        if unknown:
+            raise MeasurementError(
+                f"unknown measurement option {unknown[0]!r}; known: {', '.join(sorted(known))}"
+            )
+        o = cls(**opts)
+        o.validate()
+        return o
+
+    def validate(self) -> None:
+        lv.check_percentages(self.reference_levels_pct, self.settling_band_pct)
+        self.reference_levels_pct = tuple(float(p) for p in self.reference_levels_pct)
+        self.settling_band_pct = float(self.settling_band_pct)
+        if self.state_level_method not in lv.STATE_LEVEL_METHODS:
+            raise MeasurementError(
+                f"unknown state-level method {self.state_level_method!r}; use one of "
+                f"{', '.join(lv.STATE_LEVEL_METHODS)}"
+            )
+        if self.signal_kind not in SIGNAL_KINDS:
+            raise MeasurementError(
+                f"unknown signal kind {self.signal_kind!r}; use one of {', '.join(SIGNAL_KINDS)}"
+            )
+        if not (isinstance(self.harmonics, (int, np.integer)) and 2 <= self.harmonics <= 1000):
+            raise MeasurementError(
+                f"harmonics must be a whole number from 2 to 1000, got {self.harmonics!r}"
+            )
+        frac = float(self.steady_fraction)
+        if not (0.0 < frac <= 1.0):
+            raise MeasurementError(f"steady-state fraction must be in (0, 1], got {frac:g}")
+        self.steady_fraction = frac
+        if self.sine_hz is not None:
+            f = float(self.sine_hz)
+            if not (f > 0 and math.isfinite(f)):
+                raise MeasurementError(
+                    f"sine frequency must be a positive number of hertz, got {self.sine_hz!r}"
+                )
+            self.sine_hz = f
+        if self.tones_hz is not None:
+            tones = [float(f) for f in self.tones_hz]
+            if not tones or any(not (f > 0 and math.isfinite(f)) for f in tones):
+                raise MeasurementError(
+                    f"tone frequencies must be positive numbers of hertz, got {self.tones_hz!r}"
+                )
+            self.tones_hz = sorted(tones)
+        for name in (
+            "gain_tolerance_db",
+            "phase_tolerance_deg",
+            "overshoot_tolerance_pct",
+            "time_tolerance_pct",
+        ):
+            v = float(getattr(self, name))
+            if not (v >= 0 and math.isfinite(v)):
+                raise MeasurementError(f"{name} must be >= 0, got {v:g}")
+            setattr(self, name, v)
+        if int(self.block_size) < 16:
+            raise MeasurementError(f"block_size must be at least 16 samples, got {self.block_size}")
+        self.block_size = int(self.block_size)
+        self.max_window_samples = max(int(self.max_window_samples), MIN_WINDOW)
+
+    def to_dict(self) -> dict:
+        return {
+            "reference_levels_pct": list(self.reference_levels_pct),
+            "settling_band_pct": self.settling_band_pct,
+            "harmonics": int(self.harmonics),
+            "sine_hz": self.sine_hz,
+            "tones_hz": self.tones_hz,
+            "steady_fraction": self.steady_fraction,
+            "state_level_method": self.state_level_method,
+            "signal_kind": self.signal_kind,
+            "reference_channel": self.reference_channel,
+            "gain_tolerance_db": self.gain_tolerance_db,
+            "phase_tolerance_deg": self.phase_tolerance_deg,
+            "overshoot_tolerance_pct": self.overshoot_tolerance_pct,
+            "time_tolerance_pct": self.time_tolerance_pct,
+        }
+
+
+# ---------------------------------------------------------------------------- passes
+@dataclass
+class _Scan:
+    n: int = 0
+    lo: np.ndarray | None = None
+    hi: np.ndarray | None = None
+    sum: np.ndarray | None = None
+    sumsq: np.ndarray | None = None
+
+
+def _scan(arrays, label: str, channels: list[str], rate: float, t0: float) -> _Scan:
+    """Pass 1: sample count, range, sums; stops at the first NaN or infinity."""
+    s = _Scan()
+    for blk in arrays:
+        bad = ~np.isfinite(blk)
+        if bad.any():
+            r, c = np.argwhere(bad)[0]
+            i = s.n + int(r)
+            raise MeasurementError(
+                f"{label}: channel {channels[c]!r}, sample {i} (t = {t0 + i / rate:.6g} s): "
+                f"value is {blk[r, c]!r}; measurements need finite samples"
+            )
+        if blk.shape[0] == 0:
+            continue
+        lo, hi = blk.min(axis=0), blk.max(axis=0)
+        if s.lo is None:
+            s.lo, s.hi = lo, hi
+            s.sum, s.sumsq = blk.sum(axis=0), (blk * blk).sum(axis=0)
+        else:
+            s.lo, s.hi = np.minimum(s.lo, lo), np.maximum(s.hi, hi)
+            s.sum += blk.sum(axis=0)
+            s.sumsq += (blk * blk).sum(axis=0)
+        s.n += blk.shape[0]
+    return s
+
+
+@dataclass
+class _Chan:
+    """Working state of one channel (output or reference) through the passes."""
+
+    name: str
+    unit: str
+    lo: float
+    hi: float
+    mean: float
+    rms: float
+    levels: lv.StateLevels | None = None
+    two_state_fraction: float = 0.0
+    refs: tuple | None = None
+    kind: str = "other"
+    kind_source: str = "auto"
+    finder: EdgeFinder | None = None
+    edges: list = field(default_factory=list)
+    window: np.ndarray | None = None
+    null_reasons: dict = field(default_factory=dict)
+
+    @property
+    def constant(self) -> bool:
+        return self.hi == self.lo
+
+
+def measure(
+    waveform: Any, reference: Any = None, system: Any = None, **opts: Any
+) -> MeasurementResult:
+    """Measure what a waveform did: transient and steady-state metrics, and H(s) predictions.
+
+    Parameters
+    ----------
+    waveform : Waveform or path
+        The record to measure, usually a system's output. A path is read block by block
+        with :func:`simwave.blocks` (``read_options`` are passed on).
+    reference : Waveform or path, optional
+        The input that produced it: same rate and length; one channel (used for every
+        output channel) or one per output channel. Input transitions give the time origin
+        for delay, peak and settling times; input levels give steady-state gain and error;
+        an input sine or multi-tone gives gain and phase.
+    system : System, optional
+        The continuous-time model; its predictions (H(0), H(j2 pi f), second-order
+        overshoot and peak time) are set beside the measured values.
+    **opts
+        ``reference_levels_pct`` (10, 50, 90); ``settling_band_pct`` (2.0, percent of
+        amplitude); ``harmonics`` (10: THD over harmonics 2..10); ``sine_hz`` (known sine
+        frequency: three-parameter fit; else estimated: four-parameter fit); ``tones_hz``
+        (tone list for multi-tone input; else detected in the input's spectrum);
+        ``steady_fraction`` (0.25: the steady-state window is this last part of the
+        record); ``state_level_method`` ("histogram" or "minmax"); ``signal_kind`` ("auto",
+        "transitions", "sine", "multitone", "ramp", "other"); ``reference_channel`` (take
+        the input from this channel of ``waveform``); ``discrete`` (a DiscreteSystem: its
+        accuracy report sets the tolerances); ``gain_tolerance_db`` (0.1),
+        ``phase_tolerance_deg`` (1.0), ``overshoot_tolerance_pct`` (1.0 percentage point),
+        ``time_tolerance_pct`` (2.0) for flagging measured-vs-predicted differences;
+        ``block_size``; ``max_window_samples``; ``read_options``.
+
+    Returns
+    -------
+    MeasurementResult
+        ``.to_dict()``, ``.to_json()``, ``.format()``; see :mod:`simwave.measure`.
+
+    Raises
+    ------
+    MeasurementError
+        Empty record, NaN or infinite samples, every channel constant, a reference of
+        another rate or length, levels or band outside (0, 100) %, a sine asked for where
+        there is none, unknown options.
+
+    References
+    ----------
+    IEEE Std 181-2011 (transitions, pulses, state levels, aberrations, settling);
+    IEEE Std 1057-2017 (sine fits, THD, SINAD); K. Ogata, *Modern Control Engineering*,
+    5th ed., sec. 5-3 (second-order step response: overshoot and peak time).
+    """
+    o = MeasureOptions.from_kwargs(opts)
+    if isinstance(system, str):
+        from simwave.model.system import System
+
+        parse = getattr(System, "parse", None)
+        if parse is None:
+            raise MeasurementError(
+                "system text cannot be parsed in this installation; pass a System"
+            )
+        system = parse(system)
+    src = MeasureSource(waveform, reference, o.reference_channel, o.block_size, o.read_options)
+    return _Measurement(src, system, o).run()
+
+
+class _Measurement:
+    def __init__(self, src: MeasureSource, system: Any, o: MeasureOptions) -> None:
+        self.src, self.system, self.o = src, system, o
+        self.rate, self.t0 = src.rate, src.t0
+        self.notes: list[str] = []
+
+    # ------------------------------------------------------------------ helpers
+    def t(self, idx: float) -> float:
+        """Absolute time (s) of a fractional sample index."""
+        return self.t0 + idx / self.rate
+
+    def ref_for(self, c: int) -> int | None:
+        if not self.refs:
+            return None
+        return 0 if len(self.refs) == 1 else c
+
+    # ------------------------------------------------------------------ main
+    def run(self) -> MeasurementResult:
+        src, o = self.src, self.o
+        oi = src.out.info
+        s_out = _scan(src.out.arrays(), oi.label, oi.channels, self.rate, self.t0)
+        if s_out.n == 0:
+            raise MeasurementError(f"{oi.label}: no samples to measure")
+        n = self.n = s_out.n
+        self.outs = self._chans(s_out, oi.channels, oi.units)
+        self.refs: list[_Chan] = []
+        if src.ref is not None:
+            ri = src.ref.info
+            s_ref = _scan(src.ref.arrays(), ri.label, ri.channels, self.rate, self.t0)
+            if s_ref.n != n:
+                raise MeasurementError(
+                    f"{ri.label}: the reference has {s_ref.n} samples, the output {n} "
+                    f"({oi.label}); they must be the same length"
+                )
+            if len(ri.channels) not in (1, len(oi.channels)):
+                raise MeasurementError(
+                    f"{ri.label}: the reference has {len(ri.channels)} channels; give one, "
+                    f"or one per output channel ({len(oi.channels)})"
+                )
+            self.refs = self._chans(s_ref, ri.channels, ri.units)
+        if all(c.constant for c in self.outs):
+            vals = ", ".join(f"{c.name} = {c.lo:g}" for c in self.outs)
+            raise MeasurementError(f"{oi.label}: constant waveform ({vals}): nothing to measure")
+        w_len = min(max(int(round(o.steady_fraction * n)), 1), o.max_window_samples)
+        self.w_start = n - w_len
+        if w_len < n * o.steady_fraction - 0.5:
+            self.notes.append(f"steady-state window capped at {w_len} samples (max_window_samples)")
+        self._pass_levels()
+        self._classify()
+        self._pass_edges()
+        self._pass_regions()
+        self.pred = predictions_for(self.system, self.o, self.rate)
+        return MeasurementResult(self._assemble())
+
+    def _chans(self, s: _Scan, names, units) -> list[_Chan]:
+        out = []
+        for c in range(len(names)):
+            mean = float(s.sum[c] / s.n)
+            rms = math.sqrt(max(float(s.sumsq[c] / s.n), 0.0))
+            out.append(_Chan(names[c], units[c], float(s.lo[c]), float(s.hi[c]), mean, rms))
+        return out
+
+    def _pass_levels(self) -> None:
+        """Pass 2: level histograms and the steady-state window."""
+        chans = self.outs + self.refs
+        hist = lv.LevelHistogram(np.array([c.lo for c in chans]), np.array([c.hi for c in chans]))
+        parts: list[list[np.ndarray]] = [[] for _ in chans]
+        n_out = len(self.outs)
+        for start, a, b in self.src.blocks():
+            blk = a if b is None else np.concatenate([a, b], axis=1)
+            hist.add(blk)
+            end = start + blk.shape[0]
+            if end > self.w_start:
+                lo = max(self.w_start - start, 0)
+                for c in range(len(chans)):
+                    parts[c].append(blk[lo:, c].copy())
+        for c, ch in enumerate(chans):
+            ch.window = np.concatenate(parts[c]) if parts[c] else np.empty(0)
+            if ch.constant:
+                ch.null_reasons["state_levels"] = f"constant channel (every sample is {ch.lo:g})"
+                continue
+            ch.levels = lv.state_levels(hist, c, self.o.state_level_method)
+            half = 0.1 * ch.levels.amplitude
+            ch.two_state_fraction = hist.fraction_near(c, (ch.levels.low, ch.levels.high), half)
+            ch.refs = lv.reference_values(ch.levels, self.o.reference_levels_pct)
+        self.hist = hist
+        self._n_out = n_out
+
+    # ------------------------------------------------------------------ kinds
+    def _window_t(self, m: int) -> np.ndarray:
+        return (self.w_start + np.arange(m, dtype=np.float64)) / self.rate
+
+    def _auto_kind(self, ch: _Chan, is_reference: bool) -> str:
+        if ch.constant:
+            return "constant"
+        if ch.two_state_fraction >= TWO_STATE_FRACTION:
+            return "transitions"
+        y = ch.window
+        if y.size >= MIN_WINDOW and np.ptp(y) > 0:
+            t = self._window_t(y.size)
+            if is_reference:
+                tones = st.find_tones(y, self.rate)
+                if len(tones) >= 2:
+                    fit = st.fit_tones(y, t, tones, refine=True)
+                    if fit.explained >= SINE_AUTO_EXPLAINED:
+                        return "multitone"
+            try:
+                f0 = st.spectrum_peak_hz(y, self.rate)
+                fit = st.fit_tones(y, t, [f0], refine=True)
+                if fit.explained >= SINE_AUTO_EXPLAINED and fit.tones[0].frequency_hz > 0:
+                    return "sine"
+            except MeasurementError:
+                pass
+            if not is_reference:
+                tones = st.find_tones(y, self.rate)
+                if len(tones) >= 2:
+                    fit = st.fit_tones(y, t, tones, refine=True)
+                    if fit.explained >= SINE_AUTO_EXPLAINED:
+                        return "multitone"
+            _, _, r2 = st.line_fit(y, t)
+            if r2 >= RAMP_R2:
+                return "ramp"
+        return "other"
+
+    def _classify(self) -> None:
+        o = self.o
+        forced = o.signal_kind != "auto"
+        if o.tones_hz is not None and not forced:
+            forced, kind_opt = True, "multitone"
+        elif o.sine_hz is not None and not forced:
+            forced, kind_opt = True, "sine"
+        else:
+            kind_opt = o.signal_kind
+        for r in self.refs:
+            r.kind = kind_opt if forced else self._auto_kind(r, True)
+            r.kind_source = "option" if forced else "input"
+        for c, ch in enumerate(self.outs):
+            ri = self.ref_for(c)
+            if forced:
+                ch.kind, ch.kind_source = kind_opt, "option"
+            elif ri is not None:
+                ch.kind, ch.kind_source = self.refs[ri].kind, "input"
+            else:
+                ch.kind, ch.kind_source = self._auto_kind(ch, False), "output"
+            if ch.kind == "constant" and ri is None:
+                ch.kind = "other"
+        if forced and kind_opt in ("sine", "multitone"):
+            # a sine asked for: it must be there (in the input, else in the output)
+            for ch in self.refs or self.outs:
+                self._require_sine(ch, kind_opt)
+
+    def _require_sine(self, ch: _Chan, kind: str) -> None:
+        y = ch.window
+        if y.size < MIN_WINDOW or ch.constant or np.ptp(y) == 0:
+            raise MeasurementError(
+                f"channel {ch.name!r}: no sine: the steady-state window is flat or too short"
+            )
+        t = self._window_t(y.size)
+        if kind == "sine":
+            f = self.o.sine_hz or st.spectrum_peak_hz(y, self.rate)
+            fit = st.fit_tones(y, t, [f], refine=self.o.sine_hz is None)
+        else:
+            tones = self.o.tones_hz or st.find_tones(y, self.rate)
+            if not tones:
+                raise MeasurementError(f"channel {ch.name!r}: no tones found in its spectrum")
+            fit = st.fit_tones(y, t, tones, refine=self.o.tones_hz is None)
+        if fit.explained < SINE_MIN_EXPLAINED:
+            what = "sine" if kind == "sine" else "tones"
+            raise MeasurementError(
+                f"channel {ch.name!r}: no {what} present: the fit accounts for only "
+                f"{100 * fit.explained:.1f} % of its AC power in the steady-state window"
+            )
+
+    # ------------------------------------------------------------------ pass 3
+    def _pass_edges(self) -> None:
+        chans = self.outs + self.refs
+        active = [
+            i for i, ch in enumerate(chans) if ch.kind == "transitions" and ch.refs is not None
+        ]
+        if not active:
+            return
+        for i in active:
+            chans[i].finder = EdgeFinder(*chans[i].refs)
+        for start, a, b in self.src.blocks():
+            blk = a if b is None else np.concatenate([a, b], axis=1)
+            for i in active:
+                chans[i].finder.feed(blk[:, i], start)
+        for i in active:
+            chans[i].edges = chans[i].finder.edges
+
+    # ------------------------------------------------------------------ pass 4
+    def _pass_regions(self) -> None:
+        chans = self.outs + self.refs
+        need: dict[int, np.ndarray] = {}
+        for i, ch in enumerate(chans):
+            if ch.edges:
+                idx = sorted({k for e in ch.edges for k in e.needed_indices() if 0 <= k < self.n})
+                need[i] = np.asarray(idx, dtype=np.int64)
+        regions: dict[int, list[EdgeRegions]] = {}
+        for c, ch in enumerate(self.outs):
+            if ch.edges:
+                regions[c] = self._regions_for(c, ch)
+        if not need and not regions:
+            return
+        values: dict[int, dict[int, float]] = {i: {} for i in need}
+        # region lists sorted by start, so each block visits only those it overlaps
+        spans = {
+            c: (
+                np.array([min(r.pre_start, r.edge.k_start) for r in rs]),
+                np.array([r.post_end for r in rs]),
+            )
+            for c, rs in regions.items()
+        }
+        prev = np.full(len(chans), np.nan)
+        for start, a, b in self.src.blocks():
+            blk = a if b is None else np.concatenate([a, b], axis=1)
+            last = start + blk.shape[0] - 1
+            for i, idx in need.items():
+                lo, hi = np.searchsorted(idx, [start, last + 1])
+                for k in idx[lo:hi]:
+                    values[i][int(k)] = float(blk[k - start, i])
+            for c, rs in regions.items():
+                s0, s1 = spans[c]
+                y = blk[:, c]
+                p = None if start == 0 else float(prev[c])
+                # regions overlapping [start-1, last] (start-1: pending right neighbours)
+                cand = np.flatnonzero((s0 <= last) & (s1 >= start - 1))
+                for r in cand:
+                    rs[r].update(y, start, p)
+            prev = blk[-1, :].copy()
+        for i, ch in enumerate(chans):
+            for e in ch.edges:
+                e.set_instants(values[i], ch.refs)
+        self.regions = regions
+
+    def _regions_for(self, c: int, ch: _Chan) -> list[EdgeRegions]:
+        ri = self.ref_for(c)
+        in_edges: list[Edge] = self.refs[ri].edges if ri is not None else []
+        in_mids = np.array([e.k_mid for e in in_edges], dtype=np.int64)
+        lvls = ch.levels
+        band_abs = self.o.settling_band_pct / 100.0 * lvls.amplitude
+        pre_starts, matches = [], []
+        for i, e in enumerate(ch.edges):
+            m = None
+            if in_mids.size:
+                k = int(np.searchsorted(in_mids, e.k_mid, side="right")) - 1
+                m = k if k >= 0 else None
+            matches.append(m)
+            length = max(3, e.j - e.k_start)
+            ps = e.k_start - length
+            if m is not None:
+                ps = min(ps, in_edges[m].k_start)
+            floor = ch.edges[i - 1].j + 1 if i > 0 else 0
+            pre_starts.append(max(ps, floor, 0))
+        out = []
+        for i, e in enumerate(ch.edges):
+            post_end = pre_starts[i + 1] - 1 if i + 1 < len(ch.edges) else self.n - 1
+            post_end = max(post_end, e.j)
+            final = lvls.high if e.direction > 0 else lvls.low
+            initial = lvls.low if e.direction > 0 else lvls.high
+            r = EdgeRegions(e, pre_starts[i], post_end, initial, final, band_abs)
+            r.match = matches[i]  # type: ignore[attr-defined]
+            out.append(r)
+        return out
+
+    # ------------------------------------------------------------------ assembly
+    def _assemble(self) -> dict:
+        o = self.o
+        oi = self.src.out.info
+        res: dict = {
+            "measurement": "simwave.measure",
+            "schema": 1,
+            "source": {
+                "output": oi.path,
+                "reference": (self.src.ref.info.path if self.src.ref is not None else None),
+                "reference_channel": (
+                    str(o.reference_channel) if o.reference_channel is not None else None
+                ),
+            },
+            "record": {
+                "rate_hz": self.rate,
+                "t0_s": self.t0,
+                "n_samples": self.n,
+                "duration_s": self.n / self.rate,
+                "n_channels": len(self.outs),
+            },
+            "options": o.to_dict(),
+            "steady_window_s": [self.t(self.w_start), self.t(self.n - 1)],
+            "predicted": self.pred.to_dict(),
+            "input": [self._input_dict(r) for r in self.refs],
+            "channels": [self._channel_dict(c, ch) for c, ch in enumerate(self.outs)],
+            "notes": list(self.notes),
+        }
+        return res
+
+    def _levels_dict(self, ch: _Chan) -> dict:
+        p = self.o.reference_levels_pct
+        return {
+            "low_pct": p[0],
+            "mid_pct": p[1],
+            "high_pct": p[2],
+            "low": ch.refs[0],
+            "mid": ch.refs[1],
+            "high": ch.refs[2],
+        }
+
+    def _input_dict(self, r: _Chan) -> dict:
+        d: dict = {
+            "name": r.name,
+            "unit": r.unit,
+            "kind": r.kind,
+            "kind_source": r.kind_source,
+            "min": r.lo,
+            "max": r.hi,
+            "mean": r.mean,
+            "rms": r.rms,
+        }
+        if r.kind == "transitions" and r.levels is not None:
+            d["state_levels"] = r.levels.to_dict()
+            d["reference_levels"] = self._levels_dict(r)
+            d["transitions"] = [
+                {
+                    "index": i,
+                    "direction": e.name,
+                    "start_s": self.t(e.start),
+                    "crossing_50_s": self.t(e.mid),
+                    "end_s": self.t(e.end),
+                    "transition_duration_s": (e.end - e.start) / self.rate,
+                }
+                for i, e in enumerate(r.edges)
+            ]
+        if r.null_reasons:
+            d["null_reasons"] = dict(r.null_reasons)
+        return d
+
+    def _channel_dict(self, c: int, ch: _Chan) -> dict:
+        ri = self.ref_for(c)
+        ref = self.refs[ri] if ri is not None else None
+        d: dict = {
+            "name": ch.name,
+            "unit": ch.unit,
+            "input_channel": ref.name if ref is not None else None,
+            "kind": ch.kind,
+            "kind_source": ch.kind_source,
+            "min": ch.lo,
+            "max": ch.hi,
+            "mean": ch.mean,
+            "rms": ch.rms,
+        }
+        reasons = dict(ch.null_reasons)
+        comparisons: list[dict] = []
+        if ch.kind in ("transitions", "constant"):
+            self._transient_section(c, ch, ref, d, reasons)
+        d["steady_state"] = self._steady_section(c, ch, ref)
+        if ch.kind == "sine":
+            d["sine"] = self._sine_section(ch, ref)
+        elif ch.kind == "multitone":
+            d["tones"], tone_reasons = self._tones_section(ch, ref)
+            reasons.update(tone_reasons)
+        comparisons = compare_rows(d, self.pred, self.o)
+        d["comparison"] = comparisons
+        if reasons:
+            d["null_reasons"] = reasons
+        return d
+
+    def _transient_section(
+        self, c: int, ch: _Chan, ref: _Chan | None, d: dict, reasons: dict
+    ) -> None:
+        if ch.levels is None:
+            d["state_levels"] = None
+            d["transitions"] = []
+            reasons.setdefault("transitions", reasons.get("state_levels", "no state levels"))
+            return
+        d["state_levels"] = ch.levels.to_dict()
+        d["reference_levels"] = self._levels_dict(ch)
+        rows = [self._transition_row(ch, r, ref, i) for i, r in enumerate(self.regions.get(c, []))]
+        d["transitions"] = rows
+        if not rows:
+            reasons["transitions"] = (
+                "no transition found: the waveform never goes from one reference level "
+                f"({ch.refs[0]:.6g}) to the other ({ch.refs[2]:.6g})"
+            )
+        d["transition_summary"] = summarize(rows, WORST_IS_MAX + ("peak_time_s",), worst=True)
+        pulses = pulse_table(ch.edges, self.rate, self.t0)
+        if pulses:
+            d["pulses"] = pulses
+            d["pulse_summary"] = summarize(
+                pulses, ("pulse_duration_s", "period_s", "duty_pct"), worst=False
+            )
+
+    def _transition_row(self, ch: _Chan, r: EdgeRegions, ref: _Chan | None, index: int) -> dict:
+        e, lvls, rate = r.edge, ch.levels, self.rate
+        amp = lvls.amplitude
+        reasons: dict = {}
+        dur = (e.end - e.start) / rate
+        row: dict = {
+            "index": index,
+            "direction": e.name,
+            "start_s": self.t(e.start),
+            "crossing_50_s": self.t(e.mid),
+            "end_s": self.t(e.end),
+            ("rise_time_s" if e.direction > 0 else "fall_time_s"): dur,
+            "transition_duration_s": dur,
+            "initial_level": r.initial,
+            "final_level": r.final,
+        }
+        m = getattr(r, "match", None)
+        if ref is not None and m is not None:
+            ie = ref.edges[m]
+            origin, origin_name = ie.mid, "input 50 % crossing"
+            row["input_transition"] = m
+            row["input_crossing_50_s"] = self.t(ie.mid)
+            row["delay_s"] = (e.mid - ie.mid) / rate
+        else:
+            origin, origin_name = e.start, "output transition start (low reference level instant)"
+            row["input_transition"] = None
+            row["delay_s"] = None
+            reasons["delay_s"] = (
+                "no reference input given" if ref is None else "no input transition precedes it"
+            )
+        row["time_origin"] = origin_name
+        row["time_origin_s"] = self.t(origin)
+        s = r.s
+        row["overshoot_pct"] = max(0.0, 100.0 * (r.peak_val - s * r.final) / amp)
+        if r.reached_idx >= 0:
+            row["undershoot_pct"] = max(0.0, 100.0 * (s * r.final - r.after_reach_min) / amp)
+        else:
+            row["undershoot_pct"] = None
+            reasons["undershoot_pct"] = (
+                "the waveform never reaches its final state level after the transition "
+                "(monotonic approach): no undershoot to measure"
+            )
+        if math.isfinite(r.pre_min):
+            row["preshoot_pct"] = max(0.0, 100.0 * (s * r.initial - r.pre_min) / amp)
+        else:
+            row["preshoot_pct"] = None
+            reasons["preshoot_pct"] = "no samples before the transition"
+        pk = r.peak()
+        if pk is None:
+            row["peak_value"] = s * r.peak_val
+            row["peak_time_s"] = None
+            reasons["peak_time_s"] = (
+                "no peak: the waveform is still moving toward its extreme at the end of the "
+                "post-transition region"
+            )
+        else:
+            row["peak_value"], row["peak_time_s"] = pk[0], (pk[1] - origin) / rate
+        row["settling_band_pct"] = self.o.settling_band_pct
+        si = r.settle_instant()
+        if si is None:
+            row["settling_time_s"] = None
+            row["settled_at_s"] = None
+            where = "the end of the record" if r.post_end >= self.n - 1 else "the next transition"
+            reasons["settling_time_s"] = (
+                f"never settles before {where}: over its last tenth it is still up to "
+                f"{100.0 * r.tail_dev / amp:.3g} % of amplitude from the final level, "
+                f"outside the ±{self.o.settling_band_pct:g} % band"
+            )
+        else:
+            row["settling_time_s"] = max(0.0, (si - origin) / rate)
+            row["settled_at_s"] = self.t(si)
+        if reasons:
+            row["null_reasons"] = reasons
+        return row
+
+    # ------------------------------------------------------------------ steady state
+    def _steady_section(self, c: int, ch: _Chan, ref: _Chan | None) -> dict:
+        y = ch.window
+        d: dict = {
+            "window_start_s": self.t(self.w_start),
+            "window_end_s": self.t(self.n - 1),
+            "window_samples": int(y.size),
+        }
+        reasons: dict = {}
+        if y.size < MIN_WINDOW:
+            for k in ("mean", "rms", "ripple_pp", "final_value"):
+                d[k] = None
+                reasons[k] = (
+                    f"record too short for steady state: the window holds {y.size} samples "
+                    f"(at least {MIN_WINDOW} needed)"
+                )
+            d["null_reasons"] = reasons
+            return d
+        d.update(st.window_stats(y))
+        x = ref.window if ref is not None else None
+        t = self._window_t(y.size)
+        if ch.kind in ("transitions", "constant"):
+            self._steady_step(c, ch, ref, y, x, d, reasons)
+        elif ch.kind == "ramp" and x is not None:
+            self._steady_ramp(y, x, t, d, reasons)
+        if reasons:
+            d["null_reasons"] = reasons
+        return d
+
+    def _steady_step(self, c, ch, ref, y, x, d, reasons) -> None:
+        d["final_value"] = float(np.mean(y))
+        edges_in_window = [e for e in ch.edges if e.j >= self.w_start]
+        blocked = None
+        if edges_in_window:
+            blocked = (
+                f"the steady-state window contains {len(edges_in_window)} output transition(s), "
+                f"the first at {self.t(edges_in_window[0].j):.6g} s"
+            )
+        elif ch.levels is not None:
+            band_abs = self.o.settling_band_pct / 100.0 * ch.levels.amplitude
+            dev = float(np.max(np.abs(y - d["final_value"])))
+            d["settled_in_window"] = bool(dev <= band_abs)
+            if dev > band_abs:
+                blocked = (
+                    f"output not settled in the steady-state window: it deviates up to "
+                    f"{100.0 * dev / ch.levels.amplitude:.3g} % of amplitude from its mean, "
+                    f"outside the ±{self.o.settling_band_pct:g} % band"
+                )
+        if x is None:
+            for k in ("steady_state_gain", "steady_state_error"):
+                d[k] = None
+                reasons[k] = "no reference input given"
+            if blocked:
+                d["final_value"] = None
+                reasons["final_value"] = blocked
+            return
+        ref_edges_in_window = [e for e in ref.edges if e.j >= self.w_start]
+        if ref_edges_in_window and not blocked:
+            blocked = "the steady-state window contains an input transition"
+        if blocked:
+            for k in ("final_value", "steady_state_gain", "steady_state_error"):
+                d[k] = None
+                reasons[k] = blocked
+            return
+        x_final = float(np.mean(x))
+        d["input_final_value"] = x_final
+        y_final = d["final_value"]
+        if ref.edges and ref.levels is not None and ch.levels is not None and ch.edges:
+            last_in = ref.edges[-1]
+            x_init = ref.levels.low if last_in.direction > 0 else ref.levels.high
+            last_out = ch.edges[-1]
+            y_init = ch.levels.low if last_out.direction > 0 else ch.levels.high
+            dx = x_final - x_init
+            d["steady_state_gain"] = (y_final - y_init) / dx
+            d["steady_state_gain_basis"] = (
+                "step: (final - initial output level) / (final - initial input level)"
+            )
+            d["steady_state_error"] = x_final - y_final
+            d["steady_state_error_pct"] = 100.0 * (x_final - y_final) / abs(dx)
+        else:
+            if x_final == 0:
+                d["steady_state_gain"] = None
+                reasons["steady_state_gain"] = "input final value is 0: no gain to form"
+            else:
+                d["steady_state_gain"] = y_final / x_final
+                d["steady_state_gain_basis"] = "final output value / final input value"
+            d["steady_state_error"] = x_final - y_final
+        d["error_definition"] = "input - output, averaged over the steady-state window"
+
+    def _steady_ramp(self, y, x, t, d, reasons) -> None:
+        sx, _, r2x = st.line_fit(x, t)
+        sy, _, _ = st.line_fit(y, t)
+        err = x - y
+        se, e_end, _ = st.line_fit(err, t)
+        d["input_slope_per_s"] = sx
+        d["output_slope_per_s"] = sy
+        d["steady_state_error"] = e_end
+        d["error_trend_per_s"] = se
+        d["error_definition"] = "input - output at the end of the window (straight-line fit)"
+        if sx == 0:
+            d["steady_state_gain"] = None
+            d["ramp_lag_s"] = None
+            reasons["steady_state_gain"] = reasons["ramp_lag_s"] = "input slope is 0"
+        else:
+            d["steady_state_gain"] = sy / sx
+            d["steady_state_gain_basis"] = "ramp: output slope / input slope"
+            d["ramp_lag_s"] = e_end / sx
+
+    # ------------------------------------------------------------------ sine / tones
+    def _sine_section(self, ch: _Chan, ref: _Chan | None) -> dict:
+        o = self.o
+        y = ch.window
+        d: dict = {}
+        reasons: dict = {}
+        t = self._window_t(y.size)
+        if y.size < MIN_WINDOW or np.ptp(y) == 0:
+            d["frequency_hz"] = None
+            reasons["frequency_hz"] = "steady-state window too short or flat for a sine fit"
+            d["null_reasons"] = reasons
+            return d
+        in_fit = None
+        if o.sine_hz is not None:
+            f, fsrc = o.sine_hz, "given"
+        elif ref is not None and ref.window.size >= MIN_WINDOW and np.ptp(ref.window) > 0:
+            in_fit = st.fit_tones(
+                ref.window, t, [st.spectrum_peak_hz(ref.window, self.rate)], refine=True
+            )
+            f, fsrc = in_fit.tones[0].frequency_hz, "four-parameter fit of the input"
+        else:
+            f, fsrc = None, "four-parameter fit of this channel"
+        if f is None:
+            out_fit = st.fit_tones(y, t, [st.spectrum_peak_hz(y, self.rate)], refine=True)
+            f = out_fit.tones[0].frequency_hz
+            d["fit"] = "four-parameter"
+        else:
+            out_fit = st.fit_tones(y, t, [f])
+            d["fit"] = "three-parameter"
+        cycles = f * y.size / self.rate
+        d["frequency_hz"] = f
+        d["frequency_source"] = fsrc
+        d["cycles_in_window"] = cycles
+        if cycles < 1.0:
+            for k in ("amplitude", "gain_db", "phase_deg", "thd_pct", "thd_db", "sinad_db"):
+                d[k] = None
+                reasons[k] = (
+                    f"record too short: the steady-state window holds {cycles:.2f} cycles "
+                    "(at least 1 needed)"
+                )
+            d["null_reasons"] = reasons
+            return d
+        tone = out_fit.tones[0]
+        d["amplitude"] = tone.amplitude
+        d["offset"] = out_fit.offset
+        d["output_phase_deg"] = math.degrees(tone.phase_rad)
+        d["fit_explains_pct"] = 100.0 * out_fit.explained
+        if ref is not None:
+            in_fit = st.fit_tones(ref.window, t, [f])  # three-parameter, same f as the output
+            it = in_fit.tones[0]
+            d["input_amplitude"] = it.amplitude
+            d["input_phase_deg"] = math.degrees(it.phase_rad)
+            if it.amplitude == 0:
+                d["gain_db"] = d["phase_deg"] = None
+                reasons["gain_db"] = reasons["phase_deg"] = "input amplitude is 0"
+            else:
+                ratio = tone.amplitude / it.amplitude
+                d["gain"] = ratio
+                d["gain_db"] = 20.0 * math.log10(ratio) if ratio > 0 else None
+                if ratio == 0:
+                    reasons["gain_db"] = "output fundamental is 0"
+                d["phase_deg"] = math.degrees(st._wrap(tone.phase_rad - it.phase_rad))
+        else:
+            d["gain_db"] = d["phase_deg"] = None
+            reasons["gain_db"] = reasons["phase_deg"] = "no reference input given"
+        if self.system is not None:
+            h = complex(self.system.frequency_response(f))
+            if h != 0:
+                d["predicted_gain_db"] = 20.0 * math.log10(abs(h))
+                d["predicted_phase_deg"] = math.degrees(math.atan2(h.imag, h.real))
+        if out_fit.explained < SINE_MIN_EXPLAINED:
+            for k in ("thd_pct", "thd_db", "sinad_db"):
+                d[k] = None
+                reasons[k] = (
+                    f"no sine present in this channel: the fit accounts for only "
+                    f"{100 * out_fit.explained:.1f} % of its AC power"
+                )
+        else:
+            hfit, top = st.harmonic_fit(y, t, f, self.rate, int(o.harmonics))
+            d["harmonics_counted"] = top
+            if top < 2:
+                d["thd_pct"] = d["thd_db"] = None
+                reasons["thd_pct"] = reasons["thd_db"] = (
+                    "no harmonic lies below the Nyquist frequency"
+                )
+            else:
+                thd = st.thd_ratio(hfit)
+                d["thd_pct"] = 100.0 * thd
+                d["thd_db"] = 20.0 * math.log10(thd) if thd > 0 else None
+                if thd == 0:
+                    reasons["thd_db"] = "no harmonic content at all (THD = 0)"
+                d["harmonics"] = [
+                    {
+                        "order": k + 1,
+                        "frequency_hz": h.frequency_hz,
+                        "amplitude": h.amplitude,
+                        "relative_pct": 100.0 * h.amplitude / hfit.tones[0].amplitude,
+                    }
+                    for k, h in enumerate(hfit.tones)
+                    if k >= 1
+                ]
+            sd = st.sinad_db(out_fit)
+            d["sinad_db"] = sd if math.isfinite(sd) else None
+            if not math.isfinite(sd):
+                reasons["sinad_db"] = "the fit residual is exactly 0"
+        if reasons:
+            d["null_reasons"] = reasons
+        return d
+
+    def _tones_section(self, ch: _Chan, ref: _Chan | None) -> tuple[list, dict]:
+        o = self.o
+        y = ch.window
+        t = self._window_t(y.size)
+        reasons: dict = {}
+        if y.size < MIN_WINDOW:
+            reasons["tones"] = "record too short for steady state"
+            return [], reasons
+        basis = ref.window if ref is not None else y
+        if o.tones_hz is not None:
+            freqs = list(o.tones_hz)
+        else:
+            found = st.find_tones(basis, self.rate) if np.ptp(basis) > 0 else []
+            if not found:
+                reasons["tones"] = "no tones found in the " + (
+                    "input" if ref is not None else "output"
+                )
+                return [], reasons
+            freqs = [tn.frequency_hz for tn in st.fit_tones(basis, t, found, refine=True).tones]
+        freqs = [f for f in freqs if f < 0.5 * self.rate]
+        out_fit = st.fit_tones(y, t, freqs)
+        in_fit = st.fit_tones(ref.window, t, freqs) if ref is not None else None
+        rows = []
+        for k, f in enumerate(freqs):
+            row: dict = {
+                "frequency_hz": f,
+                "amplitude": out_fit.tones[k].amplitude,
+                "output_phase_deg": math.degrees(out_fit.tones[k].phase_rad),
+            }
+            rr: dict = {}
+            if in_fit is not None:
+                it = in_fit.tones[k]
+                row["input_amplitude"] = it.amplitude
+                if it.amplitude > 0 and out_fit.tones[k].amplitude > 0:
+                    row["gain_db"] = 20.0 * math.log10(out_fit.tones[k].amplitude / it.amplitude)
+                    row["phase_deg"] = math.degrees(
+                        st._wrap(out_fit.tones[k].phase_rad - it.phase_rad)
+                    )
+                else:
+                    row["gain_db"] = row["phase_deg"] = None
+                    rr["gain_db"] = rr["phase_deg"] = "zero amplitude at this tone"
+            else:
+                row["gain_db"] = row["phase_deg"] = None
+                rr["gain_db"] = rr["phase_deg"] = "no reference input given"
+            if self.system is not None:
+                h = complex(self.system.frequency_response(f))
+                if h != 0:
+                    row["predicted_gain_db"] = 20.0 * math.log10(abs(h))
+                    row["predicted_phase_deg"] = math.degrees(math.atan2(h.imag, h.real))
+            if rr:
+                row["null_reasons"] = rr
+            rows.append(row)
+        return rows, reasons
+
+
+__all__ = ["measure", "MeasureOptions", "Predictions"]

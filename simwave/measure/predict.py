@@ -1,0 +1,340 @@
+"""What H(s) predicts, and the measured-vs-predicted comparison with its tolerances.
+
+Predictions: DC gain H(0); gain and phase of H(j 2 pi f) at measured sine and tone
+frequencies; for a dominant complex pole pair, the step-response overshoot
+exp(-pi zeta / sqrt(1 - zeta^2)) and peak time pi / omega_d (Ogata, *Modern Control
+Engineering*, 5th ed., sec. 5-3), exact for two poles and no finite zeros, an
+approximation otherwise (compared, never flagged).
+
+A difference is flagged when it exceeds the tolerance: the discretization error the
+discrete model's accuracy report states (plus a small measurement allowance) when a
+discrete model is passed, else the stated tolerance options.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+#: A complex pole pair counts as dominant when every other pole and every zero is at
+#: least this many times further from the imaginary axis (rule of thumb, common practice).
+DOMINANCE_RATIO = 5.0
+#: Allowance added to the discretization error for the measurement itself.
+FLOOR_DB = 0.01
+FLOOR_DEG = 0.1
+
+
+@dataclass
+class Predictions:
+    """Predictions of one System (all None when no system was given)."""
+
+    given: bool = False
+    text: str | None = None
+    dc_gain: float | None = None
+    zeta: float | None = None
+    wn: float | None = None
+    wd: float | None = None
+    delay_s: float = 0.0
+    basis: str | None = None  # "exact second order" / "dominant pole pair (approximate)"
+    overshoot_pct: float | None = None
+    peak_time_s: float | None = None
+    gain_tol_db: float = 0.1
+    phase_tol_deg: float = 1.0
+    tol_source: str = "stated tolerance"
+    discretization: dict | None = None
+    null_reasons: dict = field(default_factory=dict)
+
+    def to_dict(self) -> dict:
+        if not self.given:
+            return {"system": None, "null_reasons": {"system": "no system given"}}
+        d: dict = {
+            "system": self.text,
+            "dc_gain": self.dc_gain,
+            "second_order": None,
+            "gain_tolerance_db": self.gain_tol_db,
+            "phase_tolerance_deg": self.phase_tol_deg,
+            "tolerance_source": self.tol_source,
+        }
+        if self.zeta is not None:
+            d["second_order"] = {
+                "basis": self.basis,
+                "zeta": self.zeta,
+                "natural_frequency_hz": self.wn / (2 * math.pi),
+                "damped_frequency_hz": self.wd / (2 * math.pi),
+                "overshoot_pct": self.overshoot_pct,
+                "peak_time_s": self.peak_time_s,
+                "dead_time_s": self.delay_s,
+            }
+        if self.discretization is not None:
+            d["discretization"] = self.discretization
+        if self.null_reasons:
+            d["null_reasons"] = dict(self.null_reasons)
+        return d
+
+
+def _dominant_pair(system: Any) -> tuple[complex | None, str | None, str | None]:
+    """The dominant complex pole (upper half plane), its basis, or a reason there is none."""
+    poles = np.atleast_1d(np.asarray(system.poles, dtype=np.complex128))
+    zeros = np.atleast_1d(np.asarray(system.zeros, dtype=np.complex128))
+    if poles.size == 0:
+        return None, None, "the system has no poles"
+    if np.any(poles.real >= 0):
+        return None, None, "the system is not stable: no step-response prediction"
+    upper = poles[poles.imag > 0]
+    if upper.size == 0:
+        return None, None, "no complex pole pair (no underdamped mode)"
+    p = upper[np.argmax(upper.real)]  # slowest-decaying complex pair
+    if poles.size == 2 and zeros.size == 0:
+        return p, "exact second order (two poles, no finite zeros)", None
+    sigma = -p.real
+    others = [
+        q for q in poles if abs(q - p) > 1e-12 * abs(p) and abs(q - np.conj(p)) > 1e-12 * abs(p)
+    ]
+    if any(-q.real < DOMINANCE_RATIO * sigma for q in others):
+        return (
+            None,
+            None,
+            (
+                f"no dominant pole pair: another pole is within {DOMINANCE_RATIO:g}x the pair's "
+                "distance from the imaginary axis"
+            ),
+        )
+    if any(abs(z.real) < DOMINANCE_RATIO * sigma for z in zeros):
+        return (
+            None,
+            None,
+            (
+                f"no dominant pole pair: a zero lies within {DOMINANCE_RATIO:g}x the pair's "
+                "distance from the imaginary axis"
+            ),
+        )
+    return p, "dominant pole pair (approximate)", None
+
+
+def _discrete_errors(discrete: Any) -> dict | None:
+    """Largest magnitude (dB) and phase (deg) errors from a discrete model's accuracy report."""
+    acc = getattr(discrete, "accuracy", None)
+    if acc is None:
+        return None
+    rep = acc()
+    d = rep.to_dict() if hasattr(rep, "to_dict") else dict(rep)
+    mag = phase = None
+    for k, v in d.items():
+        if not isinstance(v, (int, float)) or isinstance(v, bool):
+            continue
+        lk = k.lower()
+        if "mag" in lk and "db" in lk and "freq" not in lk and mag is None:
+            mag = abs(float(v))
+        if "phase" in lk and "deg" in lk and "freq" not in lk and phase is None:
+            phase = abs(float(v))
+    if mag is None and phase is None:
+        return None
+    out = {
+        "method": getattr(discrete, "method", None),
+        "rate_hz": getattr(discrete, "rate", None),
+        "max_magnitude_error_db": mag,
+        "max_phase_error_deg": phase,
+    }
+    return out
+
+
+def _describe(system: Any) -> str:
+    def roots(r: Any) -> str:
+        r = np.atleast_1d(np.asarray(r, dtype=np.complex128))
+        return (
+            "["
+            + ", ".join(
+                f"{z.real:.6g}" if z.imag == 0 else f"{z.real:.6g}{z.imag:+.6g}j" for z in r
+            )
+            + "]"
+        )
+
+    return f"zeros {roots(system.zeros)}, poles {roots(system.poles)} rad/s, gain {system.gain:.6g}"
+
+
+def predictions_for(system: Any, o: Any, rate: float) -> Predictions:
+    """Predictions of ``system`` (None: nothing predicted) and the tolerances to use."""
+    p = Predictions(gain_tol_db=o.gain_tolerance_db, phase_tol_deg=o.phase_tolerance_deg)
+    if o.discrete is not None:
+        errs = _discrete_errors(o.discrete)
+        if errs is not None:
+            p.discretization = errs
+            p.gain_tol_db = (errs["max_magnitude_error_db"] or 0.0) + FLOOR_DB
+            p.phase_tol_deg = (errs["max_phase_error_deg"] or 0.0) + FLOOR_DEG
+            p.tol_source = (
+                "discretization error report (+{:g} dB, +{:g} deg for the measurement)".format(
+                    FLOOR_DB, FLOOR_DEG
+                )
+            )
+    if system is None:
+        return p
+    p.given = True
+    p.text = getattr(system, "text", None) or _describe(system)
+    p.delay_s = float(getattr(system, "delay_s", 0.0) or 0.0)
+    dc = float(system.dc_gain)
+    if math.isfinite(dc):
+        p.dc_gain = dc
+    else:
+        p.null_reasons["dc_gain"] = "H(0) is infinite (a pole at s = 0)"
+    pole, basis, why = _dominant_pair(system)
+    if pole is None:
+        p.null_reasons["second_order"] = why
+        return p
+    wn = abs(pole)
+    zeta = -pole.real / wn
+    wd = pole.imag
+    p.zeta, p.wn, p.wd, p.basis = float(zeta), float(wn), float(wd), basis
+    # Ogata, Modern Control Engineering, 5th ed., sec. 5-3: Mp = exp(-pi zeta / sqrt(1 - zeta^2)),
+    # tp = pi / omega_d; a dead time shifts the whole response.
+    p.overshoot_pct = 100.0 * math.exp(-math.pi * zeta / math.sqrt(1.0 - zeta * zeta))
+    p.peak_time_s = math.pi / wd + p.delay_s
+    return p
+
+
+def _row(
+    quantity: str,
+    measured: Any,
+    predicted: Any,
+    diff: float | None,
+    tol: float | None,
+    tol_source: str,
+    flag: bool | None,
+    note: str | None = None,
+) -> dict:
+    r = {
+        "quantity": quantity,
+        "measured": measured,
+        "predicted": predicted,
+        "difference": diff,
+        "tolerance": tol,
+        "tolerance_source": tol_source,
+        "flag": flag,
+    }
+    if note:
+        r["note"] = note
+    return r
+
+
+def _wrap_deg(x: float) -> float:
+    w = math.remainder(x, 360.0)
+    return 180.0 if w == -180.0 else w
+
+
+def compare_rows(ch: dict, p: Predictions, o: Any) -> list[dict]:
+    """Measured-vs-predicted rows for one channel's dictionary."""
+    if not p.given:
+        return []
+    rows: list[dict] = []
+    ss = ch.get("steady_state") or {}
+    g = ss.get("steady_state_gain")
+    if isinstance(g, float) and p.dc_gain is not None:
+        if p.dc_gain != 0:
+            rel_tol = 10 ** (p.gain_tol_db / 20.0) - 1.0
+            diff = (g - p.dc_gain) / abs(p.dc_gain)
+            rows.append(
+                _row(
+                    "steady_state_gain (relative difference)",
+                    g,
+                    p.dc_gain,
+                    diff,
+                    rel_tol,
+                    p.tol_source,
+                    abs(diff) > rel_tol,
+                )
+            )
+        else:
+            rows.append(
+                _row(
+                    "steady_state_gain",
+                    g,
+                    0.0,
+                    g,
+                    None,
+                    p.tol_source,
+                    None,
+                    "H(0) = 0: compared, not flagged",
+                )
+            )
+    sine = ch.get("sine") or {}
+    if "predicted_gain_db" in sine:
+        rows.extend(_gain_phase_rows("sine", sine, p))
+    for tone in ch.get("tones") or []:
+        if "predicted_gain_db" in tone:
+            rows.extend(_gain_phase_rows(f"tone {tone['frequency_hz']:.6g} Hz", tone, p))
+    if p.overshoot_pct is not None:
+        rows.extend(_second_order_rows(ch, p, o))
+    return rows
+
+
+def _gain_phase_rows(label: str, d: dict, p: Predictions) -> list[dict]:
+    rows = []
+    if d.get("gain_db") is not None:
+        diff = d["gain_db"] - d["predicted_gain_db"]
+        rows.append(
+            _row(
+                f"{label} gain_db",
+                d["gain_db"],
+                d["predicted_gain_db"],
+                diff,
+                p.gain_tol_db,
+                p.tol_source,
+                abs(diff) > p.gain_tol_db,
+            )
+        )
+    if d.get("phase_deg") is not None:
+        diff = _wrap_deg(d["phase_deg"] - d["predicted_phase_deg"])
+        rows.append(
+            _row(
+                f"{label} phase_deg",
+                d["phase_deg"],
+                d["predicted_phase_deg"],
+                diff,
+                p.phase_tol_deg,
+                p.tol_source,
+                abs(diff) > p.phase_tol_deg,
+            )
+        )
+    return rows
+
+
+def _second_order_rows(ch: dict, p: Predictions, o: Any) -> list[dict]:
+    """Overshoot and peak time of the first transition that has a peak, vs the formulas."""
+    rows = []
+    exact = p.basis is not None and p.basis.startswith("exact")
+    first = next((t for t in ch.get("transitions") or [] if t.get("peak_time_s") is not None), None)
+    if first is None:
+        return rows
+    note = None if exact else "dominant-pole approximation: compared, not flagged"
+    diff = first["overshoot_pct"] - p.overshoot_pct
+    tol = o.overshoot_tolerance_pct
+    rows.append(
+        _row(
+            "overshoot_pct (first transition)",
+            first["overshoot_pct"],
+            p.overshoot_pct,
+            diff,
+            tol,
+            "stated tolerance (percentage points)",
+            (abs(diff) > tol) if exact else None,
+            note,
+        )
+    )
+    if first.get("delay_s") is not None:
+        rate_tol = o.time_tolerance_pct / 100.0 * p.peak_time_s
+        diff = first["peak_time_s"] - p.peak_time_s
+        rows.append(
+            _row(
+                "peak_time_s (first transition)",
+                first["peak_time_s"],
+                p.peak_time_s,
+                diff,
+                rate_tol,
+                "stated tolerance (percent of the predicted peak time)",
+                (abs(diff) > rate_tol) if exact else None,
+                note,
+            )
+        )
+    return rows

@@ -1,0 +1,233 @@
+"""Block sources for measurement: a Waveform in memory or a file read in blocks.
+
+A measurement makes several passes over the record (range, histogram, transitions,
+regions). Each pass asks :class:`MeasureSource` for aligned blocks of the measured
+channels and the reference channels; for a file every pass reads it again in blocks
+through :func:`simwave.blocks`, so nothing but one block per stream is held.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+from typing import Any, Iterator
+
+import numpy as np
+
+from simwave.errors import MeasurementError
+from simwave.signals.waveform import Waveform
+
+PathLike = (str, os.PathLike)
+
+
+def _read_module():
+    import simwave
+
+    return simwave
+
+
+def _file_blocks(path: Any, size: int, read_options: dict) -> Iterator[Waveform]:
+    sw = _read_module()
+    blocks = getattr(sw, "blocks", None)
+    if blocks is not None:
+        yield from blocks(path, size, **read_options)
+        return
+    read = getattr(sw, "read", None)
+    if read is None:
+        raise MeasurementError(
+            f"{path}: reading waveform files needs simwave.read or simwave.blocks, "
+            "which this installation does not have"
+        )
+    yield read(path, **read_options)
+
+
+@dataclass
+class StreamInfo:
+    """What the first block of a stream says about it."""
+
+    label: str  # for messages: a file name or "output waveform"
+    rate: float
+    t0: float
+    channels: list[str]
+    units: list[str]
+    path: str | None
+
+
+class _Stream:
+    """One stream of 2-D sample blocks: a Waveform sliced, or a file read in blocks."""
+
+    def __init__(
+        self,
+        obj: Any,
+        label: str,
+        block_size: int,
+        read_options: dict,
+        columns: list[int] | None = None,
+    ) -> None:
+        self.obj = obj
+        self.block_size = block_size
+        self.read_options = read_options
+        self.columns = columns
+        if isinstance(obj, Waveform):
+            first = obj
+            path = None
+        elif isinstance(obj, PathLike):
+            path = os.fspath(obj)
+            label = path
+            first = next(iter(_file_blocks(path, block_size, read_options)), None)
+            if first is None:
+                raise MeasurementError(f"{path}: the file holds no samples")
+        else:
+            raise MeasurementError(
+                f"{label} must be a Waveform or a file path, got {type(obj).__name__}"
+            )
+        self.info = StreamInfo(
+            label, first.rate, first.t0, list(first.channels), list(first.units), path
+        )
+
+    def select(self, columns: list[int]) -> "_Stream":
+        s = _Stream.__new__(_Stream)
+        s.__dict__.update(self.__dict__)
+        s.columns = columns
+        s.info = StreamInfo(
+            self.info.label,
+            self.info.rate,
+            self.info.t0,
+            [self.info.channels[i] for i in columns],
+            [self.info.units[i] for i in columns],
+            self.info.path,
+        )
+        return s
+
+    def arrays(self) -> Iterator[np.ndarray]:
+        if isinstance(self.obj, Waveform):
+            data = self.obj.data
+            for a in range(0, data.shape[0], self.block_size):
+                blk = data[a : a + self.block_size]
+                yield blk if self.columns is None else blk[:, self.columns]
+            return
+        for piece in _file_blocks(self.obj, self.block_size, self.read_options):
+            blk = np.asarray(piece.data, dtype=np.float64)
+            if blk.ndim == 1:
+                blk = blk[:, None]
+            yield blk if self.columns is None else blk[:, self.columns]
+
+
+def _aligned(
+    a: Iterator[np.ndarray], b: Iterator[np.ndarray] | None
+) -> Iterator[tuple[np.ndarray, np.ndarray | None]]:
+    """Re-chunk two block streams so that their blocks cover the same samples."""
+    if b is None:
+        for blk in a:
+            yield blk, None
+        return
+    buf_a: list[np.ndarray] = []
+    buf_b: list[np.ndarray] = []
+    na = nb = 0
+    it_a, it_b = iter(a), iter(b)
+    done_a = done_b = False
+    while True:
+        while not done_a and na <= nb:
+            nxt = next(it_a, None)
+            if nxt is None:
+                done_a = True
+            else:
+                buf_a.append(nxt)
+                na += nxt.shape[0]
+        while not done_b and nb <= na:
+            nxt = next(it_b, None)
+            if nxt is None:
+                done_b = True
+            else:
+                buf_b.append(nxt)
+                nb += nxt.shape[0]
+        m = min(na, nb)
+        if m == 0:
+            return
+        ca = np.concatenate(buf_a) if len(buf_a) > 1 else buf_a[0]
+        cb = np.concatenate(buf_b) if len(buf_b) > 1 else buf_b[0]
+        yield ca[:m], cb[:m]
+        buf_a, buf_b = ([ca[m:]] if ca.shape[0] > m else []), ([cb[m:]] if cb.shape[0] > m else [])
+        na, nb = na - m, nb - m
+
+
+class MeasureSource:
+    """The measured channels and (optionally) the reference channels, block by block.
+
+    Parameters
+    ----------
+    waveform : Waveform or path
+        The record to measure.
+    reference : Waveform or path, optional
+        The input that produced it (same rate and length).
+    reference_channel : str or int, optional
+        Take the reference from this channel of ``waveform`` instead (the other
+        channels are measured).
+    block_size : int
+        Samples per block.
+    read_options : dict
+        Passed to :func:`simwave.blocks` / :func:`simwave.read` for file inputs.
+    """
+
+    def __init__(
+        self,
+        waveform: Any,
+        reference: Any,
+        reference_channel: Any,
+        block_size: int,
+        read_options: dict,
+    ) -> None:
+        out = _Stream(waveform, "output waveform", block_size, read_options)
+        ref: _Stream | None = None
+        if reference_channel is not None:
+            if reference is not None:
+                raise MeasurementError(
+                    "give either a reference waveform or a reference channel, not both"
+                )
+            names = out.info.channels
+            idx = _channel_index(names, reference_channel, out.info.label)
+            rest = [i for i in range(len(names)) if i != idx]
+            if not rest:
+                raise MeasurementError(
+                    f"{out.info.label}: reference channel {names[idx]!r} is the only channel; "
+                    "nothing is left to measure"
+                )
+            ref = out.select([idx])
+            out = out.select(rest)
+        elif reference is not None:
+            ref = _Stream(reference, "reference waveform", block_size, read_options)
+            if ref.info.rate != out.info.rate:
+                raise MeasurementError(
+                    f"{ref.info.label}: sample rate {ref.info.rate:g} Hz differs from the "
+                    f"output's {out.info.rate:g} Hz ({out.info.label}); measure signals at one rate"
+                )
+        self.out, self.ref = out, ref
+        self.rate = out.info.rate
+        self.t0 = out.info.t0
+
+    def blocks(self) -> Iterator[tuple[int, np.ndarray, np.ndarray | None]]:
+        """Yield ``(start_index, output_block, reference_block_or_None)``; blocks are
+        ``(n, n_channels)`` float64 and cover the same samples in both streams."""
+        start = 0
+        ref_arrays = self.ref.arrays() if self.ref is not None else None
+        for a, b in _aligned(self.out.arrays(), ref_arrays):
+            yield start, a, b
+            start += a.shape[0]
+
+
+def _channel_index(names: list[str], channel: Any, label: str) -> int:
+    if isinstance(channel, (int, np.integer)) and not isinstance(channel, bool):
+        i = int(channel)
+        if not -len(names) <= i < len(names):
+            raise MeasurementError(
+                f"{label}: channel index {i} out of range ({len(names)} channel(s))"
+            )
+        return i % len(names)
+    name = str(channel)
+    if name in names:
+        return names.index(name)
+    if name.lstrip("-").isdigit():
+        return _channel_index(names, int(name), label)
+    raise MeasurementError(
+        f"{label}: no channel named {name!r}; the channels are {', '.join(names)}"
+    )

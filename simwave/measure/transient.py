@@ -1,0 +1,320 @@
+"""Transitions, aberrations and settling of two-state waveforms (IEEE Std 181-2011).
+
+Everything here works on blocks of samples with a small carried state, so a
+record of any length is measured in constant memory apart from the list of
+transitions found.
+
+Definitions used (IEEE Std 181-2011 terms; the aberration regions are ours, as
+the standard leaves their extent to the user):
+
+* A transition is found with hysteresis between the low and high reference
+  levels: a rising transition is the first sample at or above the high
+  reference level after the waveform was last at or below the low reference
+  level (and mirrored for falling). Noise that wiggles around one reference
+  level therefore cannot produce a false transition.
+* Its start is the last crossing of the near reference level before that sample,
+  its 50 % instant the last crossing of the mid reference level, its end the
+  first crossing of the far reference level; each crossing instant is linearly
+  interpolated between the two samples around it. Transition duration (rise or
+  fall time) = end - start.
+* Pre-transition aberration region: from one transition duration (at least 3
+  samples) before the start, or from the matched input transition's start when
+  that is earlier, to the start; never before the previous transition's end.
+  Preshoot = largest excursion beyond the initial state level there.
+* Post-transition aberration region: from the end of the transition to the
+  start of the next transition's pre-transition region (or the end of the
+  record). Overshoot = largest excursion beyond the final state level there;
+  undershoot = largest excursion back short of the final state level after the
+  waveform first reached it. Both in percent of the waveform amplitude.
+* Settling time: from the time origin (the matched input transition's 50 %
+  instant, else this transition's start) to the last instant the waveform is
+  outside the band final level +/- band % of amplitude, searched from the start
+  of the transition to the end of its post-transition region.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+
+@dataclass
+class Edge:
+    """A transition found by :class:`EdgeFinder` (indices are global sample indices).
+
+    ``k_start`` is the last sample at or beyond the near reference level, ``k_mid`` the
+    last sample on the near side of the mid reference level, ``j`` the first sample at or
+    beyond the far reference level. The crossings lie between ``k`` and ``k + 1``
+    (``j - 1`` and ``j`` for the far level).
+    """
+
+    direction: int  # +1 rising, -1 falling
+    k_start: int
+    k_mid: int
+    j: int
+    # crossing instants in (fractional) sample indices, filled from looked-up values
+    start: float = math.nan
+    mid: float = math.nan
+    end: float = math.nan
+
+    @property
+    def name(self) -> str:
+        return "rising" if self.direction > 0 else "falling"
+
+    def needed_indices(self) -> list[int]:
+        return [self.k_start, self.k_start + 1, self.k_mid, self.k_mid + 1, self.j - 1, self.j]
+
+    def set_instants(self, values: dict[int, float], refs: tuple[float, float, float]) -> None:
+        low, mid, high = refs
+        near, far = (low, high) if self.direction > 0 else (high, low)
+        self.start = _cross(values, self.k_start, near)
+        self.mid = _cross(values, self.k_mid, mid)
+        self.end = _cross(values, self.j - 1, far)
+
+
+def _cross(values: dict[int, float], k: int, level: float) -> float:
+    """Instant (fractional index) where the line through samples k, k+1 meets ``level``."""
+    y0, y1 = values[k], values[k + 1]
+    if y1 == y0:
+        return float(k)
+    frac = (level - y0) / (y1 - y0)
+    return k + min(max(frac, 0.0), 1.0)
+
+
+class EdgeFinder:
+    """Find transitions of one channel with hysteresis between the low and high reference levels.
+
+    Feed blocks in order with :meth:`feed`; the transitions are in :attr:`edges`.
+
+    References
+    ----------
+    IEEE Std 181-2011, clause 5.3 (reference levels, reference level instants) and the
+    state boundaries of clause 3; hysteresis between the low and high reference levels is
+    our choice, so that noise crossing one level repeatedly is not a transition.
+    """
+
+    def __init__(self, low: float, mid: float, high: float) -> None:
+        self.low, self.mid, self.high = low, mid, high
+        self.last_event = -1  # index of the last sample at/below low or at/above high
+        self.last_state = -1  # 0 low, 1 high, -1 not yet known
+        self.last_below_mid = -1
+        self.last_above_mid = -1
+        self.edges: list[Edge] = []
+
+    def feed(self, y: np.ndarray, start: int) -> None:
+        n = y.size
+        if n == 0:
+            return
+        g = np.arange(start, start + n, dtype=np.int64)
+        below = y <= self.low
+        above = y >= self.high
+        bm = np.where(y < self.mid, g, -1)
+        np.maximum.accumulate(bm, out=bm)
+        np.maximum(bm, self.last_below_mid, out=bm)
+        am = np.where(y > self.mid, g, -1)
+        np.maximum.accumulate(am, out=am)
+        np.maximum(am, self.last_above_mid, out=am)
+        ev = np.flatnonzero(below | above)
+        if ev.size:
+            states = above[ev].astype(np.int64)
+            prev_states = np.concatenate(([self.last_state], states[:-1]))
+            prev_idx = np.concatenate(([self.last_event], g[ev[:-1]]))
+            for c in np.flatnonzero((states != prev_states) & (prev_states >= 0)):
+                local = int(ev[c])
+                direction = 1 if states[c] == 1 else -1
+                k_mid = int(bm[local]) if direction > 0 else int(am[local])
+                self.edges.append(Edge(direction, int(prev_idx[c]), k_mid, int(g[local])))
+            self.last_state = int(states[-1])
+            self.last_event = int(g[ev[-1]])
+        self.last_below_mid = int(bm[-1])
+        self.last_above_mid = int(am[-1])
+
+
+@dataclass
+class EdgeRegions:
+    """Running reductions over one output transition's aberration and settling regions.
+
+    Values are kept in "signed" form ``s * y`` (``s`` = +1 rising, -1 falling) so that
+    the same code finds the overshoot of rising and falling transitions.
+    """
+
+    edge: Edge
+    pre_start: int
+    post_end: int
+    initial: float
+    final: float
+    band_abs: float
+    s: int = field(init=False)
+    pre_min: float = math.inf
+    peak_idx: int = -1
+    peak_val: float = -math.inf
+    peak_left: float | None = None
+    peak_right: float | None = None
+    reached_idx: int = -1
+    after_reach_min: float = math.inf
+    last_out: int = -1
+    last_out_val: float = math.nan
+    last_out_next: float | None = None
+    tail_start: int = 0
+    tail_dev: float = 0.0
+
+    def __post_init__(self) -> None:
+        self.s = self.edge.direction
+        length = self.post_end - self.edge.j + 1
+        self.tail_start = self.post_end - max(1, length // 10) + 1
+
+    def update(self, y: np.ndarray, start: int, prev: float | None) -> None:
+        """Take in one block ``y`` starting at global index ``start`` (``prev``: sample before)."""
+        s, e = self.s, self.edge
+        last = start + y.size - 1
+        # right neighbours left pending at the end of the previous block
+        if self.peak_idx == start - 1 and self.peak_right is None:
+            self.peak_right = float(y[0])
+        if self.last_out == start - 1 and self.last_out_next is None:
+            self.last_out_next = float(y[0])
+        lo, hi = max(self.pre_start, start), min(e.k_start, last)
+        if lo <= hi:
+            self.pre_min = min(self.pre_min, float(np.min(s * y[lo - start : hi - start + 1])))
+        # settling: the last sample outside the band, from the start of the transition on
+        lo, hi = max(e.k_start, start), min(self.post_end, last)
+        if lo <= hi:
+            seg = y[lo - start : hi - start + 1]
+            out = np.flatnonzero(np.abs(seg - self.final) > self.band_abs)
+            if out.size:
+                k = lo + int(out[-1])
+                self.last_out = k
+                self.last_out_val = float(y[k - start])
+                self.last_out_next = float(y[k - start + 1]) if k < last else None
+        lo, hi = max(e.j, start), min(self.post_end, last)
+        if lo > hi:
+            return
+        sy = s * y[lo - start : hi - start + 1]
+        a = int(np.argmax(sy))
+        if sy[a] > self.peak_val:
+            k = lo + a
+            self.peak_idx, self.peak_val = k, float(sy[a])
+            if k > start:
+                self.peak_left = float(s * y[k - start - 1])
+            else:
+                self.peak_left = None if prev is None else float(s * prev)
+            self.peak_right = float(s * y[k - start + 1]) if k < last else None
+        if self.reached_idx < 0:
+            r = np.flatnonzero(sy >= s * self.final)
+            if r.size:
+                self.reached_idx = lo + int(r[0])
+                self.after_reach_min = min(self.after_reach_min, float(np.min(sy[r[0] :])))
+        else:
+            self.after_reach_min = min(self.after_reach_min, float(np.min(sy)))
+        tl = max(self.tail_start, lo)
+        if tl <= hi:
+            dev = float(np.max(np.abs(y[tl - start : hi - start + 1] - self.final)))
+            self.tail_dev = max(self.tail_dev, dev)
+
+    # ------------------------------------------------------------------ results
+    def peak(self) -> tuple[float, float] | None:
+        """(peak value in signal units, fractional index), refined by a parabola, or None
+        when the extreme lies at the end of the post-transition region (no peak yet)."""
+        if self.peak_idx < 0 or self.peak_idx >= self.post_end:
+            return None
+        v, idx = self.peak_val, float(self.peak_idx)
+        if (
+            self.peak_left is not None
+            and self.peak_right is not None
+            and self.peak_idx > self.edge.j
+        ):
+            a, b, c = self.peak_left, self.peak_val, self.peak_right
+            den = a - 2.0 * b + c
+            if den < 0:
+                # vertex of the parabola through the three samples around the maximum
+                p = 0.5 * (a - c) / den
+                idx += p
+                v = b - 0.25 * (a - c) * p
+        return self.s * v, idx
+
+    def settle_instant(self) -> float | None:
+        """Fractional index of the last exit from the band, or None if still outside at the end."""
+        if self.last_out < 0:
+            return float(self.edge.k_start)
+        if self.last_out >= self.post_end or self.last_out_next is None:
+            return None
+        y0, y1 = self.last_out_val, self.last_out_next
+        bound = self.final + math.copysign(self.band_abs, y0 - self.final)
+        if y1 == y0:
+            return float(self.last_out)
+        frac = min(max((bound - y0) / (y1 - y0), 0.0), 1.0)
+        return self.last_out + frac
+
+
+def pulse_table(edges: list[Edge], rate: float, t0: float) -> list[dict]:
+    """Per-pulse durations, periods and duty (IEEE Std 181-2011 pulse duration at 50 %).
+
+    A pulse is a transition followed by one in the opposite direction; its duration is
+    the time between their 50 % instants. Pulses start with the direction of the first
+    transition (positive pulses when it rises). The period is the time to the next
+    transition in the same direction as this pulse's first one; duty = duration / period.
+    """
+    out = []
+    if len(edges) < 2:
+        return out
+    first_dir = edges[0].direction
+    starts = [i for i, e in enumerate(edges) if e.direction == first_dir]
+    for n, i in enumerate(starts):
+        if i + 1 >= len(edges):
+            break
+        a, b = edges[i], edges[i + 1]
+        duration = (b.mid - a.mid) / rate
+        row = {
+            "index": n,
+            "polarity": "positive" if first_dir > 0 else "negative",
+            "start_s": t0 + a.mid / rate,
+            "pulse_duration_s": duration,
+            "period_s": None,
+            "duty_pct": None,
+        }
+        if n + 1 < len(starts):
+            period = (edges[starts[n + 1]].mid - a.mid) / rate
+            row["period_s"] = period
+            row["duty_pct"] = 100.0 * duration / period
+        else:
+            row["null_reasons"] = {
+                "period_s": "last pulse: no following pulse in the record",
+                "duty_pct": "last pulse: no following pulse in the record",
+            }
+        out.append(row)
+    return out
+
+
+#: Summary statistics across transitions: for these, larger is worse ("worst" = max).
+WORST_IS_MAX = (
+    "rise_time_s",
+    "fall_time_s",
+    "overshoot_pct",
+    "undershoot_pct",
+    "preshoot_pct",
+    "settling_time_s",
+    "delay_s",
+)
+
+
+def summarize(rows: list[dict], keys: tuple[str, ...], worst: bool) -> dict:
+    """min/mean/max (and worst, or standard deviation) of each key across rows, with counts."""
+    out = {}
+    for key in keys:
+        vals = [r[key] for r in rows if isinstance(r.get(key), (int, float))]
+        missing = sum(1 for r in rows if key in r and r[key] is None)
+        if not vals and not missing:
+            continue
+        entry: dict = {"count": len(vals)}
+        if vals:
+            arr = np.asarray(vals, dtype=np.float64)
+            entry.update(min=float(arr.min()), mean=float(arr.mean()), max=float(arr.max()))
+            if worst:
+                entry["worst"] = float(arr.max())
+            else:
+                entry["std"] = float(arr.std())
+        if missing:
+            entry["missing"] = missing
+        out[key] = entry
+    return out
