@@ -56,9 +56,11 @@ class Waveform:
         try:
             rate = float(self.rate)
         except (TypeError, ValueError):
-            raise WaveformError(f"sample rate must be a number of hertz, got {self.rate!r}") from None
+            raise WaveformError(
+                f"sample rate must be a number of hertz, got {self.rate!r}") from None
         if not math.isfinite(rate) or rate <= 0:
-            raise WaveformError(f"sample rate must be a positive finite number of hertz, got {rate}")
+            raise WaveformError(
+                f"sample rate must be a positive finite number of hertz, got {rate}")
         self.rate = rate
         self.t0 = float(self.t0)
         n_ch = self.data.shape[1]

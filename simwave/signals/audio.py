@@ -1,0 +1,348 @@
+"""Audio files through soundfile/libsndfile: WAV (PCM, float, µ-law, A-law,
+WAVEX, RF64), FLAC, AIFF, OGG and the rest libsndfile reads.
+
+Samples are float64 in full-scale units (1.0 = digital full scale). Physical
+units: ``value = full_scale * sample + offset`` per channel.
+
+Integer PCM is quantized here, not by libsndfile, so that a write/read round
+trip is within half an LSB: libsndfile scales float to 16 bit by 0x7FFF on
+writing but divides by 0x8000 on reading (observed with libsndfile 1.2), which
+would cost up to one LSB near full scale. Codes are ``round(x * 2**(b-1))``
+limited to ``[-2**(b-1), 2**(b-1) - 1]``; reading divides by ``2**(b-1)``
+(the usual two's-complement fractional convention, which is also what
+libsndfile's reader does). A value in ``(1 - 2**-b, 1]`` therefore saturates to
+the largest code, one LSB short of +1.0: that is not counted as clipping.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import re
+import tempfile
+from typing import Any, Iterator
+
+import numpy as np
+import soundfile as sf
+
+from simwave import __version__
+from simwave.errors import WaveformError
+from simwave.signals.common import WriteResult, dbfs, dumps, per_channel
+from simwave.signals.stream import Rows, sample_places
+
+#: Bits of the PCM subtypes quantized here.
+PCM_BITS = {"PCM_S8": 8, "PCM_U8": 8, "PCM_16": 16, "PCM_24": 24, "PCM_32": 32}
+#: Subtypes that hold values beyond full scale unharmed.
+FLOAT_SUBTYPES = {"FLOAT", "DOUBLE"}
+#: libsndfile keeps string chunks up to about 2 kB (observed); stay below.
+_META_LIMIT = 2000
+_META_KEY = "simwave"
+READ_CHUNK = 1 << 16
+
+
+def _open_error(path: str, exc: Exception) -> WaveformError:
+    msg = str(exc)
+    msg = re.sub(r"^Error opening '.*?': ", "", msg)
+    return WaveformError(f"{path}: not a readable audio file ({msg.strip().rstrip('.')})")
+
+
+def _truncation(info_text: str) -> str | None:
+    # libsndfile's header log says "data : 4000 (should be 2999)" when the data chunk
+    # declares more bytes than the file holds.
+    m = re.search(r"^data\s*:\s*(\d+)\s*\(should be (\d+)\)", info_text, re.M)
+    if m and int(m.group(2)) < int(m.group(1)):
+        return f"truncated: data chunk declares {m.group(1)} bytes, file holds {m.group(2)}"
+    return None
+
+
+class AudioSource:
+    """Streaming reader of one audio file (see module docs for scaling)."""
+
+    family = "audio"
+
+    def __init__(self, path: str, *, full_scale: Any = None, offset: Any = None,
+                 units: str | None = None, rate: float | None = None) -> None:
+        self.path = path
+        try:
+            self.f = sf.SoundFile(path)
+        except (sf.LibsndfileError, RuntimeError, TypeError) as exc:
+            raise _open_error(path, exc) from None
+        problem = _truncation(self.f.extra_info)
+        if problem:
+            self.f.close()
+            raise WaveformError(f"{path}: {problem}")
+        self.format = self.f.format
+        self.subtype = self.f.subtype
+        self.file_rate = float(self.f.samplerate)
+        self.rate = self.file_rate
+        self.n_samples = int(self.f.frames)
+        nch = int(self.f.channels)
+        meta = self._metadata()
+        self.channels = list(meta.get("channels") or [f"ch{i}" for i in range(nch)])
+        if len(self.channels) != nch:
+            self.channels = [f"ch{i}" for i in range(nch)]
+        self.t0 = float(meta.get("t0", 0.0))
+        self.attrs: dict[str, Any] = dict(meta.get("attrs") or {})
+        meta_units = meta.get("units")
+        fs_meta = meta.get("full_scale")
+        off_meta = meta.get("offset")
+        if full_scale is None and offset is None and fs_meta is not None:
+            # written by simwave with a calibration: give back physical values
+            self.scale = per_channel(fs_meta, nch, "full_scale", path)
+            off = off_meta if off_meta is not None else 0.0
+            self.offset = per_channel(off, nch, "offset", path)
+            self.units = list(meta_units) if meta_units and len(meta_units) == nch else ["V"] * nch
+        elif full_scale is not None or offset is not None:
+            fs = 1.0 if full_scale is None else full_scale
+            self.scale = per_channel(fs, nch, "full_scale", path)
+            self.offset = per_channel(0.0 if offset is None else offset, nch, "offset", path)
+            self.units = [units or "V"] * nch
+        else:
+            self.scale = None
+            self.offset = None
+            if meta_units and len(meta_units) == nch:
+                self.units = list(meta_units)
+            else:
+                self.units = [units or "FS"] * nch
+        if units:
+            self.units = [units] * nch
+        self.time_axis = None
+        self.notes: list[str] = []
+
+    def _metadata(self) -> dict[str, Any]:
+        try:
+            text = self.f.comment or ""
+        except (sf.LibsndfileError, RuntimeError):
+            return {}
+        if not text.startswith("{"):
+            return {}
+        try:
+            meta = json.loads(text)
+        except ValueError:
+            return {}
+        meta = meta.get(_META_KEY) if isinstance(meta, dict) else None
+        return meta if isinstance(meta, dict) else {}
+
+    def rows(self, select: list[int]) -> Iterator[Rows]:
+        got = 0
+        self.f.seek(0)
+        while True:
+            try:
+                data = self.f.read(READ_CHUNK, dtype="float64", always_2d=True)
+            except (sf.LibsndfileError, RuntimeError) as exc:
+                raise WaveformError(
+                    f"{self.path}, sample {got}: cannot decode audio ({exc})") from None
+            if data.shape[0] == 0:
+                break
+            if self.scale is not None:
+                data = data * self.scale + self.offset
+            yield Rows(data[:, select], None, sample_places(got, self.rate, self.t0))
+            got += data.shape[0]
+        if got < self.n_samples:
+            raise WaveformError(
+                f"{self.path}: truncated or corrupt: header promises {self.n_samples} frames, "
+                f"only {got} could be read"
+            )
+
+    def close(self) -> None:
+        self.f.close()
+
+
+def default_subtype(audio_format: str) -> str:
+    """FLOAT where the container has it (no clipping), else the best PCM it offers."""
+    for candidate in ("FLOAT", "PCM_24", "PCM_16"):
+        if sf.check_format(audio_format, candidate):
+            return candidate
+    return sf.default_subtype(audio_format)
+
+
+class AudioSink:
+    """Writes audio to an already-chosen (temporary) file name.
+
+    Parameters
+    ----------
+    tmp : str
+        File to write (the atomic target's temporary file).
+    audio_format : str
+        soundfile major format (``"WAV"``, ``"FLAC"``, ``"RF64"``, ...).
+    rate : float
+        Must be a whole number of hertz: audio headers store an integer rate.
+    channels, units : list of str
+        Stored in the file's comment string as JSON so simwave reads them back.
+    subtype : str, optional
+        Default FLOAT where available (values beyond full scale kept).
+    on_clip : {"error", "clip", "normalize"}
+        What to do when an integer-coded subtype would clip (|x| > 1).
+    full_scale, offset : float or list, optional
+        ``sample = (value - offset) / full_scale`` per channel.
+    peak_hint : float, optional
+        Known peak of the whole signal (lets ``normalize`` write in one pass).
+    """
+
+    def __init__(self, tmp: str, audio_format: str, rate: float, channels: list[str],
+                 units: list[str], t0: float, attrs: dict[str, Any], *, subtype: str | None = None,
+                 on_clip: str = "error", full_scale: Any = None, offset: Any = None,
+                 peak_hint: float | None = None, target: str | None = None) -> None:
+        self.where = target or tmp
+        if abs(rate - round(rate)) > 1e-9 * rate:
+            raise WaveformError(
+                f"{self.where}: audio files store a whole number of hertz; {rate!r} Hz is not "
+                f"(write CSV or HDF5 instead, or resample)"
+            )
+        self.rate = int(round(rate))
+        self.tmp = tmp
+        self.format = audio_format
+        self.subtype = (subtype or default_subtype(audio_format)).upper()
+        if not sf.check_format(audio_format, self.subtype):
+            ok = ", ".join(sf.available_subtypes(audio_format))
+            raise WaveformError(
+                f"{self.where}: {audio_format} cannot hold subtype {self.subtype}; "
+                f"choose one of {ok}"
+            )
+        if on_clip not in ("error", "clip", "normalize"):
+            raise WaveformError(f"on_clip must be 'error', 'clip' or 'normalize', got {on_clip!r}")
+        self.on_clip = on_clip
+        self.bounded = self.subtype not in FLOAT_SUBTYPES
+        n = len(channels)
+        self.n_channels = n
+        fs = 1.0 if full_scale is None else full_scale
+        self.scale = per_channel(fs, n, "full_scale", self.where)
+        self.offset = per_channel(0.0 if offset is None else offset, n, "offset", self.where)
+        self.channels, self.units, self.t0, self.attrs = channels, units, t0, attrs
+        self.calibrated = full_scale is not None or offset is not None
+        self.peak = 0.0
+        self.peak_at: tuple[int, int] | None = None
+        self.clipped = 0
+        self.count = 0
+        self.gain = 1.0
+        self.spool = None
+        self.f = None
+        if self.bounded and on_clip == "normalize":
+            if peak_hint is None:
+                # peak unknown until the end: keep float64 samples in a spool file beside
+                # the target, scale and encode them in a second pass on close
+                fd, self.spool_path = tempfile.mkstemp(
+                    prefix=".spool.", suffix=".f64", dir=os.path.dirname(os.path.abspath(tmp)))
+                self.spool = os.fdopen(fd, "wb")
+            else:
+                self.gain = 1.0 / peak_hint if peak_hint > 0 else 1.0
+        if self.spool is None:
+            self._open()
+
+    def _meta(self) -> str:
+        meta: dict[str, Any] = {
+            "version": __version__, "channels": self.channels, "units": self.units, "t0": self.t0,
+        }
+        if self.calibrated or self.gain != 1.0:
+            meta["full_scale"] = (self.scale / self.gain).tolist()
+            meta["offset"] = self.offset.tolist()
+        full = dumps({_META_KEY: dict(meta, attrs=self.attrs)})
+        if len(full) <= _META_LIMIT:
+            return full
+        short = dumps({_META_KEY: meta})
+        return short if len(short) <= _META_LIMIT else ""
+
+    def _open(self) -> None:
+        try:
+            self.f = sf.SoundFile(self.tmp, "w", self.rate, self.n_channels, self.subtype,
+                                  format=self.format)
+        except (sf.LibsndfileError, RuntimeError, ValueError) as exc:
+            raise WaveformError(f"{self.where}: cannot write {self.format} ({exc})") from None
+        meta = self._meta()
+        if meta:
+            try:
+                self.f.comment = meta
+            except (sf.LibsndfileError, RuntimeError):
+                pass  # container without string chunks (e.g. OGG): names and units not kept
+
+    def write(self, block: np.ndarray) -> None:
+        x = (block - self.offset) / self.scale
+        if x.shape[0] == 0:
+            return
+        a = np.abs(x)
+        flat = int(np.argmax(a))
+        peak = float(a.flat[flat])
+        if peak > self.peak or not math.isfinite(peak):
+            self.peak = peak
+            self.peak_at = divmod(flat, x.shape[1])
+            self.peak_at = (self.peak_at[0] + self.count, self.peak_at[1])
+        if not np.isfinite(x).all():
+            i, c = np.argwhere(~np.isfinite(x))[0]
+            raise WaveformError(f"{self.where}: sample {self.count + i}, channel "
+                                f"{self.channels[c]!r} is {x[i, c]}; audio cannot hold it")
+        if self.spool is not None:
+            x.astype(np.float64).tofile(self.spool)
+            self.count += x.shape[0]
+            return
+        self._encode(x)
+        self.count += x.shape[0]
+
+    def _encode(self, x: np.ndarray) -> None:
+        if self.bounded:
+            if self.gain != 1.0:
+                x = x * self.gain
+            over = np.abs(x) > 1.0
+            if over.any():
+                if self.on_clip == "error":
+                    i, c = np.argwhere(over)[0]
+                    raise WaveformError(
+                        f"{self.where}: sample {self.count + i}, channel {self.channels[c]!r} "
+                        f"exceeds full scale (peak so far {dbfs(self.peak):+.2f} dBFS) for "
+                        f"{self.subtype}; choose on_clip='clip' or 'normalize' (--on-clip), "
+                        f"a float subtype, or a larger full_scale"
+                    )
+                self.clipped += int(np.count_nonzero(over))
+                x = np.clip(x, -1.0, 1.0)
+        bits = PCM_BITS.get(self.subtype)
+        if bits:
+            top = 2.0 ** (bits - 1)
+            q = np.clip(np.rint(x * top), -top, top - 1)
+            if bits == 8:
+                data = (q.astype(np.int16) << 8)
+            elif bits == 16:
+                data = q.astype(np.int16)
+            elif bits == 24:
+                data = q.astype(np.int32) << 8
+            else:
+                data = q.astype(np.int32)
+        else:
+            data = np.ascontiguousarray(x, dtype=np.float64)
+        self.f.write(data)
+
+    def close(self) -> WriteResult:
+        if self.spool is not None:
+            self.spool.close()
+            self.gain = 1.0 / self.peak if self.peak > 0 else 1.0
+            self._open()
+            count, self.count = self.count, 0
+            step = READ_CHUNK * 4
+            with open(self.spool_path, "rb") as fh:
+                while self.count < count:
+                    x = np.fromfile(fh, dtype=np.float64, count=step * self.n_channels)
+                    x = x.reshape(-1, self.n_channels)
+                    self._encode(x)
+                    self.count += x.shape[0]
+            self._drop_spool()
+        self.f.close()
+        return WriteResult(
+            self.where, self.format, self.subtype, self.count, self.n_channels, self.peak,
+            dbfs(self.peak), self.clipped, self.gain,
+        )
+
+    def _drop_spool(self) -> None:
+        if self.spool is not None:
+            self.spool.close()
+            try:
+                os.unlink(self.spool_path)
+            except FileNotFoundError:
+                pass
+            self.spool = None
+
+    def abort(self) -> None:
+        self._drop_spool()
+        if self.f is not None:
+            try:
+                self.f.close()
+            except (sf.LibsndfileError, RuntimeError):
+                pass
