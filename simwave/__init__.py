@@ -11,6 +11,8 @@ __version__ = "0.1.0"
 from simwave.errors import SimwaveError  # noqa: E402
 from simwave.model.system import System  # noqa: E402
 from simwave.signals.waveform import Waveform  # noqa: E402
+from simwave.signals import blocks, generate, info, open_writer, read, write  # noqa: E402
 from simwave.measure import key_metrics, measure  # noqa: E402
 
-__all__ = ["System", "Waveform", "SimwaveError", "__version__", "measure", "key_metrics"]
+__all__ = ["System", "Waveform", "SimwaveError", "__version__",
+           "read", "write", "blocks", "info", "open_writer", "generate", "measure", "key_metrics"]

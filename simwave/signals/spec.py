@@ -22,7 +22,7 @@ import os
 from typing import Any
 
 from simwave.errors import WaveformError
-from simwave.signals.generate import KINDS, kind_name
+from simwave.signals.generate import KINDS, generate, generate_blocks, kind_name
 from simwave.signals.quantity import parse_quantity
 
 
@@ -95,3 +95,6 @@ def parse_signal_spec(text: str) -> tuple[str, float | None, float | None, dict[
     if dur_v is not None and not dur_v > 0:
         raise WaveformError(f"signal {text!r}: duration must be > 0 s")
     return kind, rate_v, dur_v, params
+
+
+__all__ = ["is_signal_spec", "parse_signal_spec", "generate", "generate_blocks"]
