@@ -79,6 +79,7 @@ class Token:
     value: float = 0.0
 
 
+_DIGITS = frozenset("0123456789")  # ASCII only: str.isdigit() also accepts '²' and the like
 _OPS_1 = {"+", "-", "*", "/", "^", "(", ")", "=", "'"}
 _UNICODE_OPS = {"\u2212": "-", "\u00d7": "*", "\u00b7": "*"}  # minus sign, times, middle dot
 
@@ -108,20 +109,20 @@ def tokenize(text: str) -> list[Token]:
         if c.isspace():
             i += 1
             continue
-        if c.isdigit() or (c == "." and i + 1 < n and text[i + 1].isdigit()):
+        if c in _DIGITS or (c == "." and i + 1 < n and text[i + 1] in _DIGITS):
             j = i
-            while j < n and text[j].isdigit():
+            while j < n and text[j] in _DIGITS:
                 j += 1
             if j < n and text[j] == ".":
                 j += 1
-                while j < n and text[j].isdigit():
+                while j < n and text[j] in _DIGITS:
                     j += 1
             if j < n and text[j] in "eE":
                 k = j + 1
                 if k < n and text[k] in "+-":
                     k += 1
-                if k < n and text[k].isdigit():
-                    while k < n and text[k].isdigit():
+                if k < n and text[k] in _DIGITS:
+                    while k < n and text[k] in _DIGITS:
                         k += 1
                     j = k
             mantissa = text[i:j]
@@ -379,7 +380,7 @@ def _unknown_name_message(text: str, t: Token) -> str:
         f"in ODE text also y (output) and x (input))"
     )
     # A name glued to a number that starts with a suffix letter: 1ms, 2ks.
-    if t.pos > 0 and text[t.pos - 1].isdigit() and t.text[0] in SUFFIXES:
+    if t.pos > 0 and text[t.pos - 1] in _DIGITS and t.text[0] in SUFFIXES:
         msg += f"; to scale by {t.text[0]!r} and multiply, write e.g. 1{t.text[0]}*{t.text[1:]}"
     return msg
 
@@ -744,7 +745,8 @@ class ParsedSystem:
         Dead time from an ``exp(-T*s)`` factor, seconds (0 when absent).
     ode : tuple of ndarray or None
         For ODE text, (a, b): output-side and input-side coefficients
-        [a_n..a_0], [b_m..b_0] exactly as written (not normalized).
+        [a_n..a_0], [b_m..b_0] with all y terms moved to one side and all x
+        terms to the other, signs chosen so that a_n > 0 (not scaled to a_n = 1).
     kind : str
         ``"expression"`` or ``"ode"``.
     """
@@ -855,6 +857,8 @@ def _ode_result(text: str, eq: Equation) -> ParsedSystem:
         raise ParseError(f'the y terms of the ODE cancel to zero (in "{_quote(text)}")')
     if _is_zero(b):
         raise ParseError(f'the x terms of the ODE cancel to zero (in "{_quote(text)}")')
+    if a[0] < 0:  # y terms written on the right-hand side: same equation, sides swapped
+        a, b = -a, -b
     return ParsedSystem(b.copy(), a.copy(), 0.0, (a.copy(), b.copy()), "ode")
 
 
