@@ -87,7 +87,13 @@ def parse_quantity(value: Any, name: str = "value") -> float:
                 raise WaveformError(
                     f"{name}: {text!r} is not a number (write e.g. 0.001, 1m, 4.7u, 10k, 2.5MHz)"
                 )
-            x = float(m.group(1)) * SI_PREFIXES[m.group(2)]
+            number, prefix = m.group(1), m.group(2)
+            if prefix and "e" not in number.lower():
+                # decimal exponent keeps "10u" exactly 1e-05 (10 * 1e-6 is 9.999999999999999e-06)
+                exp = {"µ": -6, "μ": -6}.get(prefix, round(math.log10(SI_PREFIXES[prefix])))
+                x = float(f"{number}e{exp}")
+            else:
+                x = float(number) * SI_PREFIXES[prefix]
     if not math.isfinite(x):
         raise WaveformError(f"{name}: {value!r} is not a finite number")
     return x
