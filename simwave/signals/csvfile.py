@@ -95,9 +95,9 @@ class CsvSource:
 
     def __init__(self, path: str, *, rate: float | None = None, time_column: Any = None,
                  resample: bool = False, delimiter: str | None = None,
-                 decimal: str | None = None, chunk_bytes: int = CHUNK_BYTES) -> None:
+                 decimal: str | None = None, chunk_bytes: int | None = None) -> None:
         self.path = path
-        self.chunk_bytes = int(chunk_bytes)
+        self.chunk_bytes = int(chunk_bytes or CHUNK_BYTES)
         self.fh = open(path, "rb")
         self.format, self.subtype = "CSV", "text"
         self.notes: list[str] = []
