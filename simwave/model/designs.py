@@ -11,8 +11,10 @@ butterworth         the gain is 3.01 dB below the passband gain
 chebyshev1          the gain leaves the passband ripple band (-ripple_db)
 chebyshev2          the gain first reaches the stopband level (-attenuation_db)
 elliptic            the gain leaves the passband ripple band (-ripple_db)
-bessel-phase        the phase reaches half its final value (phase-normalized;
-                    the high-frequency asymptote matches Butterworth's)
+bessel-phase        the high-frequency asymptote matches a Butterworth filter
+                    of the same cutoff (phase-normalized, scipy's
+                    norm='phase'; the phase there is roughly half its final
+                    value of -order*90 degrees)
 bessel-delay        1/(2 pi cutoff) is the low-frequency group delay
                     (delay-normalized, the classical Thomson form)
 bessel-magnitude    the gain is 3.01 dB below the passband gain

@@ -362,15 +362,20 @@ class System:
 
         Row ``[b0, b1, b2, a0, a1, a2]`` is (b0 s^2 + b1 s + b2)/(a0 s^2 + a1 s + a2);
         first-order sections have b0 = a0 = 0. The product of the sections is H(s)
-        (dead time not included). Built with ``scipy.signal.zpk2sos(analog=True)``.
-        """
-        from scipy.signal import zpk2sos
+        (dead time not included); the gain sits in the first section.
 
-        if self.order == 0:
-            return np.array([[0.0, 0.0, self.gain, 0.0, 0.0, 1.0]])
-        return np.asarray(
-            zpk2sos(self.zeros, self.poles, self.gain, analog=True), dtype=np.float64
-        )
+        Each complex pole pair, and each two real poles, make one section (a real
+        pole left over makes a first-order one), ordered by increasing |p|. Complex
+        zero pairs go to the free section with the nearest poles, then real zeros
+        fill the remaining places nearest to them; pairing zeros with nearby poles
+        keeps each section's gain moderate.
+
+        References
+        ----------
+        .. [1] L. B. Jackson, *Digital Filters and Signal Processing*, 3rd ed.,
+               Kluwer, 1996, sec. 11.3 (pairing poles and zeros into sections).
+        """
+        return _pair_sections(self.zeros, self.poles, self.gain)
 
     @property
     def state_space(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -395,6 +400,10 @@ class System:
         for row in self.sections:
             b = np.trim_zeros(row[:3], "f")
             a = np.trim_zeros(row[3:], "f")
+            if a.size == 1:  # a pure gain
+                D = D * (b[0] / a[0] if b.size else 0.0)
+                C = C * (b[0] / a[0] if b.size else 0.0)
+                continue
             Ai, Bi, Ci, Di = (np.atleast_2d(m) for m in tf2ss(b if b.size else [0.0], a))
             Ai = Ai.reshape(a.size - 1, a.size - 1)
             Bi = Bi.reshape(a.size - 1, 1)
@@ -771,6 +780,45 @@ class System:
             f"zeros={list(self.zeros)}, poles={list(self.poles)}, gain={self.gain:g}"
         )
         return f"System({label})"
+
+
+def _pair_sections(zeros: np.ndarray, poles: np.ndarray, gain: float) -> np.ndarray:
+    """Zeros, poles and gain as second-order sections (see :attr:`System.sections`)."""
+    p = np.asarray(poles, dtype=np.complex128)
+    z = np.asarray(zeros, dtype=np.complex128)
+    if p.size == 0:
+        return np.array([[0.0, 0.0, gain, 0.0, 0.0, 1.0]])
+    # Pole groups: each complex pair (upper member kept) and real poles two by two.
+    pairs = sorted(p[p.imag > 0], key=abs)
+    reals = sorted(p[p.imag == 0].real, key=abs)
+    groups: list[list[complex]] = [[q, np.conj(q)] for q in pairs]
+    groups += [[complex(r) for r in reals[i:i + 2]] for i in range(0, len(reals), 2)]
+    groups.sort(key=lambda g: min(abs(x) for x in g))
+    room = [len(g) for g in groups]
+    assigned: list[list[complex]] = [[] for _ in groups]
+
+    def nearest(target: complex, need: int) -> int:
+        free = [i for i in range(len(groups)) if room[i] >= need]
+        return min(free, key=lambda i: min(abs(target - x) for x in groups[i]))
+
+    # Complex zero pairs first (they need a whole second-order section), then real zeros.
+    # A proper system always has room: there are floor(n_poles/2) second-order sections.
+    for q in sorted(z[z.imag > 0], key=abs):
+        i = nearest(q, 2)
+        assigned[i] += [q, np.conj(q)]
+        room[i] -= 2
+    for r in sorted(z[z.imag == 0].real, key=abs):
+        i = nearest(complex(r), 1)
+        assigned[i].append(complex(r))
+        room[i] -= 1
+    rows = []
+    for g, zs in zip(groups, assigned, strict=True):
+        a = np.real(np.poly(g))
+        b = np.real(np.poly(zs)) if zs else np.ones(1)
+        rows.append(np.concatenate([np.zeros(3 - b.size), b, np.zeros(3 - a.size), a]))
+    out = np.array(rows, dtype=np.float64)
+    out[0, :3] *= gain
+    return out
 
 
 def _as_system(x: Any) -> System:
