@@ -1,0 +1,635 @@
+"""DiscreteSystem: a runnable discrete model with explicit, carried filter state.
+
+The model runs as second-order sections through one ``scipy.signal.sosfilt``
+call per block (all channels at once, along axis 0), followed by an exact
+delay line for the whole-sample part of the dead time. Everything else a
+block costs is constant work, so processing is as fast as sosfilt itself.
+
+Initial state
+-------------
+``rest``
+    Zero initial conditions before the first sample: the transfer-function
+    assumption and the convention of scipy.signal.lsim. For the
+    ramp-invariant method the textbook model would assume an input that
+    ramped up to the first sample; the state is corrected so that the first
+    and every later sample are the exact analog samples.
+``settled``
+    The steady state for a constant input equal to the first sample (per
+    channel): a recording that starts at an offset shows no false start-up
+    transient. Needs a finite DC gain.
+output initial conditions
+    For a system entered as an ODE: y(0), y'(0), ..., y^(n-1)(0), the values
+    just before the input starts (t = 0-); the zero-input response they
+    produce is added to the zero-state response (superposition, e.g. Ogata,
+    *Modern Control Engineering*, 5th ed., sec. 2-3 and 9-6).
+
+Every initial state is a set of second-order-section states found by a
+least-squares fit of the sections' own zero-input responses to the exact
+response the state must produce (the responses are exact sums of the
+model's modes, so the fit is exact up to rounding; its residual is checked).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import scipy.linalg as sla
+import scipy.signal as sig
+
+from simwave.errors import DiscretizationError
+
+__all__ = ["DiscreteSystem", "FilterState", "INITIAL_MODES"]
+
+#: Names accepted by ``initial``.
+INITIAL_MODES: tuple[str, ...] = ("rest", "settled")
+
+#: Longest zero-input response fitted when computing an initial state (samples).
+_MAX_HORIZON = 1 << 16
+
+
+@dataclass(eq=False)
+class FilterState:
+    """The state carried between :meth:`DiscreteSystem.process` calls.
+
+    Attributes
+    ----------
+    zi : ndarray, shape (n_sections, 2, n_channels)
+        Second-order-section states in scipy.signal.sosfilt's layout for data
+        of shape (n_samples, n_channels) filtered along axis 0.
+    line : ndarray, shape (n_delay, n_channels), or None
+        Ring buffer of the next ``n_delay`` output samples (the whole-sample
+        dead time); ``pos`` is the index of the next one out.
+    pos : int
+    pending : str or None
+        ``"rest"`` or ``"settled"`` while the first input sample is still
+        unknown; resolved by the first non-empty block.
+    n_channels : int
+    spent : bool
+        True once the state has been passed to ``process``: a state is used
+        once, then the returned state takes its place (its buffers may be
+        reused in place).
+    """
+
+    zi: np.ndarray
+    line: np.ndarray | None
+    pos: int
+    pending: str | None
+    n_channels: int
+    spent: bool = False
+
+
+def _sequence(step, C: np.ndarray, v: np.ndarray, n: int) -> np.ndarray:
+    """Outputs C M^k v for k = 0..n-1, where ``step(j)`` returns M^(2^j).
+
+    Doubling: the states for k < 2^j times M^(2^j) give the states for
+    2^j <= k < 2^(j+1), so only log2(n) matrix products are needed.
+
+    Returns shape (n, n_columns_of_v).
+    """
+    states = v[None, :, :]
+    j = 0
+    while states.shape[0] < n:
+        M = step(j)
+        states = np.concatenate([states, np.einsum("ab,tbk->tak", M, states)])
+        j += 1
+    return np.einsum("b,tbk->tk", C[0], states[:n])
+
+
+def _analog_sequence(A: np.ndarray, C: np.ndarray, T: float, v: np.ndarray, n: int) -> np.ndarray:
+    """Exact samples C e^{A k T} v, k = 0..n-1 (each power from its own expm)."""
+    if A.shape[0] == 0 or n <= 0:
+        return np.zeros((max(n, 0), v.shape[1] if v.ndim == 2 else 1))
+    return _sequence(lambda j: sla.expm(A * (T * 2.0**j)), C, v, n)
+
+
+def _companion(a: np.ndarray) -> tuple[np.ndarray, np.ndarray, float]:
+    """Scaled companion form of the monic ODE a: states y^(k)/w0^k.
+
+    a = [1, a_{n-1}, ..., a_0] (descending). With w_k = y^(k)/w0^k, w0 = |a_0|^(1/n)
+    (or 1), every entry is of the order of the coefficients of the frequency-
+    normalized ODE, which keeps the matrix exponential accurate.
+    Returns (A, C, w0); y = C w.
+    """
+    n = a.size - 1
+    a0 = abs(a[-1])
+    if a0 > 0:
+        w0 = a0 ** (1.0 / n)
+    else:
+        roots = np.abs(np.roots(a))
+        w0 = float(np.max(roots)) if roots.size and np.max(roots) > 0 else 1.0
+    A = np.zeros((n, n))
+    for k in range(n - 1):
+        A[k, k + 1] = w0
+    # y^(n) = -sum_k c_k y^(k), where the coefficient c_k of y^(k) is a[n - k].
+    for k in range(n):
+        A[n - 1, k] = -a[n - k] * w0 ** (k - (n - 1))
+    C = np.zeros((1, n))
+    C[0, 0] = 1.0
+    return A, C, w0
+
+
+def _zpk_to_sos(zd: np.ndarray, pd: np.ndarray, kd: float) -> np.ndarray:
+    """Second-order sections of k prod(z - zd)/prod(z - pd), including its pure delay.
+
+    scipy.signal.zpk2sos treats missing zeros as zeros at the origin, which
+    would advance the response by the relative degree r = len(pd) - len(zd).
+    Here those r zeros are added at the origin explicitly and then removed again
+    by shifting numerators one step (multiplying by z^-1) in sections whose
+    trailing numerator coefficients are exactly zero, so the sections keep the
+    model's true delay.
+    """
+    r = pd.size - zd.size
+    if r < 0:
+        raise DiscretizationError("the discrete model has more zeros than poles (not causal)")
+    sos = sig.zpk2sos(np.concatenate([zd, np.zeros(r)]), pd, kd)
+    for row in sos[::-1]:
+        while r > 0 and row[2] == 0.0 and np.any(row[:2] != 0.0):
+            row[1:3] = row[0:2].copy()
+            row[0] = 0.0
+            r -= 1
+    if r:
+        raise DiscretizationError(
+            "internal error: could not place the model's pure delay in its sections"
+        )
+    return sos
+
+
+class DiscreteSystem:
+    """A discrete model of an analog system H(s), ready to process sampled data.
+
+    Made by :func:`simwave.discrete.discretize` (or ``System.discretize``).
+
+    Attributes
+    ----------
+    rate : float
+        Sample rate in Hz.
+    method : str
+        Discretization method name.
+    sos : ndarray, shape (n_sections, 6), float64
+        Second-order sections in scipy.signal's layout [b0, b1, b2, 1, a1, a2];
+        they include a fractional dead time, not the whole-sample delay line.
+    zpk : tuple (zeros, poles, gain)
+        Zeros and poles in z (complex128) and the gain, of the same model as ``sos``.
+    delay_samples : float
+        Total dead time in samples (whole part: exact delay line; fraction:
+        in ``sos``, see ``options["fractional_delay_handling"]``).
+    warnings : list of str
+        Plain-text warnings about the model.
+    system : simwave.System
+        The analog model it came from.
+    options : dict
+        What was chosen, for provenance (method, rate, prewarp, dead time
+        split, gain-match frequency, impulse-invariance correction).
+    """
+
+    def __init__(
+        self,
+        *,
+        system,
+        rate: float,
+        method: str,
+        zpk: tuple[np.ndarray, np.ndarray, float],
+        delay_samples: float,
+        delay_line: int,
+        options: dict[str, Any],
+        warnings: list[str],
+        design,
+        hold_frac: float = 0.0,
+        thiran_d: float | None = None,
+    ) -> None:
+        zd, pd, kd = zpk
+        self.system = system
+        self.rate = float(rate)
+        self.method = method
+        self.zpk = (
+            np.asarray(zd, dtype=np.complex128),
+            np.asarray(pd, dtype=np.complex128),
+            float(kd),
+        )
+        self.delay_samples = float(delay_samples)
+        self.delay_line = int(delay_line)
+        self.options = options
+        self.warnings = list(warnings)
+        self._design = design
+        self._hold_frac = hold_frac
+        self._thiran_d = thiran_d
+        self.sos = self._make_sos()
+        self._cache: dict[str, Any] = {}
+
+    # ----------------------------------------------------------------- construction
+    def _make_sos(self) -> np.ndarray:
+        zd, pd, kd = self.zpk
+        if pd.size == 0 and zd.size == 0:
+            sos = np.array([[kd, 0.0, 0.0, 1.0, 0.0, 0.0]])
+        elif kd == 0.0:
+            sos = sig.zpk2sos(np.zeros(0), pd, 1.0)
+            sos[0, :3] = 0.0
+        else:
+            sos = _zpk_to_sos(zd, pd, kd)
+        return np.ascontiguousarray(sos, dtype=np.float64)
+
+    @property
+    def n_sections(self) -> int:
+        """Number of second-order sections."""
+        return int(self.sos.shape[0])
+
+    @property
+    def dc_gain(self) -> float:
+        """Gain of the discrete model at z = 1 (inf with a pole there)."""
+        b = self.sos[:, :3].sum(axis=1)
+        a = self.sos[:, 3:].sum(axis=1)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            g = float(np.prod(b / a))
+        return g if math.isfinite(g) else math.inf
+
+    def frequency_response(self, f_hz: Any, *, dead_time: bool = True) -> np.ndarray:
+        """Complex response of the discrete model at frequencies in Hz.
+
+        Evaluated from the second-order sections (what actually runs); with
+        ``dead_time`` the whole-sample delay line is included as e^{-j w n T}.
+        """
+        f = np.atleast_1d(np.asarray(f_hz, dtype=np.float64))
+        _, h = sig.sosfreqz(self.sos, worN=f, fs=self.rate)
+        if dead_time and self.delay_line:
+            h = h * np.exp(-2j * np.pi * f * self.delay_line / self.rate)
+        return h.reshape(np.shape(f_hz)) if np.ndim(f_hz) else h[0]
+
+    # ----------------------------------------------------------------- state fitting
+    def _horizon(self) -> int:
+        """Samples over which zero-input responses are fitted: until every mode has decayed."""
+        n_min = 8 * self.n_sections + 64
+        worst = n_min
+        for row in self.sos:
+            roots = np.roots(row[3:]) if row[5] != 0 or row[4] != 0 else np.zeros(0)
+            for r in np.abs(roots):
+                if r == 0:
+                    continue
+                if r < 1 - 1e-15:
+                    worst = max(worst, int(math.ceil(math.log(1e-17) / math.log(r))))
+                elif r > 1 + 1e-15:
+                    # Growing mode: stop before it has grown by 1e8.
+                    worst = max(worst, min(_MAX_HORIZON, int(math.log(1e8) / math.log(r))))
+                else:
+                    worst = _MAX_HORIZON
+        return int(min(max(worst, n_min), _MAX_HORIZON))
+
+    def _zir_basis(self, n: int) -> np.ndarray:
+        """Zero-input responses of the sections for each unit state, shape (n, 2 m)."""
+        m = self.n_sections
+        zi = np.zeros((m, 2, 2 * m))
+        for s in range(m):
+            zi[s, 0, 2 * s] = 1.0
+            zi[s, 1, 2 * s + 1] = 1.0
+        basis, _ = sig.sosfilt(self.sos, np.zeros((n, 2 * m)), axis=0, zi=zi)
+        return basis
+
+    def _fit_state(self, target: np.ndarray) -> np.ndarray:
+        """Section states whose zero-input response is ``target`` (shape (n, k)).
+
+        Least squares over the horizon; returns zi of shape (n_sections, 2, k).
+        Adds a warning when the fit is not exact to 1e-8 of the target's size.
+        """
+        n, k = target.shape
+        basis = self._zir_basis(n)
+        norms = np.linalg.norm(basis, axis=0)
+        norms[norms == 0] = 1.0
+        coef, *_ = sla.lstsq(basis / norms, target)
+        coef = coef / norms[:, None]
+        resid = np.max(np.abs(basis @ coef - target)) if n else 0.0
+        scale = np.max(np.abs(target)) if n else 0.0
+        if scale > 0 and resid > 1e-8 * scale:
+            note = (
+                f"an initial state is reproduced only to {resid / scale:.1e} of its size "
+                "(the model's modes cannot express it exactly)"
+            )
+            if note not in self.warnings:
+                self.warnings.append(note)
+        return coef.reshape(self.n_sections, 2, k)
+
+    def _rest_correction(self) -> np.ndarray | None:
+        """Section states (per unit first sample) that make the ramp-invariant start exact."""
+        des = self._design
+        if des.correction is None:
+            return None
+        if "rest" not in self._cache:
+            dy0, dxi1 = des.correction
+            A, _, C, _ = des.analog
+            n = self._horizon()
+            target = np.empty((n, 1))
+            target[0, 0] = dy0
+            target[1:, :] = _analog_sequence(A, C, 1.0 / self.rate, dxi1[:, None], n - 1)
+            self._cache["rest"] = self._fit_state(target)[:, :, 0]
+        return self._cache["rest"]
+
+    def _settled_state(self) -> np.ndarray:
+        """Section states (per unit input) of the steady state for a constant input."""
+        if "settled" not in self._cache:
+            den = self.sos[:, 3:].sum(axis=1)
+            if np.any(np.abs(den) <= 1e-14 * np.abs(self.sos[:, 3:]).sum(axis=1)):
+                raise DiscretizationError(
+                    "a settled start needs a finite DC gain, but this model has a pole at "
+                    "z = 1 (an integrator, s = 0); use initial='rest'"
+                )
+            self._cache["settled"] = sig.sosfilt_zi(self.sos)
+        return self._cache["settled"]
+
+    def _zero_input_response(self, ics: np.ndarray, n: int) -> np.ndarray:
+        """Zero-input response of the ODE from output initial conditions, n samples.
+
+        ``ics`` has shape (order, k). Exact analog samples for every method but
+        ``bilinear``, whose own zero-input response is the trapezoidal rule's
+        (x[k+1] = (I - A/K)^-1 (I + A/K) x[k], the state-space form of the
+        bilinear transform; Franklin, Powell & Workman, 3rd ed., sec. 6.3).
+        """
+        a = np.asarray(self.system.ode[0], dtype=np.float64)
+        a = a / a[0]
+        A, C, w0 = _companion(a)
+        order = a.size - 1
+        v = ics / (w0 ** np.arange(order))[:, None]
+        T = 1.0 / self.rate
+        if self.method == "bilinear":
+            K = self._design.bilinear_k
+            eye = np.eye(order)
+            P = np.linalg.solve(eye - A / K, eye + A / K)
+            powers = [P]
+
+            def step(j: int) -> np.ndarray:
+                while len(powers) <= j:
+                    powers.append(powers[-1] @ powers[-1])
+                return powers[j]
+
+            return _sequence(step, C, v, n)
+        return _analog_sequence(A, C, T, v, n)
+
+    # ----------------------------------------------------------------- initial state
+    def initial_state(
+        self,
+        first_sample: Any = None,
+        initial: str = "rest",
+        n_channels: int | None = None,
+        output_ics: Any = None,
+    ) -> FilterState:
+        """The filter state before the first sample.
+
+        Parameters
+        ----------
+        first_sample : array_like, shape (n_channels,), or scalar, optional
+            The first input sample per channel. ``settled`` needs it and the
+            ramp-invariant ``rest`` start uses it; when omitted it is taken from
+            the first non-empty block given to :meth:`process`.
+        initial : {"rest", "settled"}
+            ``rest``: at rest before the first sample (zero initial conditions,
+            the scipy.signal.lsim convention). ``settled``: in steady state for a
+            constant input equal to the first sample.
+        n_channels : int, optional
+            Number of channels when ``first_sample`` is not given (default 1).
+        output_ics : array_like, shape (order,) or (order, n_channels), optional
+            For a system entered as an ODE: y(0), y'(0), ..., y^(order-1)(0)
+            just before the input starts; their zero-input response is added.
+            Only with ``initial="rest"``.
+
+        Returns
+        -------
+        FilterState
+
+        Raises
+        ------
+        DiscretizationError
+            Unknown ``initial``, channel-count mismatch, ``settled`` with an
+            infinite DC gain, output initial conditions of the wrong length or
+            for a system not entered as an ODE.
+        """
+        if initial not in INITIAL_MODES:
+            raise DiscretizationError(
+                f"unknown initial state {initial!r}; known: {', '.join(INITIAL_MODES)} "
+                "(or output initial conditions for an ODE)"
+            )
+        u0 = None
+        if first_sample is not None:
+            try:
+                u0 = np.atleast_1d(np.asarray(first_sample, dtype=np.float64))
+            except (TypeError, ValueError):
+                raise DiscretizationError(
+                    f"first sample must be numbers, got {first_sample!r}"
+                ) from None
+            if u0.ndim != 1:
+                raise DiscretizationError(
+                    f"first sample must have shape (n_channels,), got shape {u0.shape}"
+                )
+        ics = None
+        if output_ics is not None:
+            ics = self._check_ics(output_ics, initial)
+        nch = self._channels(u0, n_channels, ics)
+        m = self.n_sections
+        zi = np.zeros((m, 2, nch))
+        line = np.zeros((self.delay_line, nch)) if self.delay_line else None
+        if ics is not None:
+            if ics.shape[1] == 1 and nch > 1:
+                ics = np.repeat(ics, nch, axis=1)
+            n_fit = self._horizon()
+            zir = self._zero_input_response(ics, self.delay_line + n_fit)
+            if line is not None:
+                line = np.array(zir[: self.delay_line])
+            zi = self._fit_state(np.ascontiguousarray(zir[self.delay_line :]))
+        if initial == "settled":
+            self._settled_state()  # fail early on an integrator
+        needs_first = initial == "settled" or self._design.correction is not None
+        state = FilterState(zi, line, 0, initial if needs_first else None, nch)
+        if needs_first and u0 is not None:
+            state.zi, state.line = self._resolve(initial, u0, zi, line)
+            state.pending = None
+        return state
+
+    def _check_ics(self, output_ics: Any, initial: str) -> np.ndarray:
+        if initial != "rest":
+            raise DiscretizationError(
+                "output initial conditions go with initial='rest' (their zero-input "
+                f"response is added to the zero-state response), not {initial!r}"
+            )
+        if self.system.ode is None:
+            raise DiscretizationError(
+                "output initial conditions need a system entered as an ODE "
+                "(y'' + ... = ...); this one was entered as a transfer function"
+            )
+        order = np.asarray(self.system.ode[0]).size - 1
+        try:
+            ics = np.asarray(output_ics, dtype=np.float64)
+        except (TypeError, ValueError):
+            raise DiscretizationError(
+                f"output initial conditions must be numbers, got {output_ics!r}"
+            ) from None
+        if ics.ndim == 0:
+            ics = ics[None]
+        if ics.ndim == 1:
+            ics = ics[:, None]
+        names = ["y(0)", "y'(0)", "y''(0)"][: min(order, 3)] + (["..."] if order > 3 else [])
+        names = ", ".join(names)
+        if ics.ndim != 2 or ics.shape[0] != order:
+            raise DiscretizationError(
+                f"output initial conditions: the ODE has order {order}, so it needs {order} "
+                f"values ({names}), got {ics.shape[0] if ics.ndim else 0}"
+            )
+        if not np.all(np.isfinite(ics)):
+            raise DiscretizationError("output initial conditions contain NaN or infinity")
+        return ics
+
+    @staticmethod
+    def _channels(u0, n_channels, ics) -> int:
+        counts = set()
+        if u0 is not None:
+            counts.add(int(u0.size))
+        if n_channels is not None:
+            if int(n_channels) < 1:
+                raise DiscretizationError(f"n_channels must be >= 1, got {n_channels!r}")
+            counts.add(int(n_channels))
+        if ics is not None and ics.shape[1] > 1:
+            counts.add(int(ics.shape[1]))
+        if len(counts) > 1:
+            raise DiscretizationError(f"channel counts disagree: {sorted(counts)}")
+        return counts.pop() if counts else 1
+
+    def _resolve(self, mode: str, u0: np.ndarray, zi: np.ndarray, line):
+        """Apply the first-sample part of the initial state (new arrays)."""
+        if u0.size != zi.shape[2]:
+            raise DiscretizationError(
+                f"first sample has {u0.size} channels, the state has {zi.shape[2]}"
+            )
+        if mode == "settled":
+            zi = self._settled_state()[:, :, None] * u0[None, None, :]
+            if line is not None:
+                y_ss, _ = sig.sosfilt(self.sos, u0[None, :], axis=0, zi=zi)
+                line = np.repeat(y_ss, self.delay_line, axis=0)
+            return zi, line
+        corr = self._rest_correction()
+        if corr is not None:
+            zi = zi + corr[:, :, None] * u0[None, None, :]
+        return zi, line
+
+    # ----------------------------------------------------------------- processing
+    def process(
+        self, block: Any, state: FilterState | None = None
+    ) -> tuple[np.ndarray, FilterState]:
+        """Filter one block of samples, carrying the state to the next call.
+
+        Parameters
+        ----------
+        block : array_like, shape (n_samples, n_channels) or (n_samples,)
+            Input samples (float64; a 1-D array is one channel). Any length,
+            including 0 and 1.
+        state : FilterState, optional
+            The state returned by the previous call, or from
+            :meth:`initial_state`; None starts at rest.
+
+        Returns
+        -------
+        out : ndarray, float64, same shape as ``block``
+        state : FilterState
+            Pass it to the next call. The state given here is used up.
+
+        Notes
+        -----
+        One ``scipy.signal.sosfilt`` call on the whole block (axis 0, all
+        channels) does the filtering; the whole-sample dead time is a ring
+        buffer. Splitting a signal into blocks of any sizes gives bit-for-bit
+        the same output as one call.
+        """
+        x = np.asarray(block, dtype=np.float64)
+        one_d = x.ndim == 1
+        if one_d:
+            x = x[:, None]
+        elif x.ndim != 2:
+            raise DiscretizationError(
+                f"a block must have shape (n_samples, n_channels) or (n_samples,), got {x.shape}"
+            )
+        if state is None:
+            state = self.initial_state(None, "rest", n_channels=x.shape[1])
+        if state.spent:
+            raise DiscretizationError(
+                "this filter state was already used; pass the state returned by the "
+                "last process() call"
+            )
+        nch = state.n_channels
+        if x.shape[1] != nch:
+            raise DiscretizationError(
+                f"block has {x.shape[1]} channels, the filter state has {nch}"
+            )
+        state.spent = True
+        n = x.shape[0]
+        zi, line, pos, pending = state.zi, state.line, state.pos, state.pending
+        if n == 0:
+            out = np.zeros((0, nch))
+            return (out[:, 0] if one_d else out), FilterState(zi, line, pos, pending, nch)
+        if pending is not None:
+            zi, line = self._resolve(pending, x[0], zi, line)
+        y, zf = sig.sosfilt(self.sos, x, axis=0, zi=zi)
+        d = self.delay_line
+        if d:
+            if n >= d:
+                out = np.empty((n, nch))
+                out[: d - pos] = line[pos:]
+                out[d - pos : d] = line[:pos]
+                out[d:] = y[: n - d]
+                line = np.array(y[n - d :])
+                pos = 0
+            else:
+                first = min(n, d - pos)
+                out = np.empty((n, nch))
+                out[:first] = line[pos : pos + first]
+                line[pos : pos + first] = y[:first]
+                rest = n - first
+                if rest:
+                    out[first:] = line[:rest]
+                    line[:rest] = y[first:]
+                pos = (pos + n) % d
+        else:
+            out = y
+        return (out[:, 0] if one_d else out), FilterState(zf, line, pos, None, nch)
+
+    def filter(self, data: Any, initial: str = "rest", output_ics: Any = None) -> np.ndarray:
+        """Filter a whole array at once; returns float64 of the same shape.
+
+        ``data`` is (n_samples, n_channels) or (n_samples,). See
+        :meth:`initial_state` for ``initial`` and ``output_ics``.
+        """
+        x = np.asarray(data, dtype=np.float64)
+        if x.ndim not in (1, 2):
+            raise DiscretizationError(
+                f"data must have shape (n_samples, n_channels) or (n_samples,), got {x.shape}"
+            )
+        nch = 1 if x.ndim == 1 else x.shape[1]
+        first = None
+        if x.shape[0]:
+            first = x[0] if x.ndim == 2 else x[:1]
+        state = self.initial_state(first, initial, n_channels=nch, output_ics=output_ics)
+        out, _ = self.process(x, state)
+        return out
+
+    # ----------------------------------------------------------------- accuracy
+    def accuracy(self, band_hz: Any = None, limit_db: float = 0.1):
+        """Accuracy report of this model against H(j 2 pi f).
+
+        Parameters
+        ----------
+        band_hz : float or (float, float), optional
+            Upper band edge or (low, high) in Hz. Default: up to 0.45 times the
+            rate, or up to where |H| has fallen 60 dB below its peak.
+        limit_db : float
+            Magnitude-error limit for the suggested sample rates (default 0.1 dB).
+
+        Returns
+        -------
+        AccuracyReport
+            See :mod:`simwave.discrete.accuracy`.
+        """
+        from simwave.discrete.accuracy import accuracy_report
+
+        return accuracy_report(self, band_hz=band_hz, limit_db=limit_db)
+
+    def __repr__(self) -> str:
+        return (
+            f"DiscreteSystem(method={self.method!r}, rate={self.rate:g} Hz, "
+            f"sections={self.n_sections}, delay_samples={self.delay_samples:g})"
+        )

@@ -1,0 +1,305 @@
+"""Numerical building blocks shared by the discretization methods.
+
+* a well-scaled continuous-time state-space realization of H(s) built from its
+  zeros and poles (no high-order polynomials),
+* the hold integrals of the matrix exponential (zero- and first-order hold),
+* zeros of a discrete state-space model from its system pencil,
+* the gain that makes a zeros/poles form match a state-space model.
+
+All arrays are float64 (complex128 for roots); frequencies inside are rad/s.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import scipy.linalg as sla
+
+__all__ = [
+    "analog_state_space",
+    "hold_integrals",
+    "pencil_zeros",
+    "matching_gain",
+    "tidy_roots",
+    "ss_response",
+]
+
+
+def tidy_roots(roots: np.ndarray, rtol: float = 1e-9) -> np.ndarray:
+    """Make computed roots of a real system exactly conjugate-symmetric.
+
+    Values whose imaginary part is below ``rtol`` times their magnitude become
+    real; the rest are paired with their nearest conjugate and both members are
+    replaced by the pair's mean (and its conjugate).
+
+    Returns a complex128 array.
+    """
+    roots = np.asarray(roots, dtype=np.complex128).ravel()
+    rest = list(roots)
+    out: list[complex] = []
+    while rest:
+        r = rest.pop(0)
+        if abs(r.imag) <= rtol * max(abs(r), 1e-300):
+            out.append(complex(r.real, 0.0))
+            continue
+        if not rest:
+            out.append(complex(r.real, 0.0))  # lone complex value: keep its real part
+            continue
+        j = int(np.argmin([abs(c - np.conj(r)) for c in rest]))
+        partner = rest.pop(j)
+        mean = 0.5 * (r + np.conj(partner))
+        out.extend([mean, np.conj(mean)])
+    return np.array(out, dtype=np.complex128)
+
+
+# --------------------------------------------------------------------------- analog realization
+def _split(roots: np.ndarray) -> tuple[list[complex], list[float]]:
+    """Complex roots with positive imaginary part (one per pair) and real roots."""
+    roots = tidy_roots(roots)
+    cplx = [complex(r) for r in roots if r.imag > 0]
+    real = sorted(float(r.real) for r in roots if r.imag == 0)
+    return cplx, real
+
+
+def _group_sections(
+    zeros: np.ndarray, poles: np.ndarray
+) -> list[tuple[list[complex], list[complex]]]:
+    """Group poles and zeros into first- and second-order sections (zeros, poles).
+
+    A complex pole pair is one second-order section; real poles are first-order
+    sections unless a complex zero pair needs a second-order home, in which case
+    two real poles are merged. Real zeros then fill free places, nearest pole first.
+    """
+    pc, pr = _split(poles)
+    zc, zr = _split(zeros)
+    sections: list[dict] = [{"p": [p, np.conj(p)], "z": []} for p in pc]
+    sections += [{"p": [complex(p)], "z": []} for p in pr]
+    for z in sorted(zc, key=lambda v: -abs(v)):
+        free2 = [s for s in sections if len(s["p"]) == 2 and not s["z"]]
+        if not free2:
+            firsts = [s for s in sections if len(s["p"]) == 1 and not s["z"]]
+            # Merge the two real poles nearest the zero pair into one section.
+            firsts.sort(key=lambda s: abs(s["p"][0] - z))
+            a, b = firsts[0], firsts[1]
+            sections.remove(b)
+            a["p"] = a["p"] + b["p"]
+            free2 = [a]
+        best = min(free2, key=lambda s: abs(s["p"][0] - z))
+        best["z"] = [z, np.conj(z)]
+    for z in sorted(zr, key=lambda v: -abs(v)):
+        free = [s for s in sections if len(s["z"]) < len(s["p"])]
+        best = min(free, key=lambda s: min(abs(p - z) for p in s["p"]))
+        best["z"].append(complex(z))
+    return [(s["z"], s["p"]) for s in sections]
+
+
+def _section_ss(zeros: list[complex], poles: list[complex], g: float):
+    """State space of g * prod(s - z) / prod(s - p) for one first/second-order section."""
+    num = g * np.real(np.poly(zeros)) if zeros else np.array([g])
+    n = len(poles)
+    num = np.concatenate([np.zeros(n + 1 - num.size), num])  # pad to degree n
+    if n == 1:
+        p = poles[0].real
+        d = num[0]
+        c = num[1] + d * p  # g(s - z)/(s - p) = d + (num1 + d p)/(s - p)
+        beta = math.sqrt(abs(c)) if c != 0 else 1.0
+        return (np.array([[p]]), np.array([[beta]]), np.array([[c / beta]]), np.array([[d]]))
+    den = np.real(np.poly(poles))  # [1, a1, a0]
+    d = num[0]
+    b1 = num[1] - d * den[1]
+    b0 = num[2] - d * den[2]
+    p1, p2 = poles
+    if abs(p1.imag) > 0:
+        # Modal (normal) form [[sigma, w], [-w, sigma]]: well conditioned for expm.
+        sig, w = p1.real, abs(p1.imag)
+        A = np.array([[sig, w], [-w, sig]])
+        c2 = b1
+        c1 = (b0 + b1 * sig) / w
+        beta = math.sqrt(math.hypot(c1, c2)) or 1.0
+        return A, np.array([[0.0], [beta]]), np.array([[c1 / beta, c2 / beta]]), np.array([[d]])
+    # Two real poles: two first-order stages in series, coupled by gamma.
+    r1, r2 = p1.real, p2.real
+    gamma = max(abs(r1), abs(r2)) or 1.0
+    A = np.array([[r1, 0.0], [gamma, r2]])
+    k1 = b1
+    k2 = (b0 + b1 * r2) / gamma
+    beta = math.sqrt(math.hypot(k1, k2)) or 1.0
+    return A, np.array([[beta], [0.0]]), np.array([[k1 / beta, k2 / beta]]), np.array([[d]])
+
+
+def _unit_magnitude(zeros: list[complex], poles: list[complex]) -> float:
+    """|prod(s - z)/prod(s - p)| at s = j*w_ref, w_ref a scale of the section (never 0 or inf)."""
+    scale = max([abs(p) for p in poles] + [abs(z) for z in zeros] + [0.0]) or 1.0
+    for factor in (1.0, 1.618, 0.618, 2.414, 0.3):
+        s = 1j * scale * factor
+        num = np.prod([s - z for z in zeros]) if zeros else 1.0
+        den = np.prod([s - p for p in poles]) if poles else 1.0
+        m = abs(num / den)
+        if m > 0 and math.isfinite(m):
+            return m
+    return 1.0
+
+
+def analog_state_space(zeros, poles, gain: float):
+    """Continuous-time (A, B, C, D) for H(s) = gain * prod(s - z)/prod(s - p).
+
+    Built as a series connection of first- and second-order sections, each in a
+    well-conditioned form (modal form for complex pairs), with the overall gain
+    spread evenly over the sections. A companion matrix of the whole
+    denominator would have entries of the size of w^n and ruin the matrix
+    exponential for high orders; this form keeps every entry of the order of
+    the pole magnitudes.
+
+    Returns
+    -------
+    A : ndarray, shape (n, n)
+    B : ndarray, shape (n, 1)
+    C : ndarray, shape (1, n)
+    D : ndarray, shape (1, 1)
+
+    References
+    ----------
+    .. [1] G. F. Franklin, J. D. Powell, M. L. Workman, *Digital Control of
+           Dynamic Systems*, 3rd ed., Addison-Wesley, 1998, ch. 4 (state-space
+           descriptions, series connection).
+    """
+    poles = np.asarray(poles, dtype=np.complex128).ravel()
+    zeros = np.asarray(zeros, dtype=np.complex128).ravel()
+    if poles.size == 0:
+        return np.zeros((0, 0)), np.zeros((0, 1)), np.zeros((1, 0)), np.array([[float(gain)]])
+    groups = _group_sections(zeros, poles)
+    mags = [_unit_magnitude(z, p) for z, p in groups]
+    m = len(groups)
+    total = abs(gain) * float(np.prod(mags))
+    share = total ** (1.0 / m) if total > 0 else 0.0
+    A = np.zeros((0, 0))
+    B = np.zeros((0, 1))
+    C = np.zeros((1, 0))
+    D = np.ones((1, 1))
+    for i, ((z, p), mag) in enumerate(zip(groups, mags, strict=True)):
+        g = share / mag
+        if i == 0 and gain < 0:
+            g = -g
+        Ai, Bi, Ci, Di = _section_ss(z, p, g)
+        n, k = A.shape[0], Ai.shape[0]
+        # Series connection: previous output y = C x + D u feeds this section.
+        A = np.block([[A, np.zeros((n, k))], [Bi @ C, Ai]])
+        B = np.vstack([B, Bi @ D])
+        C = np.hstack([Di @ C, Ci])
+        D = Di @ D
+    return A, B, C, D
+
+
+# --------------------------------------------------------------------------- hold integrals
+def hold_integrals(A: np.ndarray, B: np.ndarray, h: float):
+    """Matrix exponential and hold integrals over one interval of length h.
+
+    For an input that is linear over [0, h], from w0 at the start to w1 at the
+    end, x(h) = Phi x(0) + P0 w0 + P1 w1, with
+
+        Phi = e^{A h},  P1 = int_0^h e^{A(h - s)} B s/h ds,  P0 = int_0^h e^{A s} ds B - P1.
+
+    Computed with one exponential of the block matrix
+    [[A h, B h, 0], [0, 0, I], [0, 0, 0]] (Van Loan 1978), the same construction
+    scipy.signal.lsim uses for its first-order-hold interpolation.
+
+    References
+    ----------
+    .. [1] C. F. Van Loan, "Computing integrals involving the matrix
+           exponential", IEEE Trans. Automatic Control 23(3), 1978.
+    .. [2] Franklin, Powell & Workman, *Digital Control of Dynamic Systems*,
+           3rd ed., sec. 6.3 (zero- and triangle-hold equivalents).
+    """
+    n = A.shape[0]
+    if n == 0:
+        return np.zeros((0, 0)), np.zeros((0, 1)), np.zeros((0, 1))
+    M = np.zeros((n + 2, n + 2))
+    M[:n, :n] = A * h
+    M[:n, n : n + 1] = B * h
+    M[n, n + 1] = 1.0
+    E = sla.expm(M)
+    Phi = E[:n, :n]
+    Q = E[:n, n : n + 1]  # int_0^h e^{As} ds B (zero-order hold)
+    P1 = E[:n, n + 1 : n + 2]
+    return Phi, Q - P1, P1
+
+
+# --------------------------------------------------------------------------- zeros and gain
+def pencil_zeros(Phi, Gam, C, D) -> np.ndarray:
+    """Finite zeros of the discrete model (Phi, Gam, C, D) from its system pencil.
+
+    The zeros are the finite generalized eigenvalues of
+    ([[Phi, Gam], [C, D]], [[I, 0], [0, 0]]), computed with the QZ algorithm:
+    no characteristic polynomial is formed, so high orders stay accurate.
+
+    References
+    ----------
+    .. [1] A. Emami-Naeini, P. Van Dooren, "Computation of zeros of linear
+           multivariable systems", Automatica 18(4), 1982.
+    """
+    n = Phi.shape[0]
+    if n == 0:
+        return np.zeros(0, dtype=np.complex128)
+    # Zeros do not change when the input column is scaled and the output row is
+    # scaled; bring both to unit size so that QZ sees a well-scaled pencil (the
+    # hold equivalents of high relative degree have input terms of order T^r).
+    col = float(np.linalg.norm(np.vstack([Gam, D])))
+    Gam, D = (Gam / col, D / col) if col > 0 else (Gam, D)
+    row = float(np.linalg.norm(np.hstack([C, D])))
+    C, D = (C / row, D / row) if row > 0 else (C, D)
+    M = np.block([[Phi, Gam], [C, D]])
+    N = np.zeros_like(M)
+    N[:n, :n] = np.eye(n)
+    ab = sla.eigvals(M, N, homogeneous_eigvals=True)
+    alpha, beta = ab[0], ab[1]
+    scale = max(1.0, float(np.max(np.abs(M))))
+    finite = np.abs(beta) * 1e9 * scale > np.abs(alpha)
+    finite &= np.abs(beta) > 1e-13 * scale
+    z = alpha[finite] / beta[finite]
+    return tidy_roots(z)
+
+
+def ss_response(Phi, Gam, C, D, z: complex) -> complex:
+    """D + C (z I - Phi)^{-1} Gam at one complex point z."""
+    n = Phi.shape[0]
+    if n == 0:
+        return complex(D[0, 0])
+    v = np.linalg.solve(z * np.eye(n) - Phi, Gam[:, 0].astype(np.complex128))
+    return complex(D[0, 0] + C[0] @ v)
+
+
+def matching_gain(Phi, Gam, C, D, zeros, poles) -> float:
+    """Gain k so that k * prod(z - zeros)/prod(z - poles) equals the state-space model.
+
+    Matched on the unit circle where the model's response is largest (away
+    from poles and zeros): the zeros of hold equivalents with a high relative
+    degree are known only to a limited relative accuracy, and matching where
+    the signal is carried keeps the remaining error in the stopband.
+    """
+    zeros = np.asarray(zeros)
+    poles = np.asarray(poles)
+    roots = np.concatenate([zeros, poles]) if zeros.size + poles.size else np.array([0.0])
+    thetas = np.linspace(0.0, 1.0, 65) * np.pi
+    pts = np.exp(1j * thetas)
+    dist = np.min(np.abs(pts[:, None] - roots[None, :]), axis=1)
+    ok = dist > 1e-3 * max(1.0, float(np.max(dist)))
+    if not np.any(ok):
+        ok = dist >= np.max(dist)
+    pts = pts[ok]
+    h = ss_response_many(Phi, Gam, C, D, pts)
+    i = int(np.argmax(np.abs(h)))
+    unit = np.prod(pts[i] - zeros) / np.prod(pts[i] - poles)
+    return float(np.real(h[i] / unit))
+
+
+def ss_response_many(Phi, Gam, C, D, pts: np.ndarray) -> np.ndarray:
+    """D + C (z I - Phi)^{-1} Gam at many complex points z (one batched solve)."""
+    n = Phi.shape[0]
+    pts = np.asarray(pts, dtype=np.complex128)
+    if n == 0:
+        return np.full(pts.shape, complex(D[0, 0]))
+    mats = pts[:, None, None] * np.eye(n)[None] - Phi[None]
+    rhs = np.broadcast_to(Gam.astype(np.complex128), (pts.size, n, 1))
+    v = np.linalg.solve(mats, rhs)[:, :, 0]
+    return D[0, 0] + v @ C[0]
