@@ -436,11 +436,13 @@ class _Measurement:
         if kind == "sine":
             f = self.o.sine_hz or st.spectrum_peak_hz(y, self.rate)
             fit = st.fit_tones(y, t, [f], refine=self.o.sine_hz is None)
+        elif self.o.tones_hz is not None:
+            return  # a given tone list is measured as it is
         else:
-            tones = self.o.tones_hz or st.find_tones(y, self.rate)
+            tones = st.find_tones(y, self.rate)
             if not tones:
                 raise MeasurementError(f"channel {ch.name!r}: no tones found in its spectrum")
-            fit = st.fit_tones(y, t, tones, refine=self.o.tones_hz is None)
+            fit = st.fit_tones(y, t, tones, refine=True)
         if fit.explained < SINE_MIN_EXPLAINED:
             what = "sine" if kind == "sine" else "tones"
             raise MeasurementError(
@@ -849,6 +851,15 @@ class _Measurement:
             d["ramp_lag_s"] = e_end / sx
 
     # ------------------------------------------------------------------ sine / tones
+    def _estimate_frequency(self, y: np.ndarray, t: np.ndarray) -> float:
+        """Four-parameter fit from an interpolated FFT peak, then the same fit with the
+        harmonics tied to the fundamental, so distortion cannot pull the frequency."""
+        f0 = st.fit_tones(y, t, [st.spectrum_peak_hz(y, self.rate)], refine=True).tones[0]
+        hfit, _ = st.harmonic_fit(
+            y, t, f0.frequency_hz, self.rate, int(self.o.harmonics), refine=True
+        )
+        return hfit.tones[0].frequency_hz
+
     def _sine_section(self, ch: _Chan, ref: _Chan | None) -> dict:
         o = self.o
         y = ch.window
@@ -860,23 +871,14 @@ class _Measurement:
             reasons["frequency_hz"] = "steady-state window too short or flat for a sine fit"
             d["null_reasons"] = reasons
             return d
-        in_fit = None
         if o.sine_hz is not None:
-            f, fsrc = o.sine_hz, "given"
+            f, fsrc, d["fit"] = o.sine_hz, "given", "three-parameter"
         elif ref is not None and ref.window.size >= MIN_WINDOW and np.ptp(ref.window) > 0:
-            in_fit = st.fit_tones(
-                ref.window, t, [st.spectrum_peak_hz(ref.window, self.rate)], refine=True
-            )
-            f, fsrc = in_fit.tones[0].frequency_hz, "four-parameter fit of the input"
-        else:
-            f, fsrc = None, "four-parameter fit of this channel"
-        if f is None:
-            out_fit = st.fit_tones(y, t, [st.spectrum_peak_hz(y, self.rate)], refine=True)
-            f = out_fit.tones[0].frequency_hz
+            f, fsrc = self._estimate_frequency(ref.window, t), "four-parameter fit of the input"
             d["fit"] = "four-parameter"
         else:
-            out_fit = st.fit_tones(y, t, [f])
-            d["fit"] = "three-parameter"
+            f, fsrc = self._estimate_frequency(y, t), "four-parameter fit of this channel"
+            d["fit"] = "four-parameter"
         cycles = f * y.size / self.rate
         d["frequency_hz"] = f
         d["frequency_source"] = fsrc
@@ -890,25 +892,28 @@ class _Measurement:
                 )
             d["null_reasons"] = reasons
             return d
-        tone = out_fit.tones[0]
+        # IEEE Std 1057: the sine fit at the (given or estimated) frequency; its residual
+        # is the noise and distortion for SINAD
+        out_fit = st.fit_tones(y, t, [f])
+        # fundamental and harmonics fitted together: amplitude, phase and THD free of the
+        # harmonics' leakage into a fundamental-only fit
+        hfit, top = st.harmonic_fit(y, t, f, self.rate, int(o.harmonics))
+        tone = hfit.tones[0]
         d["amplitude"] = tone.amplitude
-        d["offset"] = out_fit.offset
+        d["offset"] = hfit.offset
         d["output_phase_deg"] = math.degrees(tone.phase_rad)
         d["fit_explains_pct"] = 100.0 * out_fit.explained
         if ref is not None:
-            in_fit = st.fit_tones(ref.window, t, [f])  # three-parameter, same f as the output
-            it = in_fit.tones[0]
+            it = st.harmonic_fit(ref.window, t, f, self.rate, int(o.harmonics))[0].tones[0]
             d["input_amplitude"] = it.amplitude
             d["input_phase_deg"] = math.degrees(it.phase_rad)
-            if it.amplitude == 0:
+            if it.amplitude == 0 or tone.amplitude == 0:
                 d["gain_db"] = d["phase_deg"] = None
-                reasons["gain_db"] = reasons["phase_deg"] = "input amplitude is 0"
+                reasons["gain_db"] = reasons["phase_deg"] = "zero fundamental amplitude"
             else:
                 ratio = tone.amplitude / it.amplitude
                 d["gain"] = ratio
-                d["gain_db"] = 20.0 * math.log10(ratio) if ratio > 0 else None
-                if ratio == 0:
-                    reasons["gain_db"] = "output fundamental is 0"
+                d["gain_db"] = 20.0 * math.log10(ratio)
                 d["phase_deg"] = math.degrees(st._wrap(tone.phase_rad - it.phase_rad))
         else:
             d["gain_db"] = d["phase_deg"] = None
@@ -926,13 +931,10 @@ class _Measurement:
                     f"{100 * out_fit.explained:.1f} % of its AC power"
                 )
         else:
-            hfit, top = st.harmonic_fit(y, t, f, self.rate, int(o.harmonics))
             d["harmonics_counted"] = top
             if top < 2:
                 d["thd_pct"] = d["thd_db"] = None
-                reasons["thd_pct"] = reasons["thd_db"] = (
-                    "no harmonic lies below the Nyquist frequency"
-                )
+                reasons["thd_pct"] = reasons["thd_db"] = "no harmonic below the Nyquist frequency"
             else:
                 thd = st.thd_ratio(hfit)
                 d["thd_pct"] = 100.0 * thd
@@ -944,7 +946,7 @@ class _Measurement:
                         "order": k + 1,
                         "frequency_hz": h.frequency_hz,
                         "amplitude": h.amplitude,
-                        "relative_pct": 100.0 * h.amplitude / hfit.tones[0].amplitude,
+                        "relative_pct": 100.0 * h.amplitude / tone.amplitude,
                     }
                     for k, h in enumerate(hfit.tones)
                     if k >= 1

@@ -165,12 +165,11 @@ def _half_mode(
     for _ in range(12):
         k = int(np.argmax(smooth))
         half_max = 0.5 * smooth[k]
-        lo = k
-        while lo > 0 and smooth[lo - 1] >= half_max:
-            lo -= 1
-        hi = k
-        while hi < smooth.size - 1 and smooth[hi + 1] >= half_max:
-            hi += 1
+        below = smooth < half_max
+        left = np.flatnonzero(below[:k])
+        right = np.flatnonzero(below[k:])
+        lo = int(left[-1]) + 1 if left.size else 0
+        hi = k + int(right[0]) - 1 if right.size else smooth.size - 1
         wl, xl = w[lo : hi + 1], x[lo : hi + 1]
         n_loc = float(wl.sum())
         if n_loc <= 1:

@@ -53,13 +53,118 @@ def _wrap(phase: float) -> float:
     return math.pi if w == -math.pi else w
 
 
+#: Rows per chunk when forming the normal equations: the design matrix is never held
+#: whole, so a long window costs time, not memory.
+_CHUNK = 32768
+
+
 def _design(tc: np.ndarray, w: np.ndarray) -> np.ndarray:
-    cols = []
-    for wk in w:
-        cols.append(np.cos(wk * tc))
-        cols.append(np.sin(wk * tc))
-    cols.append(np.ones_like(tc))
-    return np.column_stack(cols)
+    """Columns cos(w_k t), sin(w_k t) for each k, then a column of ones."""
+    ph = np.outer(tc, w)
+    d = np.empty((tc.size, 2 * w.size + 1))
+    d[:, 0:-1:2] = np.cos(ph)
+    d[:, 1:-1:2] = np.sin(ph)
+    d[:, -1] = 1.0
+    return d
+
+
+def _with_derivatives(
+    tc: np.ndarray, w: np.ndarray, mix: np.ndarray, coef: np.ndarray
+) -> np.ndarray:
+    """Design columns plus, per free frequency parameter j, the model's derivative
+    sum_k mix[k, j] t (-a_k sin(w_k t) + b_k cos(w_k t)) (IEEE Std 1057 four-parameter fit)."""
+    d = _design(tc, w)
+    a, b = coef[0 : 2 * w.size : 2], coef[1 : 2 * w.size : 2]
+    per_tone = tc[:, None] * (-a * d[:, 1:-1:2] + b * d[:, 0:-1:2])
+    return np.column_stack([d, per_tone @ mix])
+
+
+def _solve(y: np.ndarray, tc: np.ndarray, build) -> np.ndarray:
+    """Least squares by chunked normal equations with column scaling."""
+    g = None
+    rhs = None
+    for s0 in range(0, y.size, _CHUNK):
+        dm = build(tc[s0 : s0 + _CHUNK])
+        if g is None:
+            g = np.zeros((dm.shape[1], dm.shape[1]))
+            rhs = np.zeros(dm.shape[1])
+        g += dm.T @ dm
+        rhs += dm.T @ y[s0 : s0 + _CHUNK]
+    diag = np.diag(g)
+    scale = 1.0 / np.sqrt(np.where(diag > 0, diag, 1.0))
+    z, *_ = np.linalg.lstsq(g * scale[:, None] * scale[None, :], rhs * scale, rcond=None)
+    return z * scale
+
+
+def _rss(y: np.ndarray, tc: np.ndarray, w: np.ndarray, coef: np.ndarray) -> float:
+    total = 0.0
+    for s0 in range(0, y.size, _CHUNK):
+        r = y[s0 : s0 + _CHUNK] - _design(tc[s0 : s0 + _CHUNK], w) @ coef
+        total += float(np.dot(r, r))
+    return total
+
+
+def _fit_sinusoids(
+    y: np.ndarray, t: np.ndarray, theta: np.ndarray, mix: np.ndarray, refine: bool, max_iter: int
+) -> SineFit:
+    """Fit sum_k A_k cos(w_k t + phi_k) + C with w = mix @ theta (rad/s).
+
+    ``mix`` is the identity for independent tones and a column of harmonic orders for a
+    harmonic series. With ``refine`` the parameters ``theta`` are estimated by
+    Gauss-Newton steps on the model linearised in them, halving a step that would raise
+    the residual.
+    """
+    y = np.asarray(y, dtype=np.float64)
+    t = np.asarray(t, dtype=np.float64)
+    t_mid = 0.5 * (t[0] + t[-1])
+    tc = t - t_mid  # centred time keeps the columns well conditioned
+    theta = np.asarray(theta, dtype=np.float64)
+    w = mix @ theta
+    coef = _solve(y, tc, lambda tt: _design(tt, w))
+    rss = _rss(y, tc, w, coef)
+    span = max(float(t[-1] - t[0]), 1e-300)
+    iterations, converged = 0, not refine
+    n_tones = w.size
+    for it in range(1, (max_iter if refine else 0) + 1):
+        iterations = it
+        wc, cc = w, coef
+        sol = _solve(y, tc, lambda tt, wc=wc, cc=cc: _with_derivatives(tt, wc, mix, cc))
+        dtheta = sol[2 * n_tones + 1 :]
+        if np.all(np.abs(mix @ dtheta) * span <= 1e-10):
+            converged = True  # the step would move the phase at the ends by < 1e-10 rad
+            break
+        step, accepted = 1.0, False
+        for _ in range(8):
+            w_try = mix @ (theta + step * dtheta)
+            coef_try = _solve(y, tc, lambda tt, wt=w_try: _design(tt, wt))
+            rss_try = _rss(y, tc, w_try, coef_try)
+            if rss_try <= rss:
+                accepted = True
+                break
+            step *= 0.5
+        if not accepted:
+            converged = True  # no descent left: at the minimum to working precision
+            break
+        gained = rss - rss_try
+        theta, w, coef, rss = theta + step * dtheta, w_try, coef_try, rss_try
+        if gained <= 1e-13 * rss:
+            converged = True  # residual no longer falls: at the minimum to working precision
+            break
+    tones = []
+    for i in range(n_tones):
+        a, b = float(coef[2 * i]), float(coef[2 * i + 1])
+        # a cos(wt) + b sin(wt) = R cos(wt + phi), phi = atan2(-b, a); then move the
+        # phase origin from the window centre back to the record start.
+        phi = math.atan2(-b, a) - w[i] * t_mid
+        tones.append(ToneFit(float(w[i] / (2.0 * math.pi)), math.hypot(a, b), _wrap(phi)))
+    return SineFit(
+        tones,
+        float(coef[-1]),
+        math.sqrt(max(rss, 0.0) / y.size),
+        float(np.std(y)),
+        iterations,
+        converged,
+    )
 
 
 def fit_tones(
@@ -75,8 +180,7 @@ def fit_tones(
     With one frequency and ``refine=False`` this is the IEEE Std 1057 three-parameter
     (known-frequency) fit; with ``refine=True`` the frequencies are estimated too,
     which for one frequency is the four-parameter fit: Gauss-Newton iterations on the
-    model linearised in the frequency, started from ``freqs_hz``, with step halving
-    when a step would increase the residual.
+    model linearised in the frequency, started from ``freqs_hz``.
 
     Parameters
     ----------
@@ -100,60 +204,8 @@ def fit_tones(
     (iterative, frequency estimated) sine-wave fits. The multi-tone form is the
     same least squares with one cosine/sine pair per tone.
     """
-    y = np.asarray(y, dtype=np.float64)
-    t = np.asarray(t, dtype=np.float64)
-    t_mid = 0.5 * (t[0] + t[-1])
-    tc = t - t_mid  # centred time keeps the columns well conditioned
-    w = 2.0 * math.pi * np.asarray(freqs_hz, dtype=np.float64)
-    ac_rms = float(np.std(y))
-
-    def solve(wv: np.ndarray) -> tuple[np.ndarray, float]:
-        d = _design(tc, wv)
-        coef, *_ = np.linalg.lstsq(d, y, rcond=None)
-        r = y - d @ coef
-        return coef, float(np.dot(r, r))
-
-    coef, rss = solve(w)
-    iterations, converged = 0, not refine
-    if refine:
-        span = t[-1] - t[0]
-        for it in range(1, max_iter + 1):
-            iterations = it
-            k = w.size
-            a, b = coef[0 : 2 * k : 2], coef[1 : 2 * k : 2]
-            d = _design(tc, w)
-            # IEEE Std 1057 four-parameter fit: the extra column per tone is the
-            # derivative of the model with respect to its angular frequency.
-            extra = [tc * (-a[i] * np.sin(w[i] * tc) + b[i] * np.cos(w[i] * tc)) for i in range(k)]
-            d4 = np.column_stack([d, *extra])
-            sol, *_ = np.linalg.lstsq(d4, y, rcond=None)
-            dw = sol[2 * k + 1 :]
-            step, accepted = 1.0, False
-            for _ in range(30):
-                w_try = w + step * dw
-                coef_try, rss_try = solve(w_try)
-                if rss_try <= rss * (1.0 + 1e-15) + 1e-300:
-                    accepted = True
-                    break
-                step *= 0.5
-            if not accepted:
-                converged = True  # no descent direction left: at the minimum to precision
-                break
-            w, coef, rss = w_try, coef_try, rss_try
-            if np.all(np.abs(step * dw) * max(span, 1e-300) <= 1e-12):
-                converged = True
-                break
-    k = w.size
-    tones = []
-    for i in range(k):
-        a, b = float(coef[2 * i]), float(coef[2 * i + 1])
-        amp = math.hypot(a, b)
-        # a cos(wt) + b sin(wt) = R cos(wt + phi), phi = atan2(-b, a); then move the
-        # phase origin from the window centre back to the record start.
-        phi = math.atan2(-b, a) - w[i] * t_mid
-        tones.append(ToneFit(float(w[i] / (2.0 * math.pi)), amp, _wrap(phi)))
-    resid_rms = math.sqrt(max(rss, 0.0) / y.size)
-    return SineFit(tones, float(coef[-1]), resid_rms, ac_rms, iterations, converged)
+    theta = 2.0 * math.pi * np.asarray(freqs_hz, dtype=np.float64)
+    return _fit_sinusoids(y, t, theta, np.eye(theta.size), refine, max_iter)
 
 
 def spectrum_peak_hz(y: np.ndarray, rate: float) -> float:
@@ -198,10 +250,13 @@ def find_tones(
     Fourier transform", Proc. IEEE 66(1), 1978 (4-term Blackman-Harris window).
     """
     n = y.size
-    spec = np.abs(np.fft.rfft((y - np.mean(y)) * windows.blackmanharris(n, sym=False)))
+    win = windows.blackmanharris(n, sym=False)
+    # remove the window-weighted mean: it takes out the offset's main lobe exactly, where
+    # the plain mean of a non-integer number of cycles would leave a false low tone
+    spec = np.abs(np.fft.rfft((y - np.dot(win, y) / win.sum()) * win))
     if spec.size < 10:
         return []
-    spec[0] = 0.0
+    spec[:4] = 0.0  # inside the DC main lobe (+/-4 bins): no tone can be told from an offset
     db = 20.0 * np.log10(np.maximum(spec, 1e-300))
     top = float(db.max())
     floor = float(np.median(db[1:]))
@@ -220,14 +275,32 @@ def find_tones(
 
 
 def harmonic_fit(
-    y: np.ndarray, t: np.ndarray, f_hz: float, rate: float, n_harmonics: int
+    y: np.ndarray,
+    t: np.ndarray,
+    f_hz: float,
+    rate: float,
+    n_harmonics: int,
+    *,
+    refine: bool = False,
+    max_iter: int = 60,
 ) -> tuple[SineFit, int]:
     """Joint least-squares fit of the fundamental and harmonics 2..N below Nyquist.
 
-    Returns the fit and the highest harmonic order included.
+    With ``refine=True`` the fundamental frequency is estimated too, every harmonic
+    tied to k times it: the four-parameter fit extended to a harmonic series, so that
+    harmonics cannot bias the fundamental's frequency (as they do a sine-only fit on a
+    non-integer number of cycles).
+
+    Returns the fit (tones in harmonic order) and the highest harmonic order included.
+
+    References
+    ----------
+    IEEE Std 1057-2017, four-parameter sine fit; the harmonic columns are the same least
+    squares with one cosine/sine pair per harmonic.
     """
     orders = [k for k in range(1, n_harmonics + 1) if k * f_hz < 0.5 * rate]
-    fit = fit_tones(y, t, [k * f_hz for k in orders])
+    mix = np.asarray(orders, dtype=np.float64)[:, None]
+    fit = _fit_sinusoids(y, t, np.array([2.0 * math.pi * f_hz]), mix, refine, max_iter)
     return fit, orders[-1]
 
 
