@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import math
+import warnings
 from collections.abc import Callable, Sequence
 from typing import Any
 
@@ -85,7 +86,7 @@ def fmt_hz(x: Any) -> str:
     if isinstance(x, str) or not math.isfinite(x):
         return f"{x} Hz"
     for scale, prefix in _BIG:
-        if abs(x) >= scale:
+        if abs(float(fmt(x))) >= scale:  # after rounding: 999.99 Hz shows as 1 kHz
             return f"{fmt(x / scale)} {prefix}Hz"
     return f"{fmt(x)} Hz"
 
@@ -246,7 +247,11 @@ def inspect_command(system_spec, at_hz: str | None, as_json: bool) -> None:
 
     Zeros and poles are in rad/s, frequencies in Hz, times in seconds.
     """
-    system = resolve_system(system_spec)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        system = resolve_system(system_spec)
+    for w in caught:  # one plain line each; the table repeats them as notes
+        click.echo(f"Warning: {w.message}", err=True)
     freqs = parse_number_list(at_hz, "--at-hz") if at_hz is not None else None
     if freqs is not None:
         bad = [f for f in freqs if not f >= 0]

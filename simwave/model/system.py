@@ -125,6 +125,12 @@ def _label(sys: System) -> str:
     return sys.name or sys.text or "zeros/poles/gain"
 
 
+def _fmt_c(z: complex) -> str:
+    """A root for messages: '-1' for a real one, '-1+2j' for a complex one."""
+    z = complex(z)
+    return f"{z.real:.6g}" if z.imag == 0 else f"{z:.6g}"
+
+
 def _json_number(x: float) -> float | str:
     """Exact float for JSON; 'inf', '-inf' or 'nan' as strings (JSON has no such numbers)."""
     x = float(x)
@@ -206,8 +212,8 @@ class System:
         self.ode = ode
         for zero, pole in self.near_cancellations:
             warnings.warn(
-                f"zero {zero:.6g} and pole {pole:.6g} (nearly) cancel; simwave keeps both "
-                "(nothing is cancelled)",
+                f"zero {_fmt_c(zero)} and pole {_fmt_c(pole)} (nearly) cancel; simwave keeps "
+                "both (nothing is cancelled)",
                 PoleZeroCancellationWarning,
                 stacklevel=2,
             )
@@ -482,17 +488,12 @@ class System:
 
         h0 = self.dc_gain
         if not math.isfinite(h0):
-            return None, "DC gain is infinite (pole at s = 0), so -3 dB below DC is not defined"
+            return None, "DC gain is infinite (pole at s = 0)"
         if h0 == 0.0:
-            return None, (
-                "DC gain is 0 (high-pass- or band-pass-like), so -3 dB below DC is not defined"
-            )
+            return None, "DC gain is 0 (zero at s = 0)"
         target = abs(h0) * HALF_POWER
         if not abs(self.high_frequency_gain) < target:
-            return None, (
-                "not low-pass-like: the high-frequency gain is not 3.01 dB below the DC gain, "
-                "so -3 dB below DC is not a bandwidth"
-            )
+            return None, "not low-pass-like (high-frequency gain not 3.01 dB below DC gain)"
         roots = np.concatenate([self.zeros, self.poles]).astype(np.complex128)
         marks = np.abs(roots[roots != 0])
         marks = np.concatenate([marks, np.abs(roots.imag[roots.imag != 0])])
@@ -749,7 +750,7 @@ class System:
                 m[key] = _json_number(m[key])
             modes.append(m)
         notes = [
-            f"zero {z:.6g} and pole {p:.6g} (nearly) cancel; both are kept"
+            f"zero {_fmt_c(z)} and pole {_fmt_c(p)} (nearly) cancel; both are kept"
             for z, p in self.near_cancellations
         ]
         return {
