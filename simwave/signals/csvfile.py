@@ -39,7 +39,7 @@ TIME_NAMES = {"time", "t", "seconds", "sec", "s", "time_s", "timestamp", "elapse
 #: Time-column unit -> seconds.
 TIME_UNITS = {"": 1.0, "s": 1.0, "sec": 1.0, "ms": 1e-3, "us": 1e-6, "µs": 1e-6, "μs": 1e-6,
               "ns": 1e-9, "min": 60.0, "h": 3600.0}
-CHUNK_BYTES = 4 << 20
+CHUNK_BYTES = 1 << 20  # ~16k lines a chunk: bounded memory, loadtxt still efficient
 _NAME_UNIT = re.compile(r"^(.*?)\s*[\[(]\s*([^\])]*?)\s*[\])]\s*$")
 _DECIMAL_COMMA = re.compile(r"^\s*[+-]?\d*,\d+(?:[eE][+-]?\d+)?\s*$")
 _META = re.compile(r"^\s*#\s*simwave:\s*(\{.*\})\s*$")
