@@ -1,4 +1,8 @@
-"""Analog prototypes against handbook tables, closed-form definitions and their normalizations."""
+"""Analog prototypes against handbook tables, closed-form definitions and their normalizations.
+
+Chapter numbers of Williams & Taylor, Electronic Filter Design Handbook (4th ed.), are quoted
+from memory.
+"""
 
 from __future__ import annotations
 

@@ -118,7 +118,8 @@ def test_with_delay_adds_dead_time_and_records_it():
 @pytest.mark.parametrize("zeta", [0.05, 0.2, 0.5, 1 / math.sqrt(2), 0.9])
 @pytest.mark.parametrize("wn", [1.0, 2 * math.pi * 50, 2 * math.pi * 12e3])
 def test_second_order_natural_frequency_and_damping(zeta, wn):
-    # Ogata, Modern Control Engineering, 5th ed., sec. 5-3: wn^2/(s^2 + 2 zeta wn s + wn^2)
+    # Ogata, Modern Control Engineering, 5th ed., sec. 5-3 (section number from memory):
+    # wn^2/(s^2 + 2 zeta wn s + wn^2)
     # has poles -zeta wn +- j wd with wd = wn sqrt(1 - zeta^2).
     sys = System.from_coeffs([wn**2], [1.0, 2 * zeta * wn, wn**2])
     (mode,) = sys.pole_modes()
@@ -180,7 +181,7 @@ def test_first_order_time_constant_and_bandwidth():
     ],
 )
 def test_dc_and_high_frequency_gain(text, dc, hf):
-    # Final-value limits: H(0) and lim H(s) for s -> infinity (Ogata sec. 5-8).
+    # H(0) and lim H(s) for s -> infinity, worked by hand from each expression.
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", PoleZeroCancellationWarning)
         sys = System.parse(text)
@@ -211,8 +212,7 @@ def test_stability_classification(text, verdict):
 
 
 def test_bandwidth_not_defined_cases_say_why():
-    assert System.parse("1/s").bandwidth_3db() == (None, pytest.approx(
-        "DC gain is infinite (pole at s = 0), so -3 dB below DC is not defined"))
+    assert System.parse("1/s").bandwidth_3db() == (None, "DC gain is infinite (pole at s = 0)")
     bw, why = System.parse("s/(s+1)").bandwidth_3db()
     assert bw is None and "DC gain is 0" in why
     bw, why = System.parse("10(s+1)/(s+10)").bandwidth_3db()  # lead network: rises

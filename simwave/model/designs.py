@@ -27,7 +27,8 @@ References
 ----------
 .. [1] A. B. Williams and F. J. Taylor, *Electronic Filter Design Handbook*,
        4th ed., McGraw-Hill, 2006, ch. 2 (Butterworth, Chebyshev, elliptic and
-       Bessel low-pass prototypes) and ch. 5-7 (frequency transformations).
+       Bessel low-pass prototypes) and ch. 5-7 (frequency transformations);
+       chapter numbers quoted from memory.
 .. [2] W. E. Thomson, "Delay networks having maximally flat frequency
        characteristics", Proc. IEE 96(44), 1949 (the Bessel-Thomson filter).
 """

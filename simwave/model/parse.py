@@ -28,8 +28,10 @@ References
 ----------
 .. [1] N. Wirth, *Compiler Construction*, Addison-Wesley, 1996, ch. 3-4
        (recursive-descent parsing of an expression grammar).
-.. [2] K. Ogata, *Modern Control Engineering*, 5th ed., sec. 2-3: transfer
+.. [2] K. Ogata, *Modern Control Engineering*, 5th ed., sec. 2-2: transfer
        function of a linear differential equation with zero initial conditions.
+
+Chapter and section numbers in these references are quoted from memory.
 """
 
 from __future__ import annotations
@@ -781,7 +783,7 @@ def parse_system_text(text: str, expect: str | None = None) -> ParsedSystem:
 
     References
     ----------
-    .. [1] K. Ogata, *Modern Control Engineering*, 5th ed., sec. 2-3 (ODE to
+    .. [1] K. Ogata, *Modern Control Engineering*, 5th ed., sec. 2-2 (ODE to
            transfer function, zero initial conditions).
     """
     tree = parse_tree(text)

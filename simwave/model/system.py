@@ -170,7 +170,8 @@ class System:
     ----------
     .. [1] K. Ogata, *Modern Control Engineering*, 5th ed., Prentice Hall, 2010,
            ch. 2 (transfer functions, zeros and poles) and sec. 5-3 (second-order
-           systems: natural frequency and damping ratio).
+           systems: natural frequency and damping ratio). Chapter and section
+           numbers cited in this module are quoted from memory.
     """
 
     def __init__(
@@ -284,7 +285,7 @@ class System:
 
         References
         ----------
-        .. [1] K. Ogata, *Modern Control Engineering*, 5th ed., sec. 2-3.
+        .. [1] K. Ogata, *Modern Control Engineering*, 5th ed., sec. 2-2.
         """
         aa = _coefficients(a, "ODE output-side coefficients a")
         bb = _coefficients(b, "ODE input-side coefficients b")
@@ -379,7 +380,8 @@ class System:
         References
         ----------
         .. [1] L. B. Jackson, *Digital Filters and Signal Processing*, 3rd ed.,
-               Kluwer, 1996, sec. 11.3 (pairing poles and zeros into sections).
+               Kluwer, 1996, ch. 11 (pairing poles and zeros into sections; chapter
+               number from memory).
         """
         return _pair_sections(self.zeros, self.poles, self.gain)
 
@@ -480,9 +482,9 @@ class System:
 
         References
         ----------
-        .. [1] K. Ogata, *Modern Control Engineering*, 5th ed., sec. 8-2
-               (bandwidth: the frequency where the magnitude drops 3 dB below its
-               zero-frequency value).
+        .. [1] K. Ogata, *Modern Control Engineering*, 5th ed., ch. 7 (bandwidth:
+               the frequency where the magnitude drops 3 dB below its zero-frequency
+               value).
         """
         from scipy.optimize import brentq
 
