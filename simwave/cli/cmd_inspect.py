@@ -205,8 +205,9 @@ def format_system(d: dict[str, Any]) -> list[str]:
         lines += _table(header, rows)
     else:
         lines.append("poles (rad/s)   none")
+    width = max([len("poles (rad/s)")] + [len(r[0]) for r in rows]) + 3  # the poles column
     zeros = fmt_roots(d["zeros_rad_s"])
-    lines.append("zeros (rad/s)   " + (", ".join(zeros) if zeros else "none"))
+    lines.append(f"{'zeros (rad/s)':<{width}}" + (", ".join(zeros) if zeros else "none"))
     for note in d.get("notes", []):
         lines.append(f"note: {note}")
     return lines
