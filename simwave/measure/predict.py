@@ -47,6 +47,28 @@ class Predictions:
     discretization: dict | None = None
     null_reasons: dict = field(default_factory=dict)
 
+    discrete: Any = None
+    _band_errors: dict = field(default_factory=dict)
+
+    def tolerances(self, f_hz: float | None) -> tuple[float, float, float]:
+        """(gain dB, phase deg, DC gain dB) tolerances for a comparison at ``f_hz``
+        (None: DC and transient quantities): the discrete model's errors over the band up
+        to ``f_hz`` plus a measurement allowance, else the stated tolerances."""
+        if self.discretization is None:
+            return self.gain_tol_db, self.phase_tol_deg, self.gain_tol_db
+        if f_hz is None:
+            errs = self.discretization
+        else:
+            key = round(float(f_hz), 9)
+            if key not in self._band_errors:
+                self._band_errors[key] = _discrete_errors(self.discrete, f_hz)
+            errs = self._band_errors[key]
+        return (
+            errs["max_magnitude_error_db"] + FLOOR_DB,
+            errs["max_phase_error_deg"] + FLOOR_DEG,
+            errs["dc_gain_error_db"] + FLOOR_DB,
+        )
+
     def to_dict(self) -> dict:
         if not self.given:
             return {"system": None, "null_reasons": {"system": "no system given"}}
@@ -54,8 +76,6 @@ class Predictions:
             "system": self.text,
             "dc_gain": self.dc_gain,
             "second_order": None,
-            "gain_tolerance_db": self.gain_tol_db,
-            "phase_tolerance_deg": self.phase_tol_deg,
             "tolerance_source": self.tol_source,
         }
         if self.zeta is not None:
@@ -114,31 +134,31 @@ def _dominant_pair(system: Any) -> tuple[complex | None, str | None, str | None]
     return p, "dominant pole pair (approximate)", None
 
 
-def _discrete_errors(discrete: Any) -> dict | None:
-    """Largest magnitude (dB) and phase (deg) errors from a discrete model's accuracy report."""
+def _discrete_errors(discrete: Any, f_max_hz: float | None) -> dict | None:
+    """Largest magnitude (dB) and phase (deg) errors, and the DC gain error, from a discrete
+    model's accuracy report over (0, f_max_hz] (its default band when None)."""
     acc = getattr(discrete, "accuracy", None)
     if acc is None:
         return None
-    rep = acc()
+    rate = float(getattr(discrete, "rate", 0.0) or 0.0)
+    band = None
+    if f_max_hz is not None and rate > 0 and 0 < f_max_hz < 0.5 * rate:
+        band = min(f_max_hz * 1.0001, 0.5 * rate)
+    rep = acc(band_hz=band) if band is not None else acc()
     d = rep.to_dict() if hasattr(rep, "to_dict") else dict(rep)
-    mag = phase = None
-    for k, v in d.items():
-        if not isinstance(v, (int, float)) or isinstance(v, bool):
-            continue
-        lk = k.lower()
-        if "mag" in lk and "db" in lk and "freq" not in lk and mag is None:
-            mag = abs(float(v))
-        if "phase" in lk and "deg" in lk and "freq" not in lk and phase is None:
-            phase = abs(float(v))
-    if mag is None and phase is None:
-        return None
-    out = {
-        "method": getattr(discrete, "method", None),
-        "rate_hz": getattr(discrete, "rate", None),
-        "max_magnitude_error_db": mag,
-        "max_phase_error_deg": phase,
+
+    def num(key: str) -> float:
+        v = d.get(key)
+        return abs(float(v)) if isinstance(v, (int, float)) and math.isfinite(v) else 0.0
+
+    return {
+        "method": d.get("method", getattr(discrete, "method", None)),
+        "rate_hz": d.get("rate_hz", rate or None),
+        "band_hz": d.get("band_hz"),
+        "max_magnitude_error_db": num("max_mag_error_db") + num("dead_time_max_mag_error_db"),
+        "max_phase_error_deg": num("max_phase_error_deg") + num("dead_time_max_phase_error_deg"),
+        "dc_gain_error_db": num("dc_gain_error_db"),
     }
-    return out
 
 
 def _describe(system: Any) -> str:
@@ -158,16 +178,14 @@ def _describe(system: Any) -> str:
 def predictions_for(system: Any, o: Any, rate: float) -> Predictions:
     """Predictions of ``system`` (None: nothing predicted) and the tolerances to use."""
     p = Predictions(gain_tol_db=o.gain_tolerance_db, phase_tol_deg=o.phase_tolerance_deg)
+    p.discrete = o.discrete
     if o.discrete is not None:
-        errs = _discrete_errors(o.discrete)
+        errs = _discrete_errors(o.discrete, None)
         if errs is not None:
             p.discretization = errs
-            p.gain_tol_db = (errs["max_magnitude_error_db"] or 0.0) + FLOOR_DB
-            p.phase_tol_deg = (errs["max_phase_error_deg"] or 0.0) + FLOOR_DEG
             p.tol_source = (
-                "discretization error report (+{:g} dB, +{:g} deg for the measurement)".format(
-                    FLOOR_DB, FLOOR_DEG
-                )
+                f"discretization error report (+{FLOOR_DB:g} dB, +{FLOOR_DEG:g} deg for the "
+                "measurement)"
             )
     if system is None:
         return p
@@ -232,7 +250,7 @@ def compare_rows(ch: dict, p: Predictions, o: Any) -> list[dict]:
     g = ss.get("steady_state_gain")
     if isinstance(g, float) and p.dc_gain is not None:
         if p.dc_gain != 0:
-            rel_tol = 10 ** (p.gain_tol_db / 20.0) - 1.0
+            rel_tol = 10 ** (p.tolerances(None)[2] / 20.0) - 1.0
             diff = (g - p.dc_gain) / abs(p.dc_gain)
             rows.append(
                 _row(
@@ -271,6 +289,7 @@ def compare_rows(ch: dict, p: Predictions, o: Any) -> list[dict]:
 
 def _gain_phase_rows(label: str, d: dict, p: Predictions) -> list[dict]:
     rows = []
+    gain_tol, phase_tol, _ = p.tolerances(d.get("frequency_hz"))
     if d.get("gain_db") is not None:
         diff = d["gain_db"] - d["predicted_gain_db"]
         rows.append(
@@ -279,9 +298,9 @@ def _gain_phase_rows(label: str, d: dict, p: Predictions) -> list[dict]:
                 d["gain_db"],
                 d["predicted_gain_db"],
                 diff,
-                p.gain_tol_db,
+                gain_tol,
                 p.tol_source,
-                abs(diff) > p.gain_tol_db,
+                abs(diff) > gain_tol,
             )
         )
     if d.get("phase_deg") is not None:
@@ -292,9 +311,9 @@ def _gain_phase_rows(label: str, d: dict, p: Predictions) -> list[dict]:
                 d["phase_deg"],
                 d["predicted_phase_deg"],
                 diff,
-                p.phase_tol_deg,
+                phase_tol,
                 p.tol_source,
-                abs(diff) > p.phase_tol_deg,
+                abs(diff) > phase_tol,
             )
         )
     return rows
