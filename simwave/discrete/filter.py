@@ -36,9 +36,9 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-import scipy.linalg as sla
 import scipy.signal as sig
 
+from simwave.discrete.realization import expm
 from simwave.errors import DiscretizationError
 
 __all__ = ["DiscreteSystem", "FilterState", "INITIAL_MODES"]
@@ -102,7 +102,7 @@ def _analog_sequence(A: np.ndarray, C: np.ndarray, T: float, v: np.ndarray, n: i
     """Exact samples C e^{A k T} v, k = 0..n-1 (each power from its own expm)."""
     if A.shape[0] == 0 or n <= 0:
         return np.zeros((max(n, 0), v.shape[1] if v.ndim == 2 else 1))
-    return _sequence(lambda j: sla.expm(A * (T * 2.0**j)), C, v, n)
+    return _sequence(lambda j: expm(A * (T * 2.0**j)), C, v, n)
 
 
 def _companion(a: np.ndarray) -> tuple[np.ndarray, np.ndarray, float]:
@@ -296,7 +296,7 @@ class DiscreteSystem:
         basis = self._zir_basis(n)
         norms = np.linalg.norm(basis, axis=0)
         norms[norms == 0] = 1.0
-        coef, *_ = sla.lstsq(basis / norms, target)
+        coef, *_ = np.linalg.lstsq(basis / norms, target, rcond=None)
         coef = coef / norms[:, None]
         resid = np.max(np.abs(basis @ coef - target)) if n else 0.0
         scale = np.max(np.abs(target)) if n else 0.0

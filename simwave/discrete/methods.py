@@ -41,11 +41,11 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-import scipy.linalg as sla
 
 from simwave.errors import DiscretizationError
 from simwave.discrete.realization import (
     analog_state_space,
+    expm,
     hold_integrals,
     matching_gain,
     pencil_zeros,
@@ -171,7 +171,7 @@ def _impulse_design(A, B, C, D, T):
     at t = 0 (Jackson 2000), plus the direct term of a biproper H(s). So
     H(z) = (T C B / 2 + D) + C (z I - Phi)^{-1} (T Phi B), Phi = e^{A T}.
     """
-    Phi = sla.expm(A * T)
+    Phi = expm(A * T)
     Gam = T * (Phi @ B)
     Dd = D + T * (C @ B) / 2.0
     return Phi, Gam, C, Dd
@@ -426,10 +426,11 @@ def model_warnings(system, rate: float, method: str, des: Design, prewarp_hz) ->
             / np.prod(2j * np.pi * np.array([f_peak, nyq])[:, None] - poles[None, :], axis=1)
         )
         if h[0] > 0 and h[1] > 1e-2 * h[0]:
+            down = max(0.0, -20 * math.log10(h[1] / h[0]))
             out.append(
                 f"impulse invariance aliases: |H| at the Nyquist frequency ({nyq:.4g} Hz) is only "
-                f"{-20 * math.log10(h[1] / h[0]):.1f} dB below its peak (rule of thumb: want "
-                "40 dB or more); the discrete gain is off near Nyquist"
+                f"{down:.1f} dB below its peak (rule of thumb: want 40 dB or more); the "
+                "discrete gain is off near Nyquist"
             )
     return out
 

@@ -23,6 +23,7 @@ __all__ = [
     "matching_gain",
     "tidy_roots",
     "ss_response",
+    "expm",
 ]
 
 
@@ -191,6 +192,64 @@ def analog_state_space(zeros, poles, gain: float):
     return A, B, C, D
 
 
+# --------------------------------------------------------------------------- matrix exponential
+_PADE = {
+    3: (120.0, 60.0, 12.0, 1.0),
+    5: (30240.0, 15120.0, 3360.0, 420.0, 30.0, 1.0),
+    7: (17297280.0, 8648640.0, 1995840.0, 277200.0, 25200.0, 1512.0, 56.0, 1.0),
+    9: (17643225600.0, 8821612800.0, 2075673600.0, 302702400.0, 30270240.0, 2162160.0,
+        110880.0, 3960.0, 90.0, 1.0),
+    13: (64764752532480000.0, 32382376266240000.0, 7771770303897600.0, 1187353796428800.0,
+         129060195264000.0, 10559470521600.0, 670442572800.0, 33522128640.0, 1323241920.0,
+         40840800.0, 960960.0, 16380.0, 182.0, 1.0),
+}
+_THETA = {3: 1.495585217958292e-2, 5: 2.539398330063230e-1, 7: 9.504178996162932e-1,
+          9: 2.097847961257068e0, 13: 5.371920351148152e0}
+
+
+def expm(A: np.ndarray) -> np.ndarray:
+    """Matrix exponential by scaling and squaring with a Pade approximant.
+
+    Higham's algorithm (Pade degree 3, 5, 7, 9 or 13 chosen by the 1-norm,
+    scaling by 2^-s, s squarings), written with numpy so that the small
+    matrices used here do not pay a threaded-BLAS start-up for each call.
+
+    References
+    ----------
+    .. [1] N. J. Higham, "The scaling and squaring method for the matrix
+           exponential revisited", SIAM J. Matrix Anal. Appl. 26(4), 2005,
+           Algorithm 2.3 (the theta_m and Pade coefficients used here).
+    """
+    A = np.asarray(A, dtype=np.float64)
+    n = A.shape[0]
+    if n == 0:
+        return np.zeros((0, 0))
+    eye = np.eye(n)
+    norm = float(np.max(np.sum(np.abs(A), axis=0)))
+    for m in (3, 5, 7, 9):
+        if norm <= _THETA[m]:
+            b = _PADE[m]
+            powers = [eye, A @ A]
+            while len(powers) < (m + 1) // 2:
+                powers.append(powers[-1] @ powers[1])
+            U = A @ sum(b[2 * k + 1] * powers[k] for k in range((m + 1) // 2))
+            V = sum(b[2 * k] * powers[k] for k in range((m + 1) // 2))
+            return np.linalg.solve(V - U, V + U)
+    s = max(0, int(math.ceil(math.log2(norm / _THETA[13]))))
+    A = A / 2.0**s
+    b = _PADE[13]
+    A2 = A @ A
+    A4 = A2 @ A2
+    A6 = A2 @ A4
+    U = A @ (A6 @ (b[13] * A6 + b[11] * A4 + b[9] * A2) + b[7] * A6 + b[5] * A4 + b[3] * A2
+             + b[1] * eye)
+    V = A6 @ (b[12] * A6 + b[10] * A4 + b[8] * A2) + b[6] * A6 + b[4] * A4 + b[2] * A2 + b[0] * eye
+    R = np.linalg.solve(V - U, V + U)
+    for _ in range(s):
+        R = R @ R
+    return R
+
+
 # --------------------------------------------------------------------------- hold integrals
 def hold_integrals(A: np.ndarray, B: np.ndarray, h: float):
     """Matrix exponential and hold integrals over one interval of length h.
@@ -218,7 +277,7 @@ def hold_integrals(A: np.ndarray, B: np.ndarray, h: float):
     M[:n, :n] = A * h
     M[:n, n : n + 1] = B * h
     M[n, n + 1] = 1.0
-    E = sla.expm(M)
+    E = expm(M)
     Phi = E[:n, :n]
     Q = E[:n, n : n + 1]  # int_0^h e^{As} ds B (zero-order hold)
     P1 = E[:n, n + 1 : n + 2]
