@@ -10,5 +10,6 @@ from simwave.cli.app import main
 from simwave.cli import cmd_inspect  # noqa: F401,E402
 from simwave.cli import cmd_gen  # noqa: F401,E402
 from simwave.cli import cmd_info  # noqa: F401,E402
+from simwave.cli import cmd_measure  # noqa: F401,E402
 
 __all__ = ["main"]

@@ -69,6 +69,7 @@ class MeasureOptions:
     block_size: int = 65536
     max_window_samples: int = 4_000_000
     read_options: dict = field(default_factory=dict)
+    reference_read_options: dict | None = None
 
     @classmethod
     def from_kwargs(cls, opts: dict) -> "MeasureOptions":
@@ -241,7 +242,8 @@ def measure(
         accuracy report sets the tolerances); ``gain_tolerance_db`` (0.1),
         ``phase_tolerance_deg`` (1.0), ``overshoot_tolerance_pct`` (1.0 percentage point),
         ``time_tolerance_pct`` (2.0) for flagging measured-vs-predicted differences;
-        ``block_size``; ``max_window_samples``; ``read_options``.
+        ``block_size``; ``max_window_samples``; ``read_options`` (for a file ``waveform``,
+        and for a file ``reference`` unless ``reference_read_options`` is given).
 
     Returns
     -------
@@ -271,7 +273,14 @@ def measure(
                 "system text cannot be parsed in this installation; pass a System"
             )
         system = parse(system)
-    src = MeasureSource(waveform, reference, o.reference_channel, o.block_size, o.read_options)
+    src = MeasureSource(
+        waveform,
+        reference,
+        o.reference_channel,
+        o.block_size,
+        o.read_options,
+        o.reference_read_options,
+    )
     return _Measurement(src, system, o).run()
 
 

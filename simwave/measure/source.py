@@ -167,6 +167,8 @@ class MeasureSource:
         Samples per block.
     read_options : dict
         Passed to :func:`simwave.blocks` / :func:`simwave.read` for file inputs.
+    reference_read_options : dict, optional
+        The same for a reference file (default: ``read_options``).
     """
 
     def __init__(
@@ -176,6 +178,7 @@ class MeasureSource:
         reference_channel: Any,
         block_size: int,
         read_options: dict,
+        reference_read_options: dict | None = None,
     ) -> None:
         out = _Stream(waveform, "output waveform", block_size, read_options)
         ref: _Stream | None = None
@@ -195,7 +198,8 @@ class MeasureSource:
             ref = out.select([idx])
             out = out.select(rest)
         elif reference is not None:
-            ref = _Stream(reference, "reference waveform", block_size, read_options)
+            ref_opts = read_options if reference_read_options is None else reference_read_options
+            ref = _Stream(reference, "reference waveform", block_size, ref_opts)
             if ref.info.rate != out.info.rate:
                 raise MeasurementError(
                     f"{ref.info.label}: sample rate {ref.info.rate:g} Hz differs from the "

@@ -1,0 +1,122 @@
+"""``simwave measure``: transient and steady-state metrics of an existing waveform file."""
+
+from __future__ import annotations
+
+import os
+
+import click
+
+from simwave.cli.app import main
+from simwave.cli.input_options import input_options, read_options
+from simwave.cli.system_input import resolve_system, system_options
+from simwave.errors import MeasurementError
+from simwave.measure import measure
+from simwave.measure.core import SIGNAL_KINDS
+from simwave.model.parse import parse_number
+
+
+def _numbers(text: str, what: str) -> list[float]:
+    parts = [p.strip() for p in text.split(",")]
+    if not parts or any(p == "" for p in parts):
+        raise MeasurementError(f"{what}: write numbers separated by commas, got {text!r}")
+    return [parse_number(p, what) for p in parts]
+
+
+def _write_json(path: str, text: str, protect: list[str]) -> None:
+    from simwave.signals.atomic import AtomicTarget
+
+    target = AtomicTarget(path, protect=protect)
+    try:
+        with open(target.tmp, "w", encoding="utf-8") as fh:
+            fh.write(text + "\n")
+        target.commit()
+    except BaseException:
+        target.abort()
+        raise
+
+
+@main.command("measure")
+@click.argument("file")
+@input_options
+@system_options
+@click.option("--reference", "reference_file", metavar="FILE", default=None,
+              help="The input that produced FILE (same rate and length): gives the time "
+                   "origin for delay/peak/settling, steady-state gain and error, gain and phase.")
+@click.option("--input-channel", metavar="NAME|INDEX", default=None,
+              help="Take the input from this channel of FILE and measure the other channels.")
+@click.option("--levels", metavar="LOW,MID,HIGH", default="10,50,90", show_default=True,
+              help="Reference levels in percent of the amplitude (IEEE Std 181).")
+@click.option("--band", metavar="PCT", default="2", show_default=True,
+              help="Settling band: +/- this percent of the amplitude around the final level.")
+@click.option("--harmonics", metavar="N", type=click.IntRange(2, 1000), default=10,
+              show_default=True, help="THD counts harmonics 2..N.")
+@click.option("--sine-hz", metavar="HZ", default=None,
+              help="Sine frequency (three-parameter fit); default: estimated (four-parameter).")
+@click.option("--tones", metavar="F1,F2,...", default=None,
+              help="Tone frequencies of a multi-tone input; default: found in its spectrum.")
+@click.option("--steady-fraction", metavar="FRACTION", default="0.25", show_default=True,
+              help="Steady-state window: this last part of the record.")
+@click.option("--state-levels", type=click.Choice(["histogram", "minmax"]),
+              default="histogram", show_default=True,
+              help="How the two state levels are found (IEEE Std 181 histogram mode, or min/max).")
+@click.option("--kind", type=click.Choice(list(SIGNAL_KINDS)), default="auto", show_default=True,
+              help="What the signal is; auto decides from the input (else the output).")
+@click.option("--method", metavar="METHOD", default=None,
+              help="With a system: the discretization method that made FILE; its accuracy "
+                   "report at FILE's rate sets the measured-vs-predicted tolerances.")
+@click.option("--json", "as_json", is_flag=True, help="Print the result as JSON.")
+@click.option("-o", "--output", "out_path", metavar="FILE.json", default=None,
+              help="Also write the JSON result to this file.")
+def measure_cmd(file, system_spec, reference_file, input_channel, levels, band, harmonics,
+                sine_hz, tones, steady_fraction, state_levels, kind, method, as_json,
+                out_path, **kwargs):
+    """Measure FILE: transitions (rise/fall time, overshoot, undershoot, preshoot, peak,
+    settling; per pulse for pulse trains), steady state (final value, gain, error, mean,
+    RMS, ripple), sine and multi-tone gain and phase, THD and SINAD; and, with a system,
+    what H(s) predicts beside each.
+
+    Terms and methods follow IEEE Std 181-2011 (pulses and transitions) and IEEE Std
+    1057-2017 (sine fits); the file is read in blocks, so any length works. Results are
+    a design aid: for medical, protection or other safety-related signal chains follow
+    the applicable standards and licensed engineering practice.
+    """
+    ropts = read_options(kwargs)
+    system = resolve_system(system_spec, required=False)
+    opts = {
+        "reference_levels_pct": _numbers(levels, "--levels"),
+        "settling_band_pct": parse_number(band, "--band"),
+        "harmonics": harmonics,
+        "steady_fraction": parse_number(steady_fraction, "--steady-fraction"),
+        "state_level_method": state_levels,
+        "signal_kind": kind,
+        "read_options": ropts,
+    }
+    if sine_hz is not None:
+        opts["sine_hz"] = parse_number(sine_hz, "--sine-hz")
+    if tones is not None:
+        opts["tones_hz"] = _numbers(tones, "--tones")
+    if input_channel is not None:
+        opts["reference_channel"] = input_channel
+    if method is not None:
+        if system is None:
+            raise MeasurementError("--method needs a system (-s/--system or another system option)")
+        import simwave
+        from simwave.discrete import discretize
+
+        rate = simwave.info(file, **ropts).to_dict()["rate"]
+        opts["discrete"] = discretize(system, rate, method)
+    if out_path is not None:
+        from simwave.signals.atomic import check_output_path
+
+        check_output_path(out_path, protect=[file, reference_file])
+    result = measure(file, reference=reference_file, system=system, **opts)
+    text = result.to_json()
+    if out_path is not None:
+        _write_json(os.fspath(out_path), text, [file, reference_file])
+    if as_json:
+        click.echo(text)
+    else:
+        click.echo(result.format())
+
+
+__all__ = ["measure_cmd"]
