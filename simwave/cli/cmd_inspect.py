@@ -19,7 +19,14 @@ import numpy as np
 
 from simwave import __version__
 from simwave.cli.app import main
-from simwave.cli.system_input import parse_number_list, resolve_system, system_options
+from simwave.cli.system_input import (
+    parse_number,
+    parse_number_list,
+    resolve_system,
+    system_options,
+)
+from simwave.discrete import METHODS
+from simwave.discrete.accuracy import discrete_section, format_discrete_section
 from simwave.errors import SimwaveError
 from simwave.model.system import System
 
@@ -224,6 +231,7 @@ def format_frequency_response(points: list[dict[str, Any]]) -> list[str]:
 SECTION_FORMATTERS: list[tuple[str, Callable[[Any], list[str]]]] = [
     ("system", format_system),
     ("frequency_response", format_frequency_response),
+    ("discrete", format_discrete_section),
 ]
 
 
@@ -242,11 +250,29 @@ def format_report(report: dict[str, Any]) -> str:
 @system_options
 @click.option("--at-hz", "at_hz", metavar="LIST", default=None,
               help="Also list gain (dB) and phase (deg) at these frequencies in Hz, e.g. '50, 1k'.")
+@click.option("--rate", metavar="HZ", default=None,
+              help="Also discretize at this sample rate and report the model's error against "
+                   "H(j2*pi*f), with the lowest rate per method for --error-limit.")
+@click.option("-m", "--method", type=click.Choice(METHODS), default=None,
+              help="Discretization method for --rate (default ramp-invariant: exact for inputs "
+                   "linear between samples).")
+@click.option("--prewarp", metavar="HZ", default=None,
+              help="bilinear only: frequency where the discrete response equals H(j2*pi*f).")
+@click.option("--match-frequency", metavar="HZ", default=None,
+              help="matched-z only: frequency where the gain is matched when H(0) is 0 or "
+                   "infinite.")
+@click.option("--band", metavar="HZ|LO,HI", default=None,
+              help="Band for the error report (default: up to 0.45 x rate or 60 dB down).")
+@click.option("--error-limit", metavar="DB", default=None,
+              help="Magnitude-error limit for the suggested sample rates (default 0.1 dB).")
 @click.option("--json", "as_json", is_flag=True, help="Print the report as JSON (exact numbers).")
-def inspect_command(system_spec, at_hz: str | None, as_json: bool) -> None:
+def inspect_command(system_spec, at_hz: str | None, rate: str | None, method: str | None,
+                    prewarp: str | None, match_frequency: str | None, band: str | None,
+                    error_limit: str | None, as_json: bool) -> None:
     """Show what a system H(s) is: poles, zeros, gains, stability, modes, bandwidth.
 
-    Zeros and poles are in rad/s, frequencies in Hz, times in seconds.
+    Zeros and poles are in rad/s, frequencies in Hz, times in seconds. With
+    --rate, also the discrete model's accuracy at that rate.
     """
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
@@ -259,4 +285,21 @@ def inspect_command(system_spec, at_hz: str | None, as_json: bool) -> None:
         if bad:
             raise SimwaveError(f"--at-hz: frequencies must be >= 0 Hz, got {bad[0]:g}")
     report = build_report(system, at_hz=freqs)
+    if rate is not None:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            report["discrete"] = discrete_section(
+                system, parse_number(rate, "--rate"), method,
+                prewarp_hz=parse_number(prewarp, "--prewarp") if prewarp else None,
+                match_hz=(parse_number(match_frequency, "--match-frequency")
+                          if match_frequency else None),
+                band_hz=parse_number_list(band, "--band") if band else None,
+                limit_db=parse_number(error_limit, "--error-limit") if error_limit else 0.1,
+            )
+        for w in caught:  # the report lists them again
+            click.echo(f"Warning: {w.message}", err=True)
+    elif any(v is not None for v in (method, prewarp, match_frequency, band, error_limit)):
+        raise SimwaveError(
+            "--method, --prewarp, --match-frequency, --band and --error-limit need --rate"
+        )
     click.echo(json.dumps(report, indent=2) if as_json else format_report(report))

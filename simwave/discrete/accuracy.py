@@ -16,7 +16,7 @@ says nothing about the output.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, fields
 from typing import Any
 
 import numpy as np
@@ -140,6 +140,15 @@ class AccuracyReport:
     warnings: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
 
+    @classmethod
+    def from_dict(cls, d: dict[str, Any]) -> AccuracyReport:
+        """The report back from :meth:`to_dict` output (e.g. to format it)."""
+        kw = {f.name: d.get(f.name) for f in fields(cls)}
+        kw["band_hz"] = (float(d["band_hz"][0]), float(d["band_hz"][1]))
+        kw["warnings"] = list(d.get("warnings") or [])
+        kw["notes"] = list(d.get("notes") or [])
+        return cls(**kw)
+
     def to_dict(self) -> dict[str, Any]:
         """Plain JSON-friendly dict (floats, strings, lists, None)."""
         return {
@@ -168,7 +177,7 @@ class AccuracyReport:
         dc = (
             "n/a (H(0) is 0 or infinite)"
             if self.dc_gain_error_db is None
-            else f"{self.dc_gain_error_db:+.4g} dB"
+            else _db(self.dc_gain_error_db)
         )
         mag_at = _hz(self.max_mag_error_at_hz)
         ph_at = _hz(self.max_phase_error_at_hz)
@@ -176,8 +185,8 @@ class AccuracyReport:
             f"Discrete model: {self.method} at {_hz(self.rate_hz)}",
             f"  band checked            {_hz(lo)} to {_hz(hi)} "
             "(where |H| is within 60 dB of its peak)",
-            f"  largest magnitude error {self.max_mag_error_db:+.4g} dB at {mag_at}",
-            f"  largest phase error     {self.max_phase_error_deg:+.4g} deg at {ph_at}",
+            f"  largest magnitude error {_db(self.max_mag_error_db)} at {mag_at}",
+            f"  largest phase error     {_deg(self.max_phase_error_deg)} at {ph_at}",
             f"  DC gain error           {dc}",
         ]
         if self.dead_time_s > 0:
@@ -186,8 +195,8 @@ class AccuracyReport:
                 f"{self.dead_time_samples:.6g} samples; {self.dead_time_handling}"
             )
             lines.append(
-                f"  dead-time error         {self.dead_time_max_phase_error_deg:.3g} deg, "
-                f"{self.dead_time_max_mag_error_db:.3g} dB (largest in the band)"
+                f"  dead-time error         {_deg(self.dead_time_max_phase_error_deg)}, "
+                f"{_db(self.dead_time_max_mag_error_db)} (largest in the band)"
             )
         lines.append(
             f"  lowest rate for |magnitude error| <= {self.error_limit_db:g} dB in this band:"
@@ -201,6 +210,15 @@ class AccuracyReport:
         for w in self.warnings:
             lines.append(f"  warning: {w}")
         return "\n".join(lines)
+
+
+def _db(x: float) -> str:
+    """dB to 4 significant digits; below 1e-9 dB (round-off) shown as 0."""
+    return "0 dB" if abs(x) < 1e-9 else f"{x:+.4g} dB"
+
+
+def _deg(x: float) -> str:
+    return "0 deg" if abs(x) < 1e-9 else f"{x:+.4g} deg"
 
 
 def _hz(f: float) -> str:
@@ -403,3 +421,38 @@ def accuracy_report(
 
 
 __all__ += ["default_band", "suggest_rates", "peak_frequency"]
+
+
+def discrete_section(
+    system,
+    rate_hz: float,
+    method: str | None = None,
+    *,
+    prewarp_hz: float | None = None,
+    match_hz: float | None = None,
+    band_hz: Any = None,
+    limit_db: float = DEFAULT_LIMIT_DB,
+) -> dict[str, Any]:
+    """Discretize and report, as one JSON-ready dict (the ``inspect --rate`` section).
+
+    The accuracy report's fields (:meth:`AccuracyReport.to_dict`) plus
+    ``sections`` (number of second-order sections) and ``delay_line_samples``.
+    """
+    from simwave.discrete.methods import DEFAULT_METHOD, discretize
+
+    model = discretize(system, rate_hz, method or DEFAULT_METHOD,
+                       prewarp_hz=prewarp_hz, match_hz=match_hz)
+    out = model.accuracy(band_hz=band_hz, limit_db=limit_db).to_dict()
+    out["sections"] = model.n_sections
+    out["delay_line_samples"] = model.delay_line
+    return out
+
+
+def format_discrete_section(d: dict[str, Any]) -> list[str]:
+    """Text lines for :func:`discrete_section` output."""
+    lines = AccuracyReport.from_dict(d).format().splitlines()
+    lines.insert(1, f"  second-order sections   {d.get('sections')}")
+    return lines
+
+
+__all__ += ["discrete_section", "format_discrete_section"]

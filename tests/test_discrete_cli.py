@@ -1,0 +1,61 @@
+"""``simwave inspect --rate``: the discrete model's accuracy on the command line."""
+
+from __future__ import annotations
+
+import json
+import math
+
+from click.testing import CliRunner
+
+from simwave.cli import main
+from simwave.discrete import METHODS
+
+BUTTER4 = "butterworth lowpass order=4 cutoff=1k"
+
+
+def run(*args: str):
+    return CliRunner().invoke(main, ["inspect", *args])
+
+
+def test_inspect_rate_prints_accuracy_table():
+    result = run("--design", BUTTER4, "--rate", "48k", "-m", "step-invariant")
+    assert result.exit_code == 0, result.output
+    out = result.stdout
+    assert "Discrete model: step-invariant at 48 kHz" in out
+    assert "largest magnitude error" in out and "largest phase error" in out
+    for name in METHODS:
+        assert name in out
+
+
+def test_inspect_rate_json_matches_api():
+    result = run("--design", BUTTER4, "--rate", "48000", "--json")
+    assert result.exit_code == 0, result.output
+    d = json.loads(result.stdout)["discrete"]
+    assert d["method"] == "ramp-invariant"  # the default
+    assert d["rate_hz"] == 48000.0 and d["sections"] == 2
+    # Half-sample-free: the ramp-invariant phase error is tiny, its magnitude error is not.
+    assert abs(d["max_phase_error_deg"]) < 0.01
+    assert -1.0 < d["max_mag_error_db"] < -0.1
+    assert all(math.isfinite(v) for v in d["suggested_rate_hz"].values())
+
+
+def test_inspect_dead_time_and_prewarp():
+    result = run("-s", "100/(s+100)", "--dead-time", "2.5m", "--rate", "1k", "-m", "bilinear",
+                 "--prewarp", "50")
+    assert result.exit_code == 0, result.output
+    assert "Thiran" in result.stdout and "prewarped at 50 Hz" in result.stdout
+
+
+def test_inspect_rate_bad_input_exit_2():
+    for args in (["--rate", "0"], ["--rate", "1k", "--prewarp", "600", "-m", "bilinear"],
+                 ["--method", "bilinear"], ["--rate", "1k", "--band", "900"],
+                 ["--rate", "1k", "-m", "tustin"]):
+        result = run("-s", "1/(s+1)", *args)
+        assert result.exit_code == 2, (args, result.output)
+        assert "Traceback" not in result.output
+
+
+def test_inspect_unstable_system_warns_and_reports():
+    result = run("-s", "1/(s-2)", "--rate", "100")
+    assert result.exit_code == 0, result.output
+    assert "unstable" in result.stderr
