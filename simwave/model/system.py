@@ -778,6 +778,16 @@ class System:
             "notes": notes,
         }
 
+    def discretize(self, rate_hz: float, method: str = "ramp-invariant", **options: Any):
+        """Discrete model at ``rate_hz`` by a published method.
+
+        See :func:`simwave.discrete.discretize` for the methods and options
+        (``prewarp_hz``, ``delay_s``, ``match_hz``); ``ramp-invariant`` by default.
+        """
+        from simwave.discrete import discretize
+
+        return discretize(self, rate_hz, method, **options)
+
     def __repr__(self) -> str:
         label = self.text or (
             f"zeros={list(self.zeros)}, poles={list(self.poles)}, gain={self.gain:g}"
