@@ -118,7 +118,7 @@ def test_report_is_json_friendly_and_readable():
     d = json.loads(json.dumps(report.to_dict()))
     for key in ("max_mag_error_db", "max_mag_error_at_hz", "max_phase_error_deg",
                 "max_phase_error_at_hz", "dc_gain_error_db", "band_hz", "warnings",
-                "suggested_rate_hz", "dead_time_samples", "error_limit_db"):
+                "suggested_rate_hz", "dead_time_samples", "error_limit_db", "band_low_hz"):
         assert key in d
     assert set(d["suggested_rate_hz"]) == set(METHODS)
     text = report.format()

@@ -144,7 +144,10 @@ class AccuracyReport:
     def from_dict(cls, d: dict[str, Any]) -> AccuracyReport:
         """The report back from :meth:`to_dict` output (e.g. to format it)."""
         kw = {f.name: d.get(f.name) for f in fields(cls)}
-        kw["band_hz"] = (float(d["band_hz"][0]), float(d["band_hz"][1]))
+        band = d["band_hz"]
+        if np.ndim(band) == 0:
+            band = (d.get("band_low_hz", 0.0), band)
+        kw["band_hz"] = (float(band[0]), float(band[1]))
         kw["warnings"] = list(d.get("warnings") or [])
         kw["notes"] = list(d.get("notes") or [])
         return cls(**kw)
@@ -154,7 +157,8 @@ class AccuracyReport:
         return {
             "method": self.method,
             "rate_hz": self.rate_hz,
-            "band_hz": [self.band_hz[0], self.band_hz[1]],
+            "band_hz": self.band_hz[1],
+            "band_low_hz": self.band_hz[0],
             "max_mag_error_db": self.max_mag_error_db,
             "max_mag_error_at_hz": self.max_mag_error_at_hz,
             "max_phase_error_deg": self.max_phase_error_deg,
