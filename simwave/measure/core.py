@@ -67,7 +67,7 @@ class MeasureOptions:
     overshoot_tolerance_pct: float = 1.0
     time_tolerance_pct: float = 2.0
     block_size: int = 65536
-    max_window_samples: int = 4_000_000
+    max_window_samples: int = 1_000_000
     read_options: dict = field(default_factory=dict)
     reference_read_options: dict | None = None
 
