@@ -183,6 +183,19 @@ class DiscreteSystem:
     options : dict
         What was chosen, for provenance (method, rate, prewarp, dead time
         split, gain-match frequency, impulse-invariance correction).
+
+    Notes
+    -----
+    Processing is one ``scipy.signal.sosfilt`` call per block, so the
+    second-order sections carry the state; initial states are found as
+    described in the module notes.
+
+    References
+    ----------
+    .. [1] A. V. Oppenheim, R. W. Schafer, *Discrete-Time Signal Processing*,
+           3rd ed., sec. 6.3.3 (cascade form: second-order sections) and 7.2.
+    .. [2] G. F. Franklin, J. D. Powell, M. L. Workman, *Digital Control of
+           Dynamic Systems*, 3rd ed., ch. 6 (hold equivalents, initial states).
     """
 
     def __init__(
