@@ -193,7 +193,8 @@ class DiscreteSystem:
     References
     ----------
     .. [1] A. V. Oppenheim, R. W. Schafer, *Discrete-Time Signal Processing*,
-           3rd ed., sec. 6.3.3 (cascade form: second-order sections) and 7.2.
+           3rd ed., sec. 6.3.2 (cascade form: second-order sections) and 7.2.
+           Section numbers here are quoted from memory.
     .. [2] G. F. Franklin, J. D. Powell, M. L. Workman, *Digital Control of
            Dynamic Systems*, 3rd ed., ch. 6 (hold equivalents, initial states).
     """

@@ -26,6 +26,10 @@ Methods (names as the trade uses them):
     gain matched at DC or, where the DC gain is 0 or infinite, at a stated
     frequency (same book, sec. 6.3.3).
 
+Section numbers of Oppenheim & Schafer 7.2.1/7.2.2 are those the project's
+design notes cite; the Franklin, Powell & Workman subsection numbers are
+quoted from memory (chapter 6 is the discrete equivalents chapter).
+
 The step- and ramp-invariant models are computed from a state-space
 realization with the matrix exponential (Van Loan's block method); their zeros
 come from the QZ algorithm on the system pencil, never from high-order
