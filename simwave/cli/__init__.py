@@ -8,6 +8,7 @@ from simwave.cli.app import main
 
 # Command modules (each adds one command to ``main``): keep one import per line.
 from simwave.cli import cmd_inspect  # noqa: F401,E402
+from simwave.cli import cmd_run  # noqa: F401,E402
 from simwave.cli import cmd_gen  # noqa: F401,E402
 from simwave.cli import cmd_info  # noqa: F401,E402
 from simwave.cli import cmd_measure  # noqa: F401,E402

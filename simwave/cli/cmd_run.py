@@ -1,0 +1,177 @@
+"""``simwave run``: stream a waveform through H(s) and write the output."""
+
+from __future__ import annotations
+
+import json
+import sys
+import time
+import warnings
+
+import click
+
+from simwave.cli.app import main
+from simwave.cli.input_options import input_options, read_options
+from simwave.cli.system_input import parse_number, parse_number_list, resolve_system, system_options
+from simwave.discrete import METHODS
+from simwave.run import RunJob, execute
+
+AUDIO_CAUTION = (
+    "Caution: audio output can be loud. Peak level {peak_dbfs:.1f} dBFS; "
+    "start playback at low volume."
+)
+
+
+class _Progress:
+    """A progress bar on stderr, only on a terminal and only once a run passes ~1 s."""
+
+    def __init__(self) -> None:
+        self.enabled = sys.stderr.isatty()
+        self.started = time.monotonic()
+        self.bar = None
+        self.shown = 0
+
+    def __call__(self, done: int, total: int | None) -> None:
+        if not self.enabled or not total:
+            return
+        if self.bar is None:
+            if time.monotonic() - self.started < 1.0:
+                return
+            self.bar = click.progressbar(length=total, label="simulating", file=sys.stderr)
+            self.bar.__enter__()
+        self.bar.update(done - self.shown)
+        self.shown = done
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.__exit__(None, None, None)
+
+
+def _format_summary(result: dict) -> str:
+    run = result["run"]
+    acc = run.get("accuracy") or {}
+    lines = [
+        f"wrote      {run['output']}",
+        f"samples    {run['samples']} ({run['duration_s']:.6g} s at {run['rate_hz']:g} Hz)",
+        f"method     {run['method']}, initial state: {run['initial']}",
+    ]
+    mag = acc.get("max_mag_error_db")
+    if mag is not None:
+        lines.append(
+            f"model err  {mag:.3g} dB at {acc.get('max_mag_error_at_hz', float('nan')):.6g} Hz, "
+            f"{acc.get('max_phase_error_deg', float('nan')):.3g} deg at "
+            f"{acc.get('max_phase_error_at_hz', float('nan')):.6g} Hz "
+            f"(band up to {acc.get('band_hz', float('nan')):.6g} Hz)"
+        )
+    if run.get("oversample"):
+        o = run["oversample"]
+        before = o["accuracy_at_input_rate"].get("max_mag_error_db")
+        after = o["accuracy_at_model_rate"].get("max_mag_error_db")
+        lines.append(
+            f"oversample x{o['factor']}: model at {o['model_rate_hz']:g} Hz; largest magnitude "
+            f"error {before:.3g} dB -> {after:.3g} dB"
+        )
+    lines.append("channel    peak         peak at (s)   RMS")
+    for ch in run["channels"]:
+        unit = f" {ch['unit']}" if ch["unit"] else ""
+        lines.append(
+            f"  {ch['name']:<8} {ch['peak']:<12.6g} {ch['peak_time_s']:<13.6g} "
+            f"{ch['rms']:.6g}{unit}"
+        )
+    lines.append(f"time       {run['elapsed_s']:.3f} s")
+    return "\n".join(lines)
+
+
+@main.command("run")
+@click.argument("source", metavar="INPUT")
+@system_options
+@input_options
+@click.option("-o", "--output", required=True, metavar="FILE",
+              help="Output file; format from the extension (.wav .flac .csv .h5 ...).")
+@click.option("-m", "--method", type=click.Choice(METHODS), default="ramp-invariant",
+              show_default=True,
+              help="Discretization method. ramp-invariant (default) is exact for inputs "
+                   "linear between samples, the commonest reading of sampled data.")
+@click.option("--prewarp", metavar="HZ", default=None,
+              help="bilinear only: frequency where the discrete response equals H(j2*pi*f).")
+@click.option("--match-frequency", metavar="HZ", default=None,
+              help="matched-z only: frequency where the gain is matched when H(0) is 0 or "
+                   "infinite.")
+@click.option("--initial", type=click.Choice(["rest", "settled"]), default="rest",
+              show_default=True,
+              help="rest: zero initial state; settled: steady state for the first sample.")
+@click.option("--initial-output", metavar="LIST", default=None,
+              help="ODE systems: output initial conditions y(0), y'(0), ... (comma-separated).")
+@click.option("--oversample", type=click.IntRange(1, 64), default=1, show_default=True,
+              help="Run the model at N x the input rate and decimate back (anti-alias FIR).")
+@click.option("--with-input", is_flag=True,
+              help="Write the input beside the output (CSV columns / HDF5 dataset).")
+@click.option("--subtype", default=None,
+              help="Audio output sample format, e.g. FLOAT (default), PCM_16, PCM_24.")
+@click.option("--on-clip", type=click.Choice(["error", "clip", "normalize"]), default="error",
+              show_default=True, help="Integer audio output beyond full scale.")
+@click.option("--keep-going", is_flag=True,
+              help="Write the output even if it turns NaN/infinite (unstable system).")
+@click.option("--metrics", metavar="FILE.json", default=None,
+              help="Measure the output against the input and write the metrics as JSON.")
+@click.option("--settling-band", metavar="PCT", default=None,
+              help="Settling tolerance band in percent of the transition (default 2).")
+@click.option("--json", "as_json", is_flag=True, help="Print the run report as JSON.")
+def run_command(source, system_spec, output, method, prewarp, match_frequency, initial,
+                initial_output, oversample, with_input, subtype, on_clip, keep_going, metrics,
+                settling_band, as_json, **reader_kwargs):
+    """Run INPUT through the system and write the output.
+
+    INPUT is a waveform file (WAV, FLAC, CSV, HDF5, ...) or a generated
+    signal, e.g. 'step:rate=10k,duration=50m,time=5m'.
+    """
+    system = resolve_system(system_spec)
+    reader = read_options(reader_kwargs)
+    write_options = {}
+    if subtype is not None:
+        write_options["subtype"] = subtype
+    if on_clip != "error":
+        write_options["on_clip"] = on_clip
+    measure_options = {}
+    if settling_band is not None:
+        measure_options["settling_band_pct"] = parse_number(settling_band, "--settling-band")
+    job = RunJob(
+        system=system,
+        source=source,
+        output=output,
+        method=method,
+        initial=initial,
+        prewarp_hz=parse_number(prewarp, "--prewarp") if prewarp is not None else None,
+        match_hz=(parse_number(match_frequency, "--match-frequency")
+                  if match_frequency is not None else None),
+        output_ics=(tuple(parse_number_list(initial_output, "--initial-output"))
+                    if initial_output is not None else None),
+        oversample=oversample,
+        read_options=reader,
+        write_options=write_options,
+        include_input=with_input,
+        keep_going=keep_going,
+        metrics=metrics,
+        measure_options=measure_options,
+    )
+    progress = _Progress()
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            result = execute(job, progress=progress)
+        finally:
+            progress.close()
+    if as_json:
+        click.echo(json.dumps(result, indent=2, default=str))
+    else:
+        click.echo(_format_summary(result))
+        if metrics:
+            click.echo(f"metrics    {metrics}")
+    shown = set()
+    for w in caught:
+        text = str(w.message)
+        if text not in shown:
+            shown.add(text)
+            click.echo(f"Warning: {text}", err=True)
+    peak_dbfs = (result["run"].get("write") or {}).get("peak_dbfs")
+    if peak_dbfs is not None:
+        click.echo(AUDIO_CAUTION.format(peak_dbfs=peak_dbfs), err=True)

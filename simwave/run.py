@@ -1,0 +1,589 @@
+"""simulate(): the one pipeline from an input waveform through H(s) to the output.
+
+source blocks (file, Waveform or generated) -> [upsample] -> DiscreteSystem.process
+with carried state -> [decimate] -> divergence check, peak/RMS accumulators ->
+writer (atomic) or an in-memory Waveform.
+
+Reading runs ahead and writing runs behind on threads (see
+:mod:`simwave.pipeline`), so a long file streams in constant memory with the
+three stages overlapped.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import os
+import time
+import warnings
+from dataclasses import dataclass, field
+from typing import Any, Callable, Iterator, Sequence
+
+import numpy as np
+
+import simwave
+from simwave.errors import SimwaveError
+from simwave.model.system import System
+from simwave.oversample import Decimator, Upsampler
+from simwave.pipeline import WriteBehind, read_ahead
+from simwave.signals.waveform import Waveform
+
+#: Samples per block: large enough that per-block overhead is negligible,
+#: small enough that a few blocks in flight stay well under 100 MB.
+DEFAULT_BLOCK = 1 << 16
+
+
+class DivergenceError(SimwaveError):
+    """The output became NaN or infinite (an unstable system or model)."""
+
+
+# --------------------------------------------------------------------------- sources
+@dataclass
+class Source:
+    """An input stream: metadata plus a way to iterate over sample blocks."""
+
+    rate: float
+    channels: list[str]
+    units: list[str]
+    t0: float
+    n_samples: int | None
+    attrs: dict[str, Any]
+    label: str
+    path: str | None
+    make_blocks: Callable[[int], Iterator[np.ndarray]]
+    waveform: Waveform | None = None  # set when the whole input is already in memory
+
+    @property
+    def n_channels(self) -> int:
+        return len(self.channels)
+
+
+def _waveform_source(wave: Waveform, label: str, path: str | None = None) -> Source:
+    def make_blocks(size: int) -> Iterator[np.ndarray]:
+        for start in range(0, wave.n_samples, size):
+            yield wave.data[start : start + size]
+
+    return Source(
+        wave.rate, list(wave.channels), list(wave.units), wave.t0, wave.n_samples,
+        dict(wave.attrs), label, path, make_blocks, wave,
+    )
+
+
+def open_source(
+    source: Waveform | str | os.PathLike,
+    *,
+    rate: float | None = None,
+    channels: Sequence[int | str] | None = None,
+    read_options: dict[str, Any] | None = None,
+) -> Source:
+    """Resolve a Waveform, a file path or a generated-signal spec into a :class:`Source`."""
+    opts = dict(read_options or {})
+    if isinstance(source, Waveform):
+        wave = source.select(list(channels)) if channels else source
+        return _waveform_source(wave, wave.attrs.get("source", "waveform in memory"))
+    text = os.fspath(source)
+    if rate is not None:
+        opts.setdefault("rate", rate)
+    if channels:
+        opts.setdefault("channels", list(channels))
+    # The readers take file paths and generated-signal specs alike.
+    meta = simwave.info(text, **opts)
+
+    def make_blocks(size: int) -> Iterator[np.ndarray]:
+        for piece in simwave.blocks(text, size, **opts):
+            yield piece.data
+
+    is_file = meta.format != "generated"
+    attrs = dict(meta.attrs or {})
+    if not is_file:
+        attrs = {"generated": text}
+    return Source(
+        float(meta.rate), list(meta.channels), list(meta.units), float(meta.t0),
+        int(meta.n_samples) if meta.n_samples is not None else None,
+        attrs, text, text if is_file else None, make_blocks,
+    )
+
+
+# --------------------------------------------------------------------------- result
+@dataclass
+class RunReport:
+    """What a run did: sizes, model, levels, warnings, timing and provenance."""
+
+    n_samples: int
+    rate: float
+    channels: list[str]
+    units: list[str]
+    method: str
+    initial: str
+    peak: list[float]
+    peak_time_s: list[float]
+    rms: list[float]
+    elapsed_s: float
+    accuracy: dict[str, Any]
+    warnings: list[str]
+    provenance: dict[str, Any]
+    output: str | None = None
+    oversample: dict[str, Any] | None = None
+    write: dict[str, Any] | None = None
+    waveform: Waveform | None = field(default=None, repr=False)
+
+    @property
+    def duration(self) -> float:
+        return self.n_samples / self.rate
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "output": self.output,
+            "samples": self.n_samples,
+            "duration_s": self.duration,
+            "rate_hz": self.rate,
+            "method": self.method,
+            "initial": self.initial,
+            "channels": [
+                {"name": n, "unit": u, "peak": p, "peak_time_s": pt, "rms": r}
+                for n, u, p, pt, r in zip(
+                    self.channels, self.units, self.peak, self.peak_time_s, self.rms, strict=True
+                )
+            ],
+            "accuracy": self.accuracy,
+            "oversample": self.oversample,
+            "write": self.write,
+            "warnings": list(self.warnings),
+            "elapsed_s": self.elapsed_s,
+            "provenance": self.provenance,
+        }
+
+
+class _LevelMeter:
+    """Running per-channel peak (absolute), its time, and RMS."""
+
+    def __init__(self, n_channels: int) -> None:
+        self.peak = np.zeros(n_channels)
+        self.peak_index = np.zeros(n_channels, dtype=np.int64)
+        self.sum_sq = np.zeros(n_channels)
+        self.n = 0
+
+    def add(self, block: np.ndarray) -> None:
+        if block.shape[0] == 0:
+            return
+        mag = np.abs(block)
+        i = np.argmax(mag, axis=0)
+        m = mag[i, np.arange(block.shape[1])]
+        better = m > self.peak
+        self.peak = np.where(better, m, self.peak)
+        self.peak_index = np.where(better, self.n + i, self.peak_index)
+        self.sum_sq += np.einsum("ij,ij->j", block, block)
+        self.n += block.shape[0]
+
+    def rms(self) -> np.ndarray:
+        return np.sqrt(self.sum_sq / self.n) if self.n else np.zeros_like(self.sum_sq)
+
+
+# --------------------------------------------------------------------------- the pipeline
+def _as_system(system: System | str) -> System:
+    if isinstance(system, System):
+        return system
+    if isinstance(system, str):
+        return System.parse(system)
+    raise SimwaveError(f"system must be a System or text H(s)/ODE, got {type(system).__name__}")
+
+
+def _check_finite(block: np.ndarray, start: int, rate: float, t0: float) -> None:
+    if np.isfinite(block).all():
+        return
+    bad = np.argwhere(~np.isfinite(block))
+    row, col = int(bad[0, 0]), int(bad[0, 1])
+    t = t0 + (start + row) / rate
+    raise DivergenceError(
+        f"output diverged to {block[row, col]} at t = {t:.6g} s (sample {start + row}, "
+        f"channel {col}); the system or its discrete model is unstable. "
+        "Use keep_going (--keep-going) to write it anyway"
+    )
+
+
+def simulate(
+    system: System | str,
+    source: Waveform | str | os.PathLike,
+    method: str = "ramp-invariant",
+    rate: float | None = None,
+    initial: str = "rest",
+    *,
+    output: str | os.PathLike | None = None,
+    prewarp_hz: float | None = None,
+    delay_s: float | None = None,
+    match_hz: float | None = None,
+    output_ics: Sequence[float] | None = None,
+    oversample: int = 1,
+    channels: Sequence[int | str] | None = None,
+    read_options: dict[str, Any] | None = None,
+    write_options: dict[str, Any] | None = None,
+    include_input: bool = False,
+    keep_going: bool = False,
+    block_size: int = DEFAULT_BLOCK,
+    progress: Callable[[int, int | None], None] | None = None,
+) -> Waveform | RunReport:
+    """Run a waveform through the analog system H(s) and return (or write) the output.
+
+    Parameters
+    ----------
+    system : System or str
+        The analog system, or any text :meth:`System.parse` accepts.
+    source : Waveform, path or generated-signal spec
+        The input. A path is streamed block by block; a spec such as
+        ``"step:rate=10k,duration=0.1"`` is generated block by block.
+    method : str
+        Discretization method (see :func:`simwave.discrete.discretize`);
+        ``ramp-invariant`` by default: exact for inputs linear between samples.
+    rate : float, optional
+        Sample rate in Hz for inputs that carry none (headerless CSV).
+    initial : {"rest", "settled"}
+        Initial state: at rest before the first sample, or settled at the
+        first sample's value. ``output_ics`` gives y(0), y'(0), ... for
+        systems entered as an ODE.
+    output : path, optional
+        When given, the output is streamed to this file (format from the
+        extension) and a :class:`RunReport` is returned; otherwise the output
+        :class:`Waveform` is returned (same rate, length, channels as the input).
+    oversample : int
+        Run the model at ``oversample`` x the input rate on an input
+        interpolated consistently with the method, then decimate back with a
+        linear-phase anti-alias FIR (see :mod:`simwave.oversample`).
+    include_input : bool
+        Write the input beside the output (extra CSV columns / HDF5 dataset).
+    keep_going : bool
+        Do not stop when the output turns NaN or infinite.
+
+    Returns
+    -------
+    Waveform or RunReport
+        The output waveform, ``(n_samples, n_channels)`` float64, with the
+        run's provenance and report in ``attrs``; a RunReport when ``output``
+        is given (its ``waveform`` is None).
+    """
+    started = time.perf_counter()
+    sys_ = _as_system(system)
+    src = open_source(source, rate=rate, channels=channels, read_options=read_options)
+    factor = int(oversample)
+    if factor < 1:
+        raise SimwaveError(f"oversample must be a whole number >= 1, got {oversample}")
+    if block_size < 1:
+        raise SimwaveError(f"block size must be >= 1, got {block_size}")
+    model_rate = src.rate * factor
+    caught: list[str] = []
+    with warnings.catch_warnings(record=True) as wlist:
+        warnings.simplefilter("always")
+        model = sys_.discretize(
+            model_rate, method, prewarp_hz=prewarp_hz, delay_s=delay_s, match_hz=match_hz
+        )
+        accuracy = model.accuracy().to_dict()
+    caught.extend(str(w.message) for w in wlist)
+    for text in model.warnings:
+        if text not in caught:
+            caught.append(text)
+    over_info = None
+    if factor > 1:
+        base_model = sys_.discretize(
+            src.rate, method, prewarp_hz=prewarp_hz, delay_s=delay_s, match_hz=match_hz
+        )
+        over_info = {
+            "factor": factor,
+            "model_rate_hz": model_rate,
+            "accuracy_at_input_rate": base_model.accuracy().to_dict(),
+            "accuracy_at_model_rate": accuracy,
+        }
+    for text in caught:
+        warnings.warn(text, stacklevel=2)
+
+    provenance = {
+        "simwave_version": simwave.__version__,
+        "system": sys_.text if sys_.text is not None else repr(sys_),
+        "system_name": sys_.name,
+        "zeros": [_complex_text(z) for z in np.atleast_1d(sys_.zeros)],
+        "poles": [_complex_text(p) for p in np.atleast_1d(sys_.poles)],
+        "gain": sys_.gain,
+        "dead_time_s": sys_.delay_s + (delay_s or 0.0),
+        "method": method,
+        "prewarp_hz": prewarp_hz,
+        "model_rate_hz": model_rate,
+        "oversample": factor,
+        "initial": (initial if output_ics is None
+                    else f"output initial conditions {list(output_ics)}"),
+        "input": src.label,
+        "written": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
+    }
+
+    meter = _LevelMeter(src.n_channels)
+    pieces: list[np.ndarray] = []
+    sink = _Sink(output, src, provenance, write_options, include_input, keep_going, meter, pieces)
+    state = None
+    n_in = 0
+    try:
+        up = Upsampler(factor, hold=(method == "step-invariant")) if factor > 1 else None
+        dec: Decimator | None = None
+        for block in read_ahead(src.make_blocks(block_size)):
+            block = np.asarray(block, dtype=np.float64)
+            if block.ndim == 1:
+                block = block[:, None]
+            if block.shape[0] == 0:
+                continue
+            if state is None:
+                state = model.initial_state(
+                    block[0], initial=initial, n_channels=block.shape[1], output_ics=output_ics
+                )
+            n_in += block.shape[0]
+            if up is None:
+                out, state = model.process(block, state)
+            else:
+                hi, state = model.process(up.push(block), state)
+                if dec is None:
+                    dec = Decimator(factor, block.shape[1], _pre_value(initial, output_ics, hi))
+                out = dec.push(hi)
+            sink.emit(out, block)
+            if progress is not None:
+                progress(sink.done, src.n_samples)
+        if n_in == 0:
+            raise SimwaveError(f"{src.label}: the input holds no samples")
+        if up is not None:
+            hi, state = model.process(up.finish(), state)
+            if dec is None:
+                dec = Decimator(factor, hi.shape[1], _pre_value(initial, output_ics, hi))
+            out = dec.push(hi)
+            out = np.concatenate([out, dec.finish(n_in, sink.done + out.shape[0])])
+            sink.emit(out, None)
+            over_info["decimator"] = dec.describe()
+        sink.close()
+    except BaseException:
+        sink.abort()
+        raise
+    done = sink.done
+
+    report = RunReport(
+        n_samples=done,
+        rate=src.rate,
+        channels=list(src.channels),
+        units=list(src.units),
+        method=method,
+        initial=provenance["initial"],
+        peak=[float(v) for v in meter.peak],
+        peak_time_s=[float(src.t0 + i / src.rate) for i in meter.peak_index],
+        rms=[float(v) for v in meter.rms()],
+        elapsed_s=time.perf_counter() - started,
+        accuracy=accuracy,
+        warnings=caught,
+        provenance=provenance,
+        output=os.fspath(output) if output is not None else None,
+        oversample=over_info,
+        write=_write_dict(sink.write_result),
+    )
+    if output is not None:
+        return report
+    data = np.concatenate(pieces) if pieces else np.empty((0, src.n_channels))
+    wave = Waveform(
+        data, src.rate, src.t0, list(src.channels), list(src.units),
+        {**provenance, "warnings": caught},
+    )
+    report.waveform = wave
+    return wave
+
+
+def _write_dict(result: Any) -> dict[str, Any] | None:
+    if result is None:
+        return None
+    import dataclasses
+
+    return {k: v for k, v in dataclasses.asdict(result).items() if k != "path"}
+
+
+def _pre_value(initial: str, output_ics: Any, first_out: np.ndarray) -> np.ndarray:
+    """Model output before the record, for the decimator's look-back: 0 at rest, else held."""
+    if initial == "rest" and output_ics is None or first_out.shape[0] == 0:
+        return np.zeros(first_out.shape[1])
+    return first_out[0]
+
+
+def _complex_text(value: complex) -> str | float:
+    value = complex(value)
+    if value.imag == 0:
+        return float(value.real)
+    return f"{value.real:.12g}{value.imag:+.12g}j"
+
+
+class _Sink:
+    """Where output blocks go: checks, level meter, then a file writer (behind) or memory."""
+
+    def __init__(self, output, src, provenance, write_options, include_input, keep_going, meter,
+                 pieces) -> None:
+        self.src = src
+        self.keep_going = keep_going
+        self.meter = meter
+        self.pieces = pieces
+        self.done = 0
+        self.include_input = include_input
+        self.write_result = None
+        self._pending_input: list[np.ndarray] = []
+        self._writer = None
+        self._behind: WriteBehind | None = None
+        if output is not None:
+            self._writer = _open_output(output, src, provenance, write_options, include_input)
+            writer = self._writer
+            if include_input:
+                self._behind = WriteBehind(lambda pair: writer.write(pair[0], {"input": pair[1]}))
+            else:
+                self._behind = WriteBehind(writer.write)
+
+    def emit(self, out: np.ndarray, inp: np.ndarray | None) -> None:
+        if inp is not None and self.include_input and self._behind is not None:
+            self._pending_input.append(inp)
+        if out.shape[0] == 0:
+            return
+        if not self.keep_going:
+            _check_finite(out, self.done, self.src.rate, self.src.t0)
+        self.meter.add(out)
+        if self._behind is None:
+            self.pieces.append(out)
+        elif self.include_input:
+            self._behind.submit((out, self._take_input(out.shape[0])))
+        else:
+            self._behind.submit(out)
+        self.done += out.shape[0]
+
+    def _take_input(self, n: int) -> np.ndarray:
+        pending = np.concatenate(self._pending_input)
+        self._pending_input = [pending[n:]] if pending.shape[0] > n else []
+        return pending[:n]
+
+    def close(self) -> None:
+        if self._writer is not None:
+            self._behind.close()
+            self.write_result = self._writer.close()
+            self._writer = None
+
+    def abort(self) -> None:
+        if self._writer is None:
+            return
+        try:
+            self._behind.close()
+        except BaseException:  # noqa: BLE001, S110 - the run's own error is the one to report
+            pass
+        self._writer.abort()
+        self._writer = None
+
+
+def _open_output(output, src: Source, provenance, write_options, include_input):
+    """Open the streaming writer for the run's output (atomic: committed on close)."""
+    opts = dict(write_options or {})
+    protect = [src.path] if src.path else []
+    if include_input:
+        opts["extra"] = {"input": {"channels": list(src.channels), "units": list(src.units)}}
+    inherited = {f"input_{k}": v for k, v in src.attrs.items() if k not in provenance}
+    return simwave.open_writer(
+        os.fspath(output), src.rate, list(src.channels), units=list(src.units),
+        attrs={**inherited, **provenance}, t0=src.t0, protect=protect, **opts,
+    )
+
+
+# --------------------------------------------------------------------------- jobs
+@dataclass(frozen=True)
+class RunJob:
+    """One (input, system) run, as plain picklable data: what ``simwave run`` and batch execute.
+
+    ``system`` is a :class:`System` or any text :meth:`System.parse` accepts;
+    ``source`` a file path or a generated-signal spec; ``output`` the file to
+    write; ``metrics`` an optional JSON path for the measured metrics.
+    """
+
+    system: Any
+    source: str
+    output: str
+    method: str = "ramp-invariant"
+    initial: str = "rest"
+    prewarp_hz: float | None = None
+    delay_s: float | None = None
+    match_hz: float | None = None
+    output_ics: tuple[float, ...] | None = None
+    oversample: int = 1
+    channels: tuple[Any, ...] | None = None
+    rate: float | None = None
+    read_options: dict[str, Any] = field(default_factory=dict)
+    write_options: dict[str, Any] = field(default_factory=dict)
+    include_input: bool = False
+    keep_going: bool = False
+    metrics: str | None = None
+    measure_options: dict[str, Any] = field(default_factory=dict)
+
+
+def execute(job: RunJob, progress: Callable[[int, int | None], None] | None = None) -> dict:
+    """Run one job: stream the output to its file, then measure it if asked.
+
+    Returns a JSON-friendly dict: ``{"run": RunReport.to_dict(), "metrics": dict or None}``.
+    The metrics file is written atomically after the output, so its presence
+    (newer than the output) marks a finished job.
+    """
+    system = _as_system(job.system)
+    report = simulate(
+        system, job.source, job.method, job.rate, job.initial,
+        output=job.output, prewarp_hz=job.prewarp_hz, delay_s=job.delay_s,
+        match_hz=job.match_hz, output_ics=job.output_ics, oversample=job.oversample,
+        channels=job.channels, read_options=job.read_options, write_options=job.write_options,
+        include_input=job.include_input, keep_going=job.keep_going, progress=progress,
+    )
+    result: dict[str, Any] = {"run": report.to_dict(), "metrics": None}
+    if job.metrics is not None:
+        metrics = measure_run(job, system).to_dict()
+        result["metrics"] = metrics
+        write_json(job.metrics, {"run": result["run"], "metrics": metrics}, protect=[job.source])
+    return result
+
+
+def measure_run(job: RunJob, system: System):
+    """Measure a finished job's output file against its input (both read in blocks)."""
+    from simwave.measure import measure
+
+    read_opts = dict(job.read_options)
+    if job.rate is not None:
+        read_opts.setdefault("rate", job.rate)
+    if job.channels:
+        read_opts.setdefault("channels", list(job.channels))
+    src = open_source(job.source, rate=job.rate, channels=job.channels,
+                      read_options=job.read_options)
+    reference: Any = job.source
+    out_opts: dict[str, Any] = {}
+    if job.include_input:
+        from simwave.signals.formats import resolve_format
+
+        family, _ = resolve_format(job.output, job.write_options.get("format"))
+        if family == "hdf5":
+            out_opts["dataset"] = job.write_options.get("dataset") or "/waveform"
+        else:  # the input's columns follow the output's
+            out_opts["channels"] = list(range(len(src.channels)))
+    options = dict(job.measure_options)
+    return measure(
+        job.output, reference=reference, system=system,
+        read_options=out_opts, reference_read_options=read_opts, **options,
+    )
+
+
+def write_json(path: str | os.PathLike, data: Any, protect: Sequence[str] = ()) -> None:
+    """Write JSON atomically (temporary file beside the target, then os.replace)."""
+    import json
+
+    from simwave.signals.atomic import AtomicTarget
+
+    target = AtomicTarget(os.fspath(path), protect=[p for p in protect if p])
+    try:
+        with open(target.tmp, "w", encoding="utf-8") as fh:
+            json.dump(data, fh, indent=2, allow_nan=False, default=_json_default)
+            fh.write("\n")
+        target.commit()
+    except BaseException:
+        target.abort()
+        raise
+
+
+def _json_default(value: Any) -> Any:
+    if isinstance(value, (np.floating, np.integer)):
+        return value.item()
+    if isinstance(value, np.ndarray):
+        return value.tolist()
+    if isinstance(value, complex):
+        return _complex_text(value)
+    raise TypeError(f"not JSON serializable: {type(value).__name__}")
