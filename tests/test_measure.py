@@ -255,3 +255,32 @@ def test_unsettled_window_gives_reasons_not_numbers():
     ch = measure(out, inp).to_dict()["channels"][0]
     assert ch["steady_state"]["steady_state_gain"] is None
     assert "not settled" in ch["steady_state"]["null_reasons"]["steady_state_gain"]
+
+
+def test_step_gain_uses_output_before_the_input_step():
+    # A first-order high-pass s / (s + a) answers a step with a decaying spike and
+    # returns to 0: steady-state gain 0 = H(0) (final value theorem, Ogata sec. 2-3),
+    # while an inverting gain stage -2 gives -2.
+    fs, a = 1000.0, 50.0
+    t = np.arange(2000) / fs
+    step = (t > 0.2).astype(float)
+    spike = np.where(t > 0.2, np.exp(-(t - 0.2) * a), 0.0)
+    hp = System.from_zpk([0], [-a], 1.0)
+    ss = measure(Waveform(spike, fs), Waveform(step, fs), hp).to_dict()["channels"][0][
+        "steady_state"
+    ]
+    assert ss["steady_state_gain"] == pytest.approx(0.0, abs=1e-12)
+    assert ss["initial_output_level"] == 0.0
+    inv = measure(Waveform(-2 * step, fs), Waveform(step, fs)).to_dict()["channels"][0]
+    assert inv["transitions"][0]["direction"] == "falling"
+    assert inv["steady_state"]["steady_state_gain"] == pytest.approx(-2.0, rel=1e-12)
+
+
+def test_constant_input_gain_and_ramp_kind():
+    fs = 1000.0
+    t = np.arange(2000) / fs
+    out = 0.5 + 0.01 * np.sin(300 * t)
+    ch = measure(Waveform(out, fs), Waveform(np.ones_like(t), fs)).to_dict()["channels"][0]
+    assert ch["kind"] == "constant"
+    assert ch["steady_state"]["steady_state_gain"] == pytest.approx(np.mean(out[-500:]), rel=1e-12)
+    assert measure(Waveform(t, fs)).to_dict()["channels"][0]["kind"] == "ramp"

@@ -331,6 +331,8 @@ class _Measurement:
         self.w_start = n - w_len
         if w_len < n * o.steady_fraction - 0.5:
             self.notes.append(f"steady-state window capped at {w_len} samples (max_window_samples)")
+        self.regions: dict[int, list[EdgeRegions]] = {}
+        self.pre_step_value: dict[int, float] = {}
         self._pass_levels()
         self._classify()
         self._pass_edges()
@@ -384,6 +386,9 @@ class _Measurement:
         y = ch.window
         if y.size >= MIN_WINDOW and np.ptp(y) > 0:
             t = self._window_t(y.size)
+            # a straight line first: a slow sine fits a short stretch of ramp too
+            if st.line_fit(y, t)[2] >= RAMP_R2:
+                return "ramp"
             if is_reference:
                 tones = st.find_tones(y, self.rate)
                 if len(tones) >= 2:
@@ -403,9 +408,6 @@ class _Measurement:
                     fit = st.fit_tones(y, t, tones, refine=True)
                     if fit.explained >= SINE_AUTO_EXPLAINED:
                         return "multitone"
-            _, _, r2 = st.line_fit(y, t)
-            if r2 >= RAMP_R2:
-                return "ramp"
         return "other"
 
     def _classify(self) -> None:
@@ -480,10 +482,19 @@ class _Measurement:
     def _pass_regions(self) -> None:
         chans = self.outs + self.refs
         need: dict[int, np.ndarray] = {}
+        # the output just before the last input transition: its initial level for the
+        # steady-state gain of a step
+        self.pre_step_index: dict[int, int] = {}
+        for c in range(len(self.outs)):
+            ri = self.ref_for(c)
+            if ri is not None and self.refs[ri].edges:
+                self.pre_step_index[c] = self.refs[ri].edges[-1].k_start
         for i, ch in enumerate(chans):
-            if ch.edges:
-                idx = sorted({k for e in ch.edges for k in e.needed_indices() if 0 <= k < self.n})
-                need[i] = np.asarray(idx, dtype=np.int64)
+            idx = {k for e in ch.edges for k in e.needed_indices() if 0 <= k < self.n}
+            if i in self.pre_step_index:
+                idx.add(self.pre_step_index[i])
+            if idx:
+                need[i] = np.asarray(sorted(idx), dtype=np.int64)
         regions: dict[int, list[EdgeRegions]] = {}
         for c, ch in enumerate(self.outs):
             if ch.edges:
@@ -519,6 +530,7 @@ class _Measurement:
         for i, ch in enumerate(chans):
             for e in ch.edges:
                 e.set_instants(values[i], ch.refs)
+        self.pre_step_value = {c: values[c][k] for c, k in self.pre_step_index.items()}
         self.regions = regions
 
     def _regions_for(self, c: int, ch: _Chan) -> list[EdgeRegions]:
@@ -637,7 +649,7 @@ class _Measurement:
         }
         reasons = dict(ch.null_reasons)
         comparisons: list[dict] = []
-        if ch.kind in ("transitions", "constant"):
+        if ch.kind == "transitions":
             self._transient_section(c, ch, ref, d, reasons)
         d["steady_state"] = self._steady_section(c, ch, ref)
         if ch.kind == "sine":
@@ -789,7 +801,7 @@ class _Measurement:
                 f"the steady-state window contains {len(edges_in_window)} output transition(s), "
                 f"the first at {self.t(edges_in_window[0].j):.6g} s"
             )
-        elif ch.levels is not None:
+        elif ch.levels is not None and ch.kind == "transitions":
             band_abs = self.o.settling_band_pct / 100.0 * ch.levels.amplitude
             dev = float(np.max(np.abs(y - d["final_value"])))
             d["settled_in_window"] = bool(dev <= band_abs)
@@ -818,15 +830,20 @@ class _Measurement:
         x_final = float(np.mean(x))
         d["input_final_value"] = x_final
         y_final = d["final_value"]
-        if ref.edges and ref.levels is not None and ch.levels is not None and ch.edges:
+        if ref.edges and ref.levels is not None and c in self.pre_step_value:
             last_in = ref.edges[-1]
             x_init = ref.levels.low if last_in.direction > 0 else ref.levels.high
-            last_out = ch.edges[-1]
-            y_init = ch.levels.low if last_out.direction > 0 else ch.levels.high
+            y_init = self.pre_step_value[c]
+            if ch.levels is not None:
+                # snap to the output state level it sits at (noise), if it is near one
+                near = min((ch.levels.low, ch.levels.high), key=lambda v: abs(v - y_init))
+                if abs(near - y_init) <= 0.1 * ch.levels.amplitude:
+                    y_init = near
+            d["initial_output_level"] = y_init
             dx = x_final - x_init
             d["steady_state_gain"] = (y_final - y_init) / dx
             d["steady_state_gain_basis"] = (
-                "step: (final - initial output level) / (final - initial input level)"
+                "step: (final output - output before the input step) / (input step size)"
             )
             d["steady_state_error"] = x_final - y_final
             d["steady_state_error_pct"] = 100.0 * (x_final - y_final) / abs(dx)
