@@ -139,6 +139,17 @@ def _silverman_bandwidth(w: np.ndarray, x: np.ndarray) -> float:
 _FWHM_SD_RATIO = 0.6186
 
 
+def _fwhm(smooth: np.ndarray, w: np.ndarray) -> tuple[int, int, float]:
+    """Bins (lo, hi) of the highest peak down to half its height, and the samples there."""
+    k = int(np.argmax(smooth))
+    below = smooth < 0.5 * smooth[k]
+    left = np.flatnonzero(below[:k])
+    right = np.flatnonzero(below[k:])
+    lo = int(left[-1]) + 1 if left.size else 0
+    hi = k + int(right[0]) - 1 if right.size else smooth.size - 1
+    return lo, hi, float(w[lo : hi + 1].sum())
+
+
 def _half_mode(
     counts: np.ndarray, x: np.ndarray, width: float, sums: np.ndarray | None = None
 ) -> tuple[float, float] | None:
@@ -148,8 +159,10 @@ def _half_mode(
     does not pick a random bin. The kernel width starts at Silverman's rule of thumb for
     the whole half and is then re-estimated from the samples under the peak alone (its
     full width at half maximum, corrected to the spread of a normal peak), until it stops
-    shrinking: a sharp state (a settled, clean level) is then located to the bin width,
-    a noisy one with a kernel matched to its noise. The peak is refined by a parabola
+    shrinking or the narrower peak would hold less than half the samples of the wider
+    one: a sharp state (a settled, clean level) is then located to the bin width, a noisy
+    one with a kernel matched to its noise, and the turning points of ringing that has
+    not died out are not taken for a state. The peak is refined by a parabola
     through the largest smoothed bin and its neighbours.
 
     References
@@ -162,26 +175,25 @@ def _half_mode(
     w = counts.astype(np.float64)
     h_bins = _silverman_bandwidth(w, x) / width
     smooth = _smoothed(w, h_bins)
+    peak = _fwhm(smooth, w)
     for _ in range(12):
-        k = int(np.argmax(smooth))
-        half_max = 0.5 * smooth[k]
-        below = smooth < half_max
-        left = np.flatnonzero(below[:k])
-        right = np.flatnonzero(below[k:])
-        lo = int(left[-1]) + 1 if left.size else 0
-        hi = k + int(right[0]) - 1 if right.size else smooth.size - 1
-        wl, xl = w[lo : hi + 1], x[lo : hi + 1]
-        n_loc = float(wl.sum())
-        if n_loc <= 1:
+        lo, hi, n_loc = peak
+        if n_loc <= 1 or h_bins < 0.5:
             break
+        wl, xl = w[lo : hi + 1], x[lo : hi + 1]
         m = float(np.sum(wl * xl) / n_loc)
         sd_loc = math.sqrt(max(float(np.sum(wl * (xl - m) ** 2) / n_loc), 0.0)) / _FWHM_SD_RATIO
         # Silverman (1986) eq. 3.31 applied to the peak's own samples
         h_new = 0.9 * sd_loc * n_loc ** (-0.2) / width
-        if h_new >= 0.8 * h_bins or h_bins < 0.5:
+        if h_new >= 0.8 * h_bins:
             break
-        h_bins = h_new
-        smooth = _smoothed(w, h_bins)
+        smooth_new = _smoothed(w, h_new)
+        peak_new = _fwhm(smooth_new, w)
+        if peak_new[2] < 0.5 * n_loc:
+            # the narrower peak holds a minority of the samples: a turning point of
+            # ringing that has not died out, not a state; keep the wider kernel
+            break
+        h_bins, smooth, peak = h_new, smooth_new, peak_new
     k = int(np.argmax(smooth))
     mean_density = n / smooth.size
     if h_bins < 0.5 and sums is not None and counts[k] > 0:
