@@ -118,12 +118,13 @@ class RunReport:
     peak_time_s: list[float]
     rms: list[float]
     elapsed_s: float
-    accuracy: dict[str, Any]
+    accuracy: dict[str, Any] | None
     warnings: list[str]
     provenance: dict[str, Any]
     output: str | None = None
     oversample: dict[str, Any] | None = None
     write: dict[str, Any] | None = None
+    rate_check: dict[str, Any] | None = None
     waveform: Waveform | None = field(default=None, repr=False)
 
     @property
@@ -145,6 +146,7 @@ class RunReport:
                 )
             ],
             "accuracy": self.accuracy,
+            "rate_check": self.rate_check,
             "oversample": self.oversample,
             "write": self.write,
             "warnings": list(self.warnings),
@@ -165,9 +167,12 @@ class _LevelMeter:
     def add(self, block: np.ndarray) -> None:
         if block.shape[0] == 0:
             return
-        mag = np.abs(block)
-        i = np.argmax(mag, axis=0)
-        m = mag[i, np.arange(block.shape[1])]
+        # argmax/argmin walk the block without the temporary an abs() would allocate
+        cols = np.arange(block.shape[1])
+        i_hi, i_lo = np.argmax(block, axis=0), np.argmin(block, axis=0)
+        hi, lo = block[i_hi, cols], -block[i_lo, cols]
+        m = np.maximum(hi, lo)
+        i = np.where(hi >= lo, i_hi, i_lo)
         better = m > self.peak
         self.peak = np.where(better, m, self.peak)
         self.peak_index = np.where(better, self.n + i, self.peak_index)
@@ -179,6 +184,63 @@ class _LevelMeter:
 
 
 # --------------------------------------------------------------------------- the pipeline
+#: A model whose magnitude is off by more than this inside the band is called poor.
+POOR_MODEL_DB = 1.0
+#: The band for that check: where |H| is within this many dB of its peak (common practice
+#: would say "the pass band"; 20 dB keeps the transition region in).
+IN_BAND_DB = 20.0
+
+
+def in_band_check(model) -> dict[str, Any]:
+    """Cheap rate safeguard: largest magnitude error of the model where |H| matters.
+
+    Compares |H_d(e^{j 2 pi f / rate})| with |H(j 2 pi f)| on 96 log-spaced
+    frequencies up to 0.45 x rate, keeping those where |H| is within
+    :data:`IN_BAND_DB` of its peak (dead time does not change magnitudes).
+    """
+    system = model.system
+    rate = model.rate
+    roots = np.abs(np.concatenate([np.atleast_1d(system.poles), np.atleast_1d(system.zeros)]))
+    roots = roots[roots > 0]
+    lo = min(rate * 1e-4, 0.1 * float(roots.min()) / (2 * np.pi)) if roots.size else rate * 1e-4
+    f = np.geomspace(lo, 0.45 * rate, 96)
+    ha = np.abs(system.frequency_response(f))
+    hd = np.abs(model.frequency_response(f, dead_time=False))
+    keep = np.isfinite(ha) & (ha >= np.max(ha[np.isfinite(ha)]) * 10 ** (-IN_BAND_DB / 20))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        err_db = 20 * np.log10(hd[keep] / ha[keep])
+    err_db = np.where(np.isfinite(err_db), err_db, np.inf)
+    i = int(np.argmax(np.abs(err_db)))
+    worst = float(err_db[i])
+    return {
+        "max_in_band_mag_error_db": worst,
+        "at_hz": float(f[keep][i]),
+        "band_top_hz": float(f[keep].max()),
+        "limit_db": POOR_MODEL_DB,
+        "poor": bool(abs(worst) > POOR_MODEL_DB),
+    }
+
+
+def _poor_model_warning(
+    check: dict[str, Any], accuracy: dict[str, Any] | None, factor: int
+) -> str:
+    text = (
+        f"the {accuracy['method'] if accuracy else 'discrete'} model is off by "
+        f"{check['max_in_band_mag_error_db']:+.2f} dB at {check['at_hz']:.6g} Hz, inside the "
+        f"band where |H| is within {IN_BAND_DB:g} dB of its peak"
+    )
+    if accuracy:
+        rates = {m: r for m, r in (accuracy.get("suggested_rate_hz") or {}).items() if r}
+        own = rates.get(accuracy["method"])
+        if own:
+            text += f"; a rate of {own:.6g} Hz or more brings it under 0.1 dB"
+            # Oversampling helps where the error comes from the s-to-z mapping; the hold
+            # methods read the input the same way at any rate, so there it changes nothing.
+            if factor == 1 and accuracy["method"] in ("bilinear", "impulse-invariant", "matched-z"):
+                text += f" (or oversample >= {int(np.ceil(own / accuracy['rate_hz']))})"
+    return text
+
+
 def _as_system(system: System | str) -> System:
     if isinstance(system, System):
         return system
@@ -274,21 +336,29 @@ def simulate(
         model = sys_.discretize(
             model_rate, method, prewarp_hz=prewarp_hz, delay_s=delay_s, match_hz=match_hz
         )
-        accuracy = model.accuracy().to_dict()
+        check = in_band_check(model)
+        # The full report (with the suggested-rate search) costs tens of milliseconds:
+        # made for file runs, whose summary prints it, and whenever the model is poor.
+        full = output is not None or check["poor"]
+        accuracy = model.accuracy(suggest=full).to_dict() if full else None
     caught.extend(str(w.message) for w in wlist)
     for text in model.warnings:
         if text not in caught:
             caught.append(text)
+    if check["poor"]:
+        caught.append(_poor_model_warning(check, accuracy, factor))
     over_info = None
     if factor > 1:
-        base_model = sys_.discretize(
-            src.rate, method, prewarp_hz=prewarp_hz, delay_s=delay_s, match_hz=match_hz
-        )
+        with warnings.catch_warnings():  # the input-rate model is only compared, not run
+            warnings.simplefilter("ignore")
+            base_model = sys_.discretize(
+                src.rate, method, prewarp_hz=prewarp_hz, delay_s=delay_s, match_hz=match_hz
+            )
         over_info = {
             "factor": factor,
             "model_rate_hz": model_rate,
-            "accuracy_at_input_rate": base_model.accuracy().to_dict(),
-            "accuracy_at_model_rate": accuracy,
+            "in_band_error_at_input_rate": in_band_check(base_model),
+            "in_band_error_at_model_rate": check,
         }
     for text in caught:
         warnings.warn(text, stacklevel=2)
@@ -319,7 +389,12 @@ def simulate(
     try:
         up = Upsampler(factor, hold=(method == "step-invariant")) if factor > 1 else None
         dec: Decimator | None = None
-        for block in read_ahead(src.make_blocks(block_size)):
+        # Files are read ahead on a thread; data already in memory needs no thread.
+        if src.waveform is None:
+            blocks_in = read_ahead(src.make_blocks(block_size))
+        else:  # already in memory: one block, no copies
+            blocks_in = src.make_blocks(max(1, src.waveform.n_samples))
+        for block in blocks_in:
             block = np.asarray(block, dtype=np.float64)
             if block.ndim == 1:
                 block = block[:, None]
@@ -368,6 +443,7 @@ def simulate(
         rms=[float(v) for v in meter.rms()],
         elapsed_s=time.perf_counter() - started,
         accuracy=accuracy,
+        rate_check=check,
         warnings=caught,
         provenance=provenance,
         output=os.fspath(output) if output is not None else None,
@@ -376,10 +452,13 @@ def simulate(
     )
     if output is not None:
         return report
-    data = np.concatenate(pieces) if pieces else np.empty((0, src.n_channels))
+    if len(pieces) == 1:
+        data = pieces[0]
+    else:
+        data = np.concatenate(pieces) if pieces else np.empty((0, src.n_channels))
     wave = Waveform(
         data, src.rate, src.t0, list(src.channels), list(src.units),
-        {**provenance, "warnings": caught},
+        {**provenance, "rate_check": check, "warnings": caught},
     )
     report.waveform = wave
     return wave

@@ -64,11 +64,12 @@ def _format_summary(result: dict) -> str:
         )
     if run.get("oversample"):
         o = run["oversample"]
-        before = o["accuracy_at_input_rate"].get("max_mag_error_db")
-        after = o["accuracy_at_model_rate"].get("max_mag_error_db")
+        before = o["in_band_error_at_input_rate"]["max_in_band_mag_error_db"]
+        after = o["in_band_error_at_model_rate"]["max_in_band_mag_error_db"]
         lines.append(
-            f"oversample x{o['factor']}: model at {o['model_rate_hz']:g} Hz; largest magnitude "
-            f"error {before:.3g} dB -> {after:.3g} dB"
+            f"oversample x{o['factor']}: model at {o['model_rate_hz']:g} Hz; in-band magnitude "
+            f"error {before:+.3g} dB -> {after:+.3g} dB; decimator "
+            f"{o.get('decimator', {}).get('taps', '?')}-tap linear-phase FIR"
         )
     lines.append("channel    peak         peak at (s)   RMS")
     for ch in run["channels"]:

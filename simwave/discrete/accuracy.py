@@ -314,7 +314,7 @@ def _round_up(x: float) -> float:
 
 
 def accuracy_report(
-    model, band_hz: Any = None, limit_db: float = DEFAULT_LIMIT_DB
+    model, band_hz: Any = None, limit_db: float = DEFAULT_LIMIT_DB, suggest: bool = True
 ) -> AccuracyReport:
     """Accuracy report of a DiscreteSystem against its analog H(s).
 
@@ -325,6 +325,9 @@ def accuracy_report(
         Upper edge, or (low, high), in Hz; default: see module notes.
     limit_db : float
         Magnitude-error limit for the suggested sample rates (default 0.1 dB).
+    suggest : bool
+        Search for the suggested sample rates (most of the report's cost); when
+        False, ``suggested_rate_hz`` is empty.
 
     Returns
     -------
@@ -401,8 +404,12 @@ def accuracy_report(
             f"exact at the samples for inputs {reading} between samples; the frequency "
             "errors show what other inputs see"
         )
-    suggested = suggest_rates(system, (lo, hi), f[mask], limit, opts.get("prewarp_hz"),
-                              opts.get("match_hz") if model.method == "matched-z" else None)
+    suggested = {}
+    if suggest:
+        suggested = suggest_rates(
+            system, (lo, hi), f[mask], limit, opts.get("prewarp_hz"),
+            opts.get("match_hz") if model.method == "matched-z" else None,
+        )
     return AccuracyReport(
         method=model.method,
         rate_hz=rate,
