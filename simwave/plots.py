@@ -536,8 +536,8 @@ def _draw_settling(ax, out, ch, ci, row, origin, factor, unit, levels, limit) ->
         ts = (float(settled) - origin) * factor
         ax.axvline(ts, color=SETTLE_COLOR, lw=1.6, gid="settling-instant")
         ax.annotate(f"settled {format_seconds(row.get('settling_time_s'))}", xy=(ts, final + span),
-                    xytext=(4, -12), textcoords="offset points", fontsize=8, color="#006b4f",
-                    gid="settling-text")
+                    xytext=(-4, -12), textcoords="offset points", ha="right", fontsize=8,
+                    color="#006b4f", gid="settling-text")
     else:
         ax.text(0.02, 0.95, f"never settles within \u00b1{band_pct:g} %", transform=ax.transAxes,
                 va="top", fontsize=8, color=PEAK_COLOR, gid="settling-text")
@@ -781,6 +781,8 @@ METRIC_LABELS = {
     "ripple_pp": ("ripple, peak to peak", ""),
     "record_peak": ("output peak |y|", ""),
     "tone_gain_error_db_worst": ("gain vs H(s), worst", "dB"),
+    "not_settled": ("transitions never settled", ""),
+    "flags": ("differences from H(s) flagged", ""),
 }
 
 
@@ -873,19 +875,29 @@ def plot_batch(
         if key not in inputs:
             inputs.append(key)
     values: dict[tuple[str, str, str], float | None] = {}
+    unsettled: set[tuple[str, str]] = set()
     for r in rows:
         key = _short(r.get("input")) + (f" / {r.get('channel')}" if multi else "")
         for m in metrics:
             v = r.get(m)
             values[(m, key, str(r.get("system")))] = (
                 float(v) if isinstance(v, (int, float)) and math.isfinite(v) else None)
+        if isinstance(r.get("not_settled"), (int, float)) and r["not_settled"] > 0:
+            unsettled.add((key, str(r.get("system"))))
 
     with rc_context(_STYLE):
-        fig = _new_figure((max(6.0, 1.5 + 1.3 * len(inputs) * max(1, len(systems)) / 2),
+        fig = _new_figure((max(7.0, 1.5 + 1.3 * len(inputs) * max(1, len(systems)) / 2),
                            1.0 + 2.6 * len(metrics)))
         axes = fig.subplots(len(metrics), 1, squeeze=False)[:, 0]
         for ax, m in zip(axes, metrics, strict=True):
-            _bar_panel(ax, m, inputs, systems, values)
+            _bar_panel(ax, m, inputs, systems, values, unsettled)
+        handles, labels = axes[0].get_legend_handles_labels()
+        for ax in axes[1:]:
+            for h, lbl in zip(*ax.get_legend_handles_labels(), strict=True):
+                if lbl not in labels:
+                    handles.append(h)
+                    labels.append(lbl)
+        fig.legend(handles, labels, loc="outside lower center", ncol=len(labels))
         fig.suptitle(title or "candidate systems compared across inputs", fontsize=11,
                      fontweight="bold")
     if path is not None:
@@ -893,7 +905,8 @@ def plot_batch(
     return fig
 
 
-def _bar_panel(ax, metric: str, inputs: list[str], systems: list[str], values) -> None:
+def _bar_panel(ax, metric: str, inputs: list[str], systems: list[str], values,
+               unsettled: set[tuple[str, str]]) -> None:
     label, unit = METRIC_LABELS.get(metric, (metric, ""))
     shown = [i for i in inputs if any(values.get((metric, i, s)) is not None for s in systems)]
     factor = 1.0
@@ -901,7 +914,7 @@ def _bar_panel(ax, metric: str, inputs: list[str], systems: list[str], values) -
         biggest = max((abs(values[(metric, i, s)]) for i in shown for s in systems
                        if values.get((metric, i, s)) is not None), default=1.0)
         factor, unit = time_scale(biggest)
-    ax.set_ylabel(_with_unit(label, unit))
+    ax.set_ylabel({"%": "percent", "": "value"}.get(unit, unit))
     ax.grid(axis="x", visible=False)
     if not shown:
         ax.text(0.5, 0.5, f"no values of {metric}", transform=ax.transAxes, ha="center",
@@ -916,15 +929,17 @@ def _bar_panel(ax, metric: str, inputs: list[str], systems: list[str], values) -
         pos = x - 0.4 + width * (k + 0.5)
         heights = [0.0 if v is None else v * factor for v in vals]
         bars = ax.bar(pos, heights, width * 0.92, color=color, label=s, gid=f"bars:{s}")
-        for b, v in zip(bars, vals, strict=True):
+        for b, v, i in zip(bars, vals, shown, strict=True):
             text = "n/a" if v is None else f"{v * factor:.3g}"
+            if v is None and metric.startswith("settling") and (i, s) in unsettled:
+                text = "never\nsettled"
             ax.annotate(text, xy=(b.get_x() + b.get_width() / 2, b.get_height()),
                         xytext=(0, 2 if b.get_height() >= 0 else -9),
                         textcoords="offset points", ha="center", fontsize=7)
     ax.axhline(0, color=LEVEL_COLOR, lw=0.7)
+    ax.margins(y=0.15)
     ax.set_xticks(x, shown)
-    ax.set_title(label, loc="left")
-    ax.legend(loc="best", fontsize=7)
+    ax.set_title(_with_unit(label, unit), loc="left")
 
 
 __all__ = [
