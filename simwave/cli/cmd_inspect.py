@@ -266,9 +266,12 @@ def format_report(report: dict[str, Any]) -> str:
 @click.option("--error-limit", metavar="DB", default=None,
               help="Magnitude-error limit for the suggested sample rates (default 0.1 dB).")
 @click.option("--json", "as_json", is_flag=True, help="Print the report as JSON (exact numbers).")
+@click.option("--plot", "plot_path", metavar="FILE", default=None,
+              help="Also draw magnitude, phase and pole-zero maps (with --rate: the discrete "
+                   "model too) to FILE (.png or .svg).")
 def inspect_command(system_spec, at_hz: str | None, rate: str | None, method: str | None,
                     prewarp: str | None, match_frequency: str | None, band: str | None,
-                    error_limit: str | None, as_json: bool) -> None:
+                    error_limit: str | None, as_json: bool, plot_path: str | None) -> None:
     """Show what a system H(s) is: poles, zeros, gains, stability, modes, bandwidth.
 
     Zeros and poles are in rad/s, frequencies in Hz, times in seconds. With
@@ -279,6 +282,10 @@ def inspect_command(system_spec, at_hz: str | None, rate: str | None, method: st
         system = resolve_system(system_spec)
     for w in caught:  # one plain line each; the table repeats them as notes
         click.echo(f"Warning: {w.message}", err=True)
+    if plot_path is not None:
+        from simwave.plots import check_plot_path
+
+        check_plot_path(plot_path)  # before any work: a bad name fails at once
     freqs = parse_number_list(at_hz, "--at-hz") if at_hz is not None else None
     if freqs is not None:
         bad = [f for f in freqs if not f >= 0]
@@ -303,3 +310,22 @@ def inspect_command(system_spec, at_hz: str | None, rate: str | None, method: st
             "--method, --prewarp, --match-frequency, --band and --error-limit need --rate"
         )
     click.echo(json.dumps(report, indent=2) if as_json else format_report(report))
+    if plot_path is not None:
+        _plot(system, plot_path, rate, method, prewarp, match_frequency)
+
+
+def _plot(system: System, path: str, rate: str | None, method: str | None,
+          prewarp: str | None, match_frequency: str | None) -> None:
+    """``--plot``: the frequency plot, with the same discrete model as the report."""
+    from simwave.plots import plot_frequency
+
+    opts: dict[str, Any] = {}
+    if prewarp:
+        opts["prewarp_hz"] = parse_number(prewarp, "--prewarp")
+    if match_frequency:
+        opts["match_hz"] = parse_number(match_frequency, "--match-frequency")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # already printed with the report
+        plot_frequency(system, path, rate=parse_number(rate, "--rate") if rate else None,
+                       method=method or "ramp-invariant", **opts)
+    click.echo(f"plot written to {path}", err=True)
