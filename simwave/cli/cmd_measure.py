@@ -67,9 +67,12 @@ def _write_json(path: str, text: str, protect: list[str]) -> None:
 @click.option("--json", "as_json", is_flag=True, help="Print the result as JSON.")
 @click.option("-o", "--output", "out_path", metavar="FILE.json", default=None,
               help="Also write the JSON result to this file.")
+@click.option("--plot", "plot_path", metavar="FILE", default=None,
+              help="Also draw the input and output with the first transition's levels, rise "
+                   "time, overshoot and settling band to FILE (.png or .svg).")
 def measure_cmd(file, system_spec, reference_file, input_channel, levels, band, harmonics,
                 sine_hz, tones, steady_fraction, state_levels, kind, method, as_json,
-                out_path, **kwargs):
+                out_path, plot_path, **kwargs):
     """Measure FILE: transitions (rise/fall time, overshoot, undershoot, preshoot, peak,
     settling; per pulse for pulse trains), steady state (final value, gain, error, mean,
     RMS, ripple), sine and multi-tone gain and phase, THD and SINAD; and, with a system,
@@ -109,6 +112,10 @@ def measure_cmd(file, system_spec, reference_file, input_channel, levels, band, 
         from simwave.signals.atomic import check_output_path
 
         check_output_path(out_path, protect=[file, reference_file])
+    if plot_path is not None:
+        from simwave.plots import check_plot_path
+
+        check_plot_path(plot_path)  # before any work: a bad name fails at once
     result = measure(file, reference=reference_file, system=system, **opts)
     text = result.to_json()
     if out_path is not None:
@@ -117,6 +124,12 @@ def measure_cmd(file, system_spec, reference_file, input_channel, levels, band, 
         click.echo(text)
     else:
         click.echo(result.format())
+    if plot_path is not None:
+        from simwave.plots import plot_run
+
+        plot_run(file, reference_file, result, plot_path, read_options=ropts,
+                 input_read_options=ropts)
+        click.echo(f"plot written to {plot_path}", err=True)
 
 
 __all__ = ["measure_cmd"]
