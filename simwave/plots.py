@@ -383,8 +383,10 @@ def plot_run(
             y = _column(out, c.get("name"), ci)
             x = _input_column(inp, out, c)
             unit = c.get("unit") or ""
+            ax_in = _input_axes(ax, x, y, _input_unit(inp, out, c))
             if x is not None:
-                ax.plot(*_envelope(t, x), color=INPUT_COLOR, lw=0.9, label="input", gid="input")
+                ax_in.plot(*_envelope(t, x), color=INPUT_COLOR, lw=0.9, label="input",
+                           gid="input")
             if y is not None:
                 ax.plot(*_envelope(t, y), color=OUTPUT_COLOR, label="output", gid="output")
             ax.set_ylabel(_with_unit(str(c.get("name")), unit))
@@ -392,7 +394,8 @@ def plot_run(
                 ax.axvspan(window[0], window[1], color=RISE_COLOR, alpha=0.15, lw=0,
                            gid="zoom-window")
             if k == 0:
-                ax.legend(loc="lower right", bbox_to_anchor=(1.0, 1.0), ncol=2)
+                handles, labels = _handles(ax, ax_in)
+                ax.legend(handles, labels, loc="lower right", bbox_to_anchor=(1.0, 1.0), ncol=2)
             if k == n_top - 1:
                 ax.set_xlabel("time (s)")
             else:
@@ -424,6 +427,45 @@ def _input_column(inp, out, c: Mapping[str, Any]):
         if col is not None:
             return col
     return _column(out, name, None)
+
+
+def _input_unit(inp, out, c: Mapping[str, Any]) -> str:
+    name = c.get("input_channel")
+    for wave in (inp, out):
+        if wave is not None and name in wave.channels:
+            return wave.units[wave.channels.index(name)]
+    if inp is not None and inp.n_channels == 1:
+        return inp.units[0]
+    return ""
+
+
+#: The input gets its own (right-hand) axis when its range and the output's differ
+#: by more than this factor: a gain of 100 would flatten it to a line otherwise.
+SCALE_RATIO = 3.0
+
+
+def _input_axes(ax, x, y, unit: str):
+    """``ax`` itself, or a right-hand twin axis for an input of a very different range."""
+    if x is None or y is None or x.size == 0 or y.size == 0:
+        return ax
+    rx = float(np.ptp(x)) or float(np.max(np.abs(x))) or 1.0
+    ry = float(np.ptp(y)) or float(np.max(np.abs(y))) or 1.0
+    if 1.0 / SCALE_RATIO <= rx / ry <= SCALE_RATIO:
+        return ax
+    twin = ax.twinx()
+    twin.spines["right"].set_visible(True)
+    twin.grid(False)
+    twin.set_ylabel(_with_unit("input, right axis", unit), color=INPUT_COLOR, fontsize=8)
+    twin.tick_params(axis="y", colors=INPUT_COLOR, labelsize=7)
+    return twin
+
+
+def _handles(ax, ax_in):
+    handles, labels = ax.get_legend_handles_labels()
+    if ax_in is not ax:
+        h2, l2 = ax_in.get_legend_handles_labels()
+        handles, labels = h2 + handles, l2 + labels
+    return handles, labels
 
 
 def _zoom_window(row: Mapping[str, Any], t: np.ndarray, limit: float):
@@ -459,8 +501,9 @@ def _draw_transition(ax, ax_settle, out, inp, ch, ci, row, index, window, limit)
     levels = ch.get("state_levels") or {}
     refs = ch.get("reference_levels") or {}
 
+    ax_in = _input_axes(ax, x, y, _input_unit(inp, out, ch))
     if x is not None:
-        ax.plot(tt, x[sel], color=INPUT_COLOR, lw=0.9, label="input", gid="input")
+        ax_in.plot(tt, x[sel], color=INPUT_COLOR, lw=0.9, label="input", gid="input")
     ax.plot(tt, y[sel], color=OUTPUT_COLOR, label="output", gid="output")
     # state levels (IEEE Std 181 histogram or min/max, as measured)
     for key, word, dy, va in (("low", "low state", 2, "bottom"), ("high", "high state", -2, "top")):
@@ -506,7 +549,9 @@ def _draw_transition(ax, ax_settle, out, inp, ch, ci, row, index, window, limit)
     ax.set_xlabel(f"time from the {row.get('time_origin', 'time origin')} ({unit})", fontsize=8)
     ax.set_ylabel(_with_unit(str(name), vunit))
     ax.set_title(f"{name}: transition {index} ({row.get('direction', '')})", loc="left")
-    ax.legend(loc="center right" if is_rise else "upper right", fontsize=7)
+    handles, labels = _handles(ax, ax_in)
+    ax.legend(handles, labels, loc="lower right" if is_rise else "upper right",
+              bbox_to_anchor=(1.0, 0.08) if is_rise else (1.0, 0.92), fontsize=7)
 
     _draw_settling(ax_settle, out, ch, ci, row, origin, factor, unit, levels, limit)
 
