@@ -46,21 +46,43 @@ class _Progress:
             self.bar.__exit__(None, None, None)
 
 
+#: Key metrics shown in the run summary, with their labels and display scale.
+SUMMARY_METRICS = [
+    ("rise_time_s_mean", "rise time", "s"),
+    ("fall_time_s_mean", "fall time", "s"),
+    ("delay_s_mean", "delay (50 %)", "s"),
+    ("overshoot_pct_worst", "overshoot", "%"),
+    ("undershoot_pct_worst", "undershoot", "%"),
+    ("settling_time_s_longest", "settling time", "s"),
+    ("steady_state_gain", "steady-state gain", ""),
+    ("predicted_dc_gain", "H(0)", ""),
+    ("gain_db", "gain", "dB"),
+    ("predicted_gain_db", "predicted gain", "dB"),
+    ("phase_deg", "phase", "deg"),
+    ("predicted_phase_deg", "predicted phase", "deg"),
+    ("thd_pct", "THD", "%"),
+]
+
+
 def _format_summary(result: dict) -> str:
     run = result["run"]
     acc = run.get("accuracy") or {}
+    check = run.get("rate_check") or {}
     lines = [
         f"wrote      {run['output']}",
         f"samples    {run['samples']} ({run['duration_s']:.6g} s at {run['rate_hz']:g} Hz)",
         f"method     {run['method']}, initial state: {run['initial']}",
     ]
-    mag = acc.get("max_mag_error_db")
-    if mag is not None:
+    if check:
         lines.append(
-            f"model err  {mag:.3g} dB at {acc.get('max_mag_error_at_hz', float('nan')):.6g} Hz, "
-            f"{acc.get('max_phase_error_deg', float('nan')):.3g} deg at "
-            f"{acc.get('max_phase_error_at_hz', float('nan')):.6g} Hz "
-            f"(band up to {acc.get('band_hz', float('nan')):.6g} Hz)"
+            f"model      in-band magnitude error {check['max_in_band_mag_error_db']:+.3g} dB at "
+            f"{check['at_hz']:.4g} Hz (where |H| is within 20 dB of its peak)"
+        )
+    if acc.get("max_mag_error_db") is not None:
+        lines.append(
+            f"           to {acc['band_hz']:.4g} Hz (|H| within 60 dB of peak): "
+            f"{acc['max_mag_error_db']:+.3g} dB at {acc['max_mag_error_at_hz']:.4g} Hz, "
+            f"{acc['max_phase_error_deg']:+.3g} deg at {acc['max_phase_error_at_hz']:.4g} Hz"
         )
     if run.get("oversample"):
         o = run["oversample"]
@@ -71,13 +93,25 @@ def _format_summary(result: dict) -> str:
             f"error {before:+.3g} dB -> {after:+.3g} dB; decimator "
             f"{o.get('decimator', {}).get('taps', '?')}-tap linear-phase FIR"
         )
-    lines.append("channel    peak         peak at (s)   RMS")
+    width = max(8, *(len(ch["name"]) for ch in run["channels"]))
+    lines.append(f"{'channel':<{width + 2}} {'peak':<12} {'peak at (s)':<13} RMS")
     for ch in run["channels"]:
         unit = f" {ch['unit']}" if ch["unit"] else ""
         lines.append(
-            f"  {ch['name']:<8} {ch['peak']:<12.6g} {ch['peak_time_s']:<13.6g} "
+            f"  {ch['name']:<{width}} {ch['peak']:<12.6g} {ch['peak_time_s']:<13.6g} "
             f"{ch['rms']:.6g}{unit}"
         )
+    if result.get("metrics"):
+        from simwave.measure import key_metrics
+
+        for name, values in key_metrics(result["metrics"]).items():
+            shown = [
+                f"{label} {values[key]:.4g}{(' ' + unit) if unit else ''}"
+                for key, label, unit in SUMMARY_METRICS
+                if isinstance(values.get(key), (int, float))
+            ]
+            if shown:
+                lines.append(f"metrics    {name}: " + ", ".join(shown))
     lines.append(f"time       {run['elapsed_s']:.3f} s")
     return "\n".join(lines)
 
@@ -166,7 +200,7 @@ def run_command(source, system_spec, output, method, prewarp, match_frequency, i
     else:
         click.echo(_format_summary(result))
         if metrics:
-            click.echo(f"metrics    {metrics}")
+            click.echo(f"wrote      {metrics}")
     shown = set()
     for w in caught:
         text = str(w.message)
