@@ -97,14 +97,14 @@ def check_plot_path(path: str | os.PathLike[str]) -> str:
         does not exist.
     """
     p = os.fspath(path)
+    if os.path.isdir(p):
+        raise PlotError(f"{p}: is a directory, not a plot file name")
     ext = os.path.splitext(p)[1].lower()
     if ext not in FORMATS:
         shown = ext or "no extension"
         raise PlotError(
             f"{p}: cannot write a plot as {shown}; use a file name ending in .png or .svg"
         )
-    if os.path.isdir(p):
-        raise PlotError(f"{p}: is a directory, not a plot file name")
     folder = os.path.dirname(os.path.abspath(p))
     if not os.path.isdir(folder):
         raise PlotError(f"{p}: folder {folder} does not exist")

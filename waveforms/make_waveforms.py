@@ -17,10 +17,10 @@ thermocouple-hum.wav
     mains pickup and 2 mV RMS noise. 1 kHz, 4 s, 32-bit float WAV. Goes with
     ``examples/mains_hum_notch.toml``.
 valve-actuator.h5
-    Proportional valve on a test stand, two channels at 10 kHz for 0.2 s:
-    ``command`` (0 to 5 V pulses, 15 ms every 50 ms, 0.1 ms edges) and
+    Proportional valve on a test stand, two channels at 10 kHz for 0.3 s:
+    ``command`` (0 to 5 V pulses, 40 ms every 100 ms, 0.1 ms edges) and
     ``position`` (the spool position sensor, V), made by running the command
-    through an invented second-order actuator (60 Hz natural frequency, damping
+    through an invented second-order actuator (80 Hz natural frequency, damping
     0.45, 0.6 V/V) plus 3 mV RMS sensor noise. HDF5 dataset ``/waveform``.
 """
 
@@ -57,10 +57,10 @@ def thermocouple_hum() -> simwave.Waveform:
 
 
 def valve_actuator() -> simwave.Waveform:
-    rate, duration = 10_000.0, 0.2
-    command = simwave.generate("pulse-train", rate, duration, width=0.015, period=0.05,
+    rate, duration = 10_000.0, 0.3
+    command = simwave.generate("pulse-train", rate, duration, width=0.04, period=0.1,
                                delay=0.01, base=0.0, level=5.0, edge=1e-4)
-    wn, zeta, k = 2 * np.pi * 60.0, 0.45, 0.6
+    wn, zeta, k = 2 * np.pi * 80.0, 0.45, 0.6
     # the invented actuator: k wn^2 / (s^2 + 2 zeta wn s + wn^2) (Ogata, Modern Control
     # Engineering, 5th ed., sec. 5-3, standard second-order form)
     t = command.time
