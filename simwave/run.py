@@ -607,37 +607,42 @@ def execute(job: RunJob, progress: Callable[[int, int | None], None] | None = No
     )
     result: dict[str, Any] = {"run": report.to_dict(), "metrics": None}
     if job.metrics is not None:
-        metrics = measure_run(job, system).to_dict()
+        metrics = measure_run(job, system, len(report.channels)).to_dict()
         result["metrics"] = metrics
         write_json(job.metrics, {"run": result["run"], "metrics": metrics}, protect=[job.source])
     return result
 
 
-def measure_run(job: RunJob, system: System):
+def input_read_options(job: RunJob) -> dict[str, Any]:
+    """Reader options that give back exactly the job's input (rate, channels, dataset...)."""
+    opts = dict(job.read_options)
+    if job.rate is not None:
+        opts.setdefault("rate", job.rate)
+    if job.channels:
+        opts.setdefault("channels", list(job.channels))
+    return opts
+
+
+def output_read_options(job: RunJob, n_channels: int) -> dict[str, Any]:
+    """Reader options that give back the job's output alone (not the input written beside it)."""
+    if not job.include_input:
+        return {}
+    from simwave.signals.formats import resolve_format
+
+    family, _ = resolve_format(job.output, job.write_options.get("format"))
+    if family == "hdf5":
+        return {"dataset": job.write_options.get("dataset") or "/waveform"}
+    return {"channels": list(range(n_channels))}  # the input's columns follow the output's
+
+
+def measure_run(job: RunJob, system: System, n_channels: int):
     """Measure a finished job's output file against its input (both read in blocks)."""
     from simwave.measure import measure
 
-    read_opts = dict(job.read_options)
-    if job.rate is not None:
-        read_opts.setdefault("rate", job.rate)
-    if job.channels:
-        read_opts.setdefault("channels", list(job.channels))
-    src = open_source(job.source, rate=job.rate, channels=job.channels,
-                      read_options=job.read_options)
-    reference: Any = job.source
-    out_opts: dict[str, Any] = {}
-    if job.include_input:
-        from simwave.signals.formats import resolve_format
-
-        family, _ = resolve_format(job.output, job.write_options.get("format"))
-        if family == "hdf5":
-            out_opts["dataset"] = job.write_options.get("dataset") or "/waveform"
-        else:  # the input's columns follow the output's
-            out_opts["channels"] = list(range(len(src.channels)))
-    options = dict(job.measure_options)
     return measure(
-        job.output, reference=reference, system=system,
-        read_options=out_opts, reference_read_options=read_opts, **options,
+        job.output, reference=job.source, system=system,
+        read_options=output_read_options(job, n_channels),
+        reference_read_options=input_read_options(job), **job.measure_options,
     )
 
 

@@ -150,10 +150,12 @@ def _format_summary(result: dict) -> str:
               help="Measure the output against the input and write the metrics as JSON.")
 @click.option("--settling-band", metavar="PCT", default=None,
               help="Settling tolerance band in percent of the transition (default 2).")
+@click.option("--plot", "plot_path", metavar="FILE", default=None,
+              help="Draw input and output with the first transition's metrics (.png or .svg).")
 @click.option("--json", "as_json", is_flag=True, help="Print the run report as JSON.")
 def run_command(source, system_spec, output, method, prewarp, match_frequency, initial,
                 initial_output, oversample, with_input, subtype, on_clip, keep_going, metrics,
-                settling_band, as_json, **reader_kwargs):
+                settling_band, plot_path, as_json, **reader_kwargs):
     """Run INPUT through the system and write the output.
 
     INPUT is a waveform file (WAV, FLAC, CSV, HDF5, ...) or a generated
@@ -161,6 +163,10 @@ def run_command(source, system_spec, output, method, prewarp, match_frequency, i
     """
     system = resolve_system(system_spec)
     reader = read_options(reader_kwargs)
+    if plot_path is not None:
+        from simwave.plots import check_plot_path
+
+        check_plot_path(plot_path)  # a bad plot name fails before any work
     write_options = {}
     if subtype is not None:
         write_options["subtype"] = subtype
@@ -195,12 +201,21 @@ def run_command(source, system_spec, output, method, prewarp, match_frequency, i
             result = execute(job, progress=progress)
         finally:
             progress.close()
+    if plot_path is not None:
+        from simwave.plots import plot_run
+        from simwave.run import input_read_options, output_read_options
+
+        plot_run(output, source, result.get("metrics"), plot_path,
+                 read_options=output_read_options(job, len(result["run"]["channels"])),
+                 input_read_options=input_read_options(job))
     if as_json:
         click.echo(json.dumps(result, indent=2, default=str))
     else:
         click.echo(_format_summary(result))
         if metrics:
             click.echo(f"wrote      {metrics}")
+        if plot_path:
+            click.echo(f"wrote      {plot_path}")
     shown = set()
     for w in caught:
         text = str(w.message)
