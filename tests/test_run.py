@@ -298,3 +298,15 @@ def test_cli_run_integer_audio_clipping_is_an_error_unless_chosen(tmp_path):
     assert r.exit_code == 0, r.output
     assert "Caution" in r.output and "dBFS" in r.output
     assert os.path.getsize(out) > 0
+
+
+def test_cli_run_plot_and_bad_plot_name(tmp_path):
+    out, png = tmp_path / "y.csv", tmp_path / "y.png"
+    r = run_cli("run", "step:rate=10k,duration=20m,time=2m", "-s", "2*pi*300/(s+2*pi*300)",
+                "-o", str(out), "--metrics", str(tmp_path / "m.json"), "--plot", str(png))
+    assert r.exit_code == 0, r.output
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    r = run_cli("run", "step:rate=10k,duration=20m", "-s", "1/(s+1)", "-o",
+                str(tmp_path / "z.csv"), "--plot", str(tmp_path / "z.bmpx"))
+    assert r.exit_code == 2 and "Error:" in r.output
+    assert not (tmp_path / "z.csv").exists()
