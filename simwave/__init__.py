@@ -19,5 +19,8 @@ from simwave.signals import blocks, generate, info, open_writer, read, write  # 
 from simwave.measure import key_metrics, measure  # noqa: E402
 from simwave.run import simulate  # noqa: E402
 
-__all__ = ["System", "Waveform", "SimwaveError", "__version__",
-           "read", "write", "blocks", "info", "open_writer", "generate", "measure", "key_metrics", "simulate"]
+__all__ = [
+    "System", "Waveform", "SimwaveError", "__version__",
+    "read", "write", "blocks", "info", "open_writer", "generate",
+    "simulate", "measure", "key_metrics",
+]

@@ -25,7 +25,7 @@ from simwave.cli.system_input import (
     resolve_system,
     system_options,
 )
-from simwave.discrete import METHODS
+from simwave.cli.model_options import method_options, model_kwargs
 from simwave.discrete.accuracy import discrete_section, format_discrete_section
 from simwave.errors import SimwaveError
 from simwave.model.system import System
@@ -253,14 +253,7 @@ def format_report(report: dict[str, Any]) -> str:
 @click.option("--rate", metavar="HZ", default=None,
               help="Also discretize at this sample rate and report the model's error against "
                    "H(j2*pi*f), with the lowest rate per method for --error-limit.")
-@click.option("-m", "--method", type=click.Choice(METHODS), default=None,
-              help="Discretization method for --rate (default ramp-invariant: exact for inputs "
-                   "linear between samples).")
-@click.option("--prewarp", metavar="HZ", default=None,
-              help="bilinear only: frequency where the discrete response equals H(j2*pi*f).")
-@click.option("--match-frequency", metavar="HZ", default=None,
-              help="matched-z only: frequency where the gain is matched when H(0) is 0 or "
-                   "infinite.")
+@method_options(default=None, when="for --rate")
 @click.option("--band", metavar="HZ|LO,HI", default=None,
               help="Band for the error report (default: up to 0.45 x rate or 60 dB down).")
 @click.option("--error-limit", metavar="DB", default=None,
@@ -297,9 +290,7 @@ def inspect_command(system_spec, at_hz: str | None, rate: str | None, method: st
             warnings.simplefilter("always")
             report["discrete"] = discrete_section(
                 system, parse_number(rate, "--rate"), method,
-                prewarp_hz=parse_number(prewarp, "--prewarp") if prewarp else None,
-                match_hz=(parse_number(match_frequency, "--match-frequency")
-                          if match_frequency else None),
+                **model_kwargs(prewarp, match_frequency),
                 band_hz=parse_number_list(band, "--band") if band else None,
                 limit_db=parse_number(error_limit, "--error-limit") if error_limit else 0.1,
             )
@@ -319,11 +310,7 @@ def _plot(system: System, path: str, rate: str | None, method: str | None,
     """``--plot``: the frequency plot, with the same discrete model as the report."""
     from simwave.plots import plot_frequency
 
-    opts: dict[str, Any] = {}
-    if prewarp:
-        opts["prewarp_hz"] = parse_number(prewarp, "--prewarp")
-    if match_frequency:
-        opts["match_hz"] = parse_number(match_frequency, "--match-frequency")
+    opts = model_kwargs(prewarp, match_frequency)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # already printed with the report
         plot_frequency(system, path, rate=parse_number(rate, "--rate") if rate else None,

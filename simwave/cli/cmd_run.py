@@ -11,8 +11,8 @@ import click
 
 from simwave.cli.app import main
 from simwave.cli.input_options import input_options, read_options
+from simwave.cli.model_options import method_options, model_kwargs
 from simwave.cli.system_input import parse_number, parse_number_list, resolve_system, system_options
-from simwave.discrete import METHODS
 from simwave.run import RunJob, execute
 
 AUDIO_CAUTION = (
@@ -122,15 +122,7 @@ def _format_summary(result: dict) -> str:
 @input_options
 @click.option("-o", "--output", required=True, metavar="FILE",
               help="Output file; format from the extension (.wav .flac .csv .h5 ...).")
-@click.option("-m", "--method", type=click.Choice(METHODS), default="ramp-invariant",
-              show_default=True,
-              help="Discretization method. ramp-invariant (default) is exact for inputs "
-                   "linear between samples, the commonest reading of sampled data.")
-@click.option("--prewarp", metavar="HZ", default=None,
-              help="bilinear only: frequency where the discrete response equals H(j2*pi*f).")
-@click.option("--match-frequency", metavar="HZ", default=None,
-              help="matched-z only: frequency where the gain is matched when H(0) is 0 or "
-                   "infinite.")
+@method_options()
 @click.option("--initial", type=click.Choice(["rest", "settled"]), default="rest",
               show_default=True,
               help="rest: zero initial state; settled: steady state for the first sample.")
@@ -181,9 +173,7 @@ def run_command(source, system_spec, output, method, prewarp, match_frequency, i
         output=output,
         method=method,
         initial=initial,
-        prewarp_hz=parse_number(prewarp, "--prewarp") if prewarp is not None else None,
-        match_hz=(parse_number(match_frequency, "--match-frequency")
-                  if match_frequency is not None else None),
+        **model_kwargs(prewarp, match_frequency),
         output_ics=(tuple(parse_number_list(initial_output, "--initial-output"))
                     if initial_output is not None else None),
         oversample=oversample,

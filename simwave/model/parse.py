@@ -42,21 +42,10 @@ from dataclasses import dataclass
 import numpy as np
 
 from simwave.errors import ParseError
+from simwave.units import SI_PREFIXES
 
 #: Engineering (SI prefix) suffixes on numbers. ``m`` is milli, ``M`` is mega.
-SUFFIXES: dict[str, float] = {
-    "f": 1e-15,
-    "p": 1e-12,
-    "n": 1e-9,
-    "u": 1e-6,
-    "\u00b5": 1e-6,  # micro sign
-    "\u03bc": 1e-6,  # Greek small letter mu
-    "m": 1e-3,
-    "k": 1e3,
-    "M": 1e6,
-    "G": 1e9,
-    "T": 1e12,
-}
+SUFFIXES: dict[str, float] = SI_PREFIXES
 
 #: Names the H(s) grammar knows.
 EXPRESSION_NAMES = ("s", "pi", "exp", "sqrt")

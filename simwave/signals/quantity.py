@@ -14,22 +14,10 @@ import re
 from typing import Any
 
 from simwave.errors import WaveformError
+from simwave.units import SI_PREFIXES as _SI
 
-#: SI prefix letter -> factor (BIPM SI Brochure, 9th ed., table 7).
-SI_PREFIXES: dict[str, float] = {
-    "f": 1e-15,
-    "p": 1e-12,
-    "n": 1e-9,
-    "u": 1e-6,
-    "µ": 1e-6,  # micro sign U+00B5
-    "μ": 1e-6,  # Greek small mu U+03BC
-    "m": 1e-3,
-    "": 1.0,
-    "k": 1e3,
-    "M": 1e6,
-    "G": 1e9,
-    "T": 1e12,
-}
+#: SI prefix letter -> factor ("" for none).
+SI_PREFIXES: dict[str, float] = {"": 1.0, **_SI}
 
 _NUMBER = r"[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?"
 _QUANTITY = re.compile(
