@@ -165,7 +165,7 @@ def test_run_plot_from_execute_result_and_files(tmp_path):
     assert text2.get_text() == text.get_text()
 
 
-def test_input_channel_of_the_same_file_and_twin_axis(tmp_path):
+def test_input_channel_of_the_same_file(tmp_path):
     path = os.path.join(WAVEFORMS, "valve-actuator.h5")
     metrics = simwave.measure(path, reference_channel="command").to_dict()
     assert [c["name"] for c in metrics["channels"]] == ["position"]
