@@ -10,22 +10,20 @@ import os
 import sys
 
 import simwave
-from simwave.cli.system_input import load_system_file
 from simwave.plots import plot_frequency, plot_run
-from simwave.run import simulate
 
 HERE = os.path.dirname(os.path.abspath(__file__))
 out_dir = sys.argv[1] if len(sys.argv) > 1 else "api-example-output"
 os.makedirs(out_dir, exist_ok=True)
 
 # 1. the proposed system and a real-looking input
-front_end = load_system_file(os.path.join(HERE, "strain_gauge_front_end.toml"))
+front_end = simwave.System.from_file(os.path.join(HERE, "strain_gauge_front_end.toml"))
 bridge = simwave.read(os.path.join(HERE, "..", "waveforms", "strain-step.csv"))
 print(f"system: {front_end.name}, DC gain {front_end.dc_gain:.4g}, poles {front_end.poles}")
 print(f"input:  {bridge}")
 
 # 2. run it (ramp-invariant: exact for samples joined by straight lines) and save the output
-amplified = simulate(front_end, bridge, method="ramp-invariant")
+amplified = simwave.simulate(front_end, bridge, method="ramp-invariant")
 simwave.write(os.path.join(out_dir, "strain-step-amplified.csv"), amplified)
 
 # 3. measure the output against the input (IEEE Std 181 terms) and print the key numbers

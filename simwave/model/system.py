@@ -12,6 +12,7 @@ Nothing is cancelled: a zero and a pole at the same place both stay, and a
 from __future__ import annotations
 
 import math
+import os
 import warnings
 from collections.abc import Sequence
 from typing import Any
@@ -321,6 +322,13 @@ class System:
         if parsed.ode is not None:
             return cls.from_ode(parsed.ode[0], parsed.ode[1], text=text, name=name)
         return cls.from_coeffs(parsed.num, parsed.den, delay_s=parsed.delay_s, text=text, name=name)
+
+    @classmethod
+    def from_file(cls, path: str | os.PathLike[str]) -> "System":
+        """System from a TOML system file (a name, notes, and one form; see the README)."""
+        from simwave.cli.system_input import load_system_file
+
+        return load_system_file(path)
 
     @classmethod
     def design(
