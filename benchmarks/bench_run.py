@@ -49,6 +49,7 @@ def bench_lsim(repeat: int) -> None:
     wave = simwave.Waveform(x, rate)
     lti = scipy.signal.lti(system.zeros, system.poles, system.gain)
     best_sw = best_ref = np.inf
+    simwave.simulate(system, wave, method="ramp-invariant")  # warm-up: imports, caches
     for _ in range(repeat):
         t0 = time.perf_counter()
         y_sw = simwave.simulate(system, wave, method="ramp-invariant").data[:, 0]
@@ -124,8 +125,23 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--minutes", type=float, default=10.0)
     ap.add_argument("--repeat", type=int, default=3)
+    ap.add_argument("--lsim-only", action="store_true", help=argparse.SUPPRESS)
     args = ap.parse_args()
-    bench_lsim(args.repeat)
+    if args.lsim_only:
+        bench_lsim(args.repeat)
+        return
+    # Part 1 runs twice in fresh processes: with OpenBLAS's default worker threads, and
+    # with one. lsim's large set-up products wake the workers, which then spin for a while
+    # and, on a 2-core machine, steal the core the next contender runs on; simwave's own
+    # linear algebra is on 4x4 matrices and gains nothing from them (lsim's per-sample
+    # loop is single-threaded either way).
+    for label, threads in (("default BLAS threads", None), ("OPENBLAS_NUM_THREADS=1", "1")):
+        env = dict(os.environ)
+        if threads:
+            env["OPENBLAS_NUM_THREADS"] = threads
+        print(f"[{label}]")
+        subprocess.run([sys.executable, __file__, "--lsim-only", "--repeat", str(args.repeat)],
+                       check=True, env=env)
     bench_file(args.minutes, args.repeat)
 
 
