@@ -1,0 +1,290 @@
+"""Where batch tasks run: in this process, on a local process pool, or on a Dask cluster.
+
+Every engine takes the same :class:`~simwave.batch.tasks.PairTask` objects and
+yields ``(task, result)`` as pairs finish, in completion order. The batch
+process only ever holds small result dictionaries; inputs are read and outputs
+written by the workers.
+"""
+
+from __future__ import annotations
+
+import gc
+import itertools
+import multiprocessing
+import os
+import sys
+import time
+import uuid
+from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wait
+from concurrent.futures.process import BrokenProcessPool
+from typing import Any, Iterable, Iterator
+
+from simwave.batch.tasks import PairTask, WorkerStop, run_pair, worker_init
+from simwave.errors import BatchError
+
+#: A pair whose worker died this many times is recorded as failed (not retried again).
+MAX_CRASHES = 2
+
+
+def default_jobs() -> int:
+    """Cores this process may use (the affinity mask where the platform has one)."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # pragma: no cover - macOS, Windows
+        return max(1, os.cpu_count() or 1)
+
+
+def failed_result(task: PairTask, message: str) -> dict[str, Any]:
+    """A result for a pair that did not produce one itself (worker lost, cancelled)."""
+    return {"index": task.index, "status": "failed", "error": message, "elapsed_s": None,
+            "samples": None, "duration_s": None, "rate_hz": None, "channels": [],
+            "warnings": [], "metrics": {}, "worker": None}
+
+
+class InlineEngine:
+    """Run the pairs one after another in this process (``--jobs 1``): no start-up cost."""
+
+    name = "in-process"
+    removes_temporaries = True
+
+    def __init__(self) -> None:
+        self._current: PairTask | None = None
+
+    def describe(self) -> str:
+        return "in this process (--jobs 1)"
+
+    def results(self, tasks: Iterable[PairTask]) -> Iterator[tuple[PairTask, dict]]:
+        for task in tasks:
+            self._current = task
+            result = run_pair(task)
+            self._current = None
+            yield task, result
+
+    def in_flight(self) -> list[PairTask]:
+        return [self._current] if self._current is not None else []
+
+    def stop(self) -> None:
+        """Nothing to stop: the interrupted pair's execute() has cleaned up on the way out."""
+
+    def close(self) -> None:
+        pass
+
+
+def _context() -> multiprocessing.context.BaseContext:
+    # fork is unsafe with the reader/writer threads of the pipeline (and with Dask or BLAS
+    # threads in the parent); forkserver forks from a clean single-threaded server with
+    # simwave already imported, spawn is the portable fallback.
+    if sys.platform != "win32" and "forkserver" in multiprocessing.get_all_start_methods():
+        ctx = multiprocessing.get_context("forkserver")
+        ctx.set_forkserver_preload(["simwave.batch.tasks"])
+        return ctx
+    return multiprocessing.get_context("spawn")
+
+
+class PoolEngine:
+    """A local process pool of ``jobs`` workers (concurrent.futures, forkserver or spawn).
+
+    A pair whose worker process dies (a crash in a native library, the
+    out-of-memory killer) breaks the pool: the pool is rebuilt and the pairs
+    that were in flight are tried again; a pair present at :data:`MAX_CRASHES`
+    breakages is recorded as failed.
+    """
+
+    name = "local pool"
+    removes_temporaries = True
+
+    def __init__(self, jobs: int) -> None:
+        self.jobs = int(jobs)
+        self._executor: ProcessPoolExecutor | None = None
+        self._pending: dict[Future, PairTask] = {}
+
+    def describe(self) -> str:
+        return f"local process pool, {self.jobs} worker{'s' if self.jobs != 1 else ''}"
+
+    def _new_executor(self) -> ProcessPoolExecutor:
+        return ProcessPoolExecutor(max_workers=self.jobs, mp_context=_context(),
+                                   initializer=worker_init)
+
+    def results(self, tasks: Iterable[PairTask]) -> Iterator[tuple[PairTask, dict]]:
+        todo = iter(tasks)
+        retry: list[PairTask] = []
+        crashes: dict[int, int] = {}
+        window = max(4, self.jobs * 4)
+        self._executor = self._new_executor()
+
+        def refill() -> None:
+            while len(self._pending) < window:
+                task = retry.pop() if retry else next(todo, None)
+                if task is None:
+                    return
+                self._pending[self._executor.submit(run_pair, task)] = task
+
+        refill()
+        while self._pending:
+            done, _ = wait(list(self._pending), return_when=FIRST_COMPLETED)
+            broken = False
+            for fut in done:
+                task = self._pending.pop(fut)
+                try:
+                    result = fut.result()
+                except BrokenProcessPool:
+                    broken = True
+                    retry.append(task)
+                    continue
+                except WorkerStop:
+                    raise KeyboardInterrupt from None
+                except Exception as exc:  # noqa: BLE001 - e.g. a result that does not pickle
+                    result = failed_result(task, f"{type(exc).__name__}: {exc}")
+                yield task, result
+            if broken:
+                # Every pair still in the pool fails the same way; collect them, rebuild.
+                wait(list(self._pending))
+                for fut, task in list(self._pending.items()):
+                    if fut.exception() is None:
+                        yield task, fut.result()
+                    else:
+                        retry.append(task)
+                self._pending.clear()
+                self._executor.shutdown(wait=True, cancel_futures=True)
+                self._executor = self._new_executor()
+                for task in list(retry):
+                    crashes[task.index] = crashes.get(task.index, 0) + 1
+                    if crashes[task.index] >= MAX_CRASHES:
+                        retry.remove(task)
+                        yield task, failed_result(
+                            task, "the worker process died while running this pair "
+                                  f"({MAX_CRASHES} times): a crash or the out-of-memory killer")
+            refill()
+        self.close()
+
+    def in_flight(self) -> list[PairTask]:
+        return list(self._pending.values())
+
+    def stop(self) -> None:
+        """Stop now: cancel queued pairs, SIGTERM the workers (they clean up), reap them."""
+        ex = self._executor
+        if ex is None:
+            return
+        # concurrent.futures has no public handle on its processes before Python 3.14
+        # (terminate_workers); _processes is the documented-in-source mapping pid -> Process.
+        procs = list((getattr(ex, "_processes", None) or {}).values())
+        ex.shutdown(wait=False, cancel_futures=True)
+        for p in procs:
+            if p.is_alive():
+                p.terminate()
+        deadline = time.monotonic() + 10.0
+        for p in procs:
+            p.join(max(0.0, deadline - time.monotonic()))
+        for p in procs:
+            if p.is_alive():
+                p.kill()
+                p.join(1.0)
+        self._executor = None
+
+    def close(self) -> None:
+        if self._executor is not None:
+            self._executor.shutdown(wait=True)
+            self._executor = None
+
+
+def _collect_quietly() -> None:
+    """Collect a half-built Dask client without its destructor's traceback on stderr."""
+    hook = sys.unraisablehook
+    sys.unraisablehook = lambda _info: None
+    try:
+        gc.collect()
+    finally:
+        sys.unraisablehook = hook
+
+
+class DaskEngine:
+    """The same tasks on a Dask distributed cluster (``dask.distributed.Client``).
+
+    Workers read the inputs and write the outputs themselves (shared storage);
+    the client gathers only the small result dictionaries. Each pair is
+    submitted once with ``retries=1`` (the task is a pure function of its
+    arguments, so a retry on another worker is safe).
+    """
+
+    name = "dask"
+    #: Pairs already running on the cluster finish (atomically) or clean up on their own.
+    removes_temporaries = False
+
+    def __init__(self, address: Any, timeout_s: float = 10.0) -> None:
+        try:
+            from dask.distributed import Client
+        except ImportError:
+            raise BatchError(
+                "the Dask engine (--scheduler) needs the optional dependency dask[distributed]: "
+                "pip install 'simwave[distributed]'"
+            ) from None
+        self.address = address
+        self.client = None
+        problem = None
+        try:
+            self.client = Client(address, timeout=f"{float(timeout_s)}s", set_as_default=False)
+        except Exception as exc:  # noqa: BLE001 - OSError, TimeoutError, ValueError (bad address)
+            text = str(exc).strip()
+            problem = text.splitlines()[0] if text else type(exc).__name__
+        if problem is not None:
+            _collect_quietly()
+            raise BatchError(
+                f"cannot reach the Dask scheduler at {address} within {timeout_s:g} s: {problem}"
+            )
+        self._pending: dict[str, tuple[Any, PairTask]] = {}
+        self._token = uuid.uuid4().hex[:8]
+
+    def describe(self) -> str:
+        try:
+            threads = sum(self.client.nthreads().values())
+            workers = len(self.client.nthreads())
+        except Exception:  # noqa: BLE001 - description only
+            return f"Dask cluster at {self.address}"
+        return f"Dask cluster at {self.address}, {workers} workers, {threads} threads"
+
+    def results(self, tasks: Iterable[PairTask]) -> Iterator[tuple[PairTask, dict]]:
+        from dask.distributed import as_completed
+
+        todo = iter(tasks)
+        threads = max(1, sum(self.client.nthreads().values()))
+        window = max(64, threads * 8)
+        ac = as_completed(loop=self.client.loop)
+
+        def submit(task: PairTask) -> None:
+            fut = self.client.submit(run_pair, task, False, pure=False, retries=1,
+                                     key=f"simwave-pair-{self._token}-{task.index}")
+            self._pending[fut.key] = (fut, task)
+            ac.add(fut)
+
+        for task in itertools.islice(todo, window):
+            submit(task)
+        for fut in ac:
+            _, task = self._pending.pop(fut.key)
+            try:
+                result = fut.result()
+            except WorkerStop:
+                raise KeyboardInterrupt from None
+            except Exception as exc:  # noqa: BLE001 - worker lost twice, cancelled, ...
+                result = failed_result(task, f"Dask: {type(exc).__name__}: {exc}")
+            fut.release()
+            yield task, result
+            nxt = next(todo, None)
+            if nxt is not None:
+                submit(nxt)
+
+    def in_flight(self) -> list[PairTask]:
+        return [task for _, task in self._pending.values()]
+
+    def stop(self) -> None:
+        """Cancel the pairs not started; those running finish atomically on their workers."""
+        futures = [fut for fut, _ in self._pending.values()]
+        try:
+            if futures:
+                self.client.cancel(futures)
+        finally:
+            self.close()
+
+    def close(self) -> None:
+        client, self.client = getattr(self, "client", None), None
+        if client is not None:
+            client.close()

@@ -1,0 +1,148 @@
+"""``simwave batch``: many inputs x candidate systems, on a local pool or a Dask cluster."""
+
+from __future__ import annotations
+
+import json
+import sys
+import warnings
+
+import click
+
+from simwave.batch import format_comparison, load_description, quick_plan, run_batch
+from simwave.batch.plan import DEFAULT_NAME
+from simwave.batch.progress import BatchProgress
+from simwave.cli.app import main
+from simwave.cli.input_options import input_options, read_options
+from simwave.cli.system_input import parse_number
+from simwave.discrete import METHODS
+from simwave.errors import BatchError
+
+#: Options that only the quick form takes (a description file sets these itself).
+_QUICK_ONLY = {"method": "--method", "output_format": "--format", "name_template": "--name",
+               "settling_band": "--settling-band"}
+
+
+@main.command("batch")
+@click.argument("items", nargs=-1, metavar="DESCRIPTION.toml | INPUTS...")
+@click.option("-s", "--system", "systems", multiple=True, metavar="TEXT|FILE.toml",
+              help="Quick form: a candidate system (H(s) text, ODE text or a TOML system "
+                   "file); repeat for each candidate. INPUTS are then files, globs or "
+                   "generated-signal texts.")
+@click.option("-o", "--output-dir", metavar="DIR", default=None,
+              help="Where outputs, metrics and the summary go (required in the quick form; "
+                   "overrides [output] dir of a description).")
+@click.option("-j", "--jobs", type=click.IntRange(min=1), default=None,
+              help="Local worker processes (default: all cores; 1 runs in this process).")
+@click.option("--scheduler", metavar="ADDRESS", default=None,
+              help="Run on a Dask cluster, e.g. tcp://10.1.2.3:8786 (needs simwave[distributed]; "
+                   "inputs and outputs on storage the workers share).")
+@click.option("--connect-timeout", metavar="SECONDS", default=None,
+              help="How long to try to reach the scheduler (default 10 s).")
+@click.option("--force", is_flag=True,
+              help="Redo pairs that an earlier run finished (default: skip them).")
+@click.option("-m", "--method", type=click.Choice(METHODS), default=None,
+              help="Quick form: discretization method (default ramp-invariant).")
+@click.option("--format", "output_format", metavar="FMT", default=None,
+              help="Quick form: output format: same (as the input; default), csv, h5, wav, ...")
+@click.option("--name", "name_template", metavar="TEMPLATE", default=None,
+              help="Quick form: output file stem, from {input} {system} {parent} {path} {index} "
+                   f"(default {DEFAULT_NAME}).")
+@click.option("--settling-band", metavar="PCT", default=None,
+              help="Quick form: settling tolerance band in percent of the transition (default 2).")
+@input_options
+@click.option("--json", "as_json", is_flag=True,
+              help="Print the counts, summary paths and per-system comparison as JSON.")
+def batch_command(items, systems, output_dir, jobs, scheduler, connect_timeout, force,
+                  method, output_format, name_template, settling_band, as_json, **kwargs):
+    """Run every input through every candidate system; write outputs, metrics and a summary.
+
+    \b
+    simwave batch campaign.toml
+    simwave batch -s lp4.toml -s rc.toml 'recordings/*.wav' -o results
+
+    Exit code 0 when every pair succeeded, 1 when some failed (listed in the
+    summary), 2 for bad input (nothing written), 130 when interrupted (finished
+    outputs stay; run the same command again to resume).
+    """
+    reader = read_options(kwargs)
+    timeout = None
+    if connect_timeout is not None:
+        timeout = parse_number(connect_timeout, "--connect-timeout")
+        if not timeout > 0:
+            raise BatchError(f"--connect-timeout must be > 0 seconds, got {connect_timeout}")
+    if systems:
+        if output_dir is None:
+            raise BatchError("the quick form needs -o DIR for the outputs")
+        if not items:
+            raise BatchError("give the inputs after the options (files, globs or "
+                             "generated-signal texts)")
+        rate = reader.pop("rate", None)
+        channels = reader.pop("channels", None)
+        measure = {}
+        if settling_band is not None:
+            measure["settling_band_pct"] = parse_number(settling_band, "--settling-band")
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # plan notes are printed below, once
+            plan = quick_plan(list(systems), list(items), output_dir, method=method,
+                              output_format=output_format or "same", rate=rate,
+                              channels=channels, read_options=reader,
+                              name_template=name_template or DEFAULT_NAME,
+                              measure_options=measure)
+    else:
+        if len(items) != 1:
+            raise BatchError("give one batch description (FILE.toml), or candidate systems "
+                             "with -s and the inputs (see simwave batch --help)")
+        values = {"method": method, "output_format": output_format,
+                  "name_template": name_template, "settling_band": settling_band}
+        given = [flag for key, flag in _QUICK_ONLY.items() if values[key] is not None]
+        given += [f"reader option {k}" for k in reader]
+        if given:
+            raise BatchError(f"{', '.join(given)}: quick-form option (with -s); with a "
+                             f"description file, set it in {items[0]} instead")
+        plan = load_description(items[0], output_dir=output_dir)
+    for note in plan.warnings:
+        click.echo(f"Warning: {note}", err=True)
+
+    bar: dict[str, BatchProgress] = {}
+
+    def progress(done: int, total: int, failed: int) -> None:
+        if "bar" not in bar:
+            bar["bar"] = BatchProgress(total)
+        bar["bar"].update(done, failed)
+
+    def on_failure(pair, message: str) -> None:
+        line = f"failed: {pair.label}: {message}"
+        if "bar" in bar:
+            bar["bar"].log(line)
+        else:
+            click.echo(line, err=True)
+
+    try:
+        result = run_batch(plan, jobs=jobs, scheduler=scheduler, connect_timeout_s=timeout,
+                           force=force, progress=progress, on_failure=on_failure)
+    finally:
+        if "bar" in bar:
+            bar["bar"].close()
+    c = result.counts
+    if as_json:
+        click.echo(json.dumps({
+            "counts": c, "engine": result.engine, "elapsed_s": result.elapsed_s,
+            "interrupted": result.interrupted, "summary_csv": result.summary_csv,
+            "summary_json": result.summary_json, "comparison": result.comparison,
+        }, indent=2, default=str))
+    else:
+        click.echo(f"{c['pairs']} pairs: {c['ok']} ok, {c['failed']} failed, "
+                   f"{c['not_run']} not run; {c['reused']} reused from an earlier run, "
+                   f"{c['ran']} run now on {result.engine} in {result.elapsed_s:.2f} s")
+        click.echo(f"summary: {result.summary_csv}, {result.summary_json}")
+        table = format_comparison(result.comparison)
+        if table:
+            click.echo("\nPer-system comparison (worst case across inputs, pairs that ran ok):")
+            click.echo(table)
+    if result.interrupted:
+        click.echo(f"Interrupted: {c['not_run']} of {c['pairs']} pairs not run; run the same "
+                   "command again to resume.", err=True)
+    elif c["failed"]:
+        click.echo(f"{c['failed']} of {c['pairs']} pairs failed (see the summary's error "
+                   "column).", err=True)
+    sys.exit(result.exit_code)
