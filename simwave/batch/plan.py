@@ -603,12 +603,15 @@ def _input_entries(inputs: Any, base: str, source: str, lines: KeyLines | None,
                 found = [full]
             for p in found:
                 absp = os.path.abspath(p)
-                rel = os.path.relpath(absp, base)
-                label = rel if not rel.startswith("..") else absp
+                try:
+                    label = os.path.relpath(absp, base)
+                except ValueError:  # another drive (Windows)
+                    label = absp
                 stem, ext = os.path.splitext(os.path.basename(absp))
                 parent = os.path.basename(os.path.dirname(absp)) or "root"
                 entries.append(InputEntry(label, absp, stem, parent,
-                                          _safe_stem(os.path.splitext(label)[0]), True,
+                                          _safe_stem(os.path.splitext(label)[0].replace(
+                                              "..", "up")), True,
                                           rate, channels, read, ext.lower(), w))
     if not entries:
         if notes:  # each note names its own place

@@ -133,7 +133,7 @@ def batch_command(items, systems, output_dir, jobs, scheduler, connect_timeout, 
     else:
         click.echo(f"{c['pairs']} pairs: {c['ok']} ok, {c['failed']} failed, "
                    f"{c['not_run']} not run; {c['reused']} reused from an earlier run, "
-                   f"{c['ran']} run now on {result.engine} in {result.elapsed_s:.2f} s")
+                   f"{c['ran']} run now ({result.engine}) in {result.elapsed_s:.2f} s")
         click.echo(f"summary: {result.summary_csv}, {result.summary_json}")
         table = format_comparison(result.comparison)
         if table:
