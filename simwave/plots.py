@@ -498,14 +498,16 @@ def _draw_transition(ax, ax_settle, out, inp, ch, ci, row, index, window, limit)
     is_rise = "rise_time_s" in row
     dur_key = "rise_time_s" if is_rise else "fall_time_s"
     dur_word = "rise time" if is_rise else "fall time"
-    levels = ch.get("state_levels") or {}
-    refs = ch.get("reference_levels") or {}
+    # the transition's own state and reference levels when the measurement gives them
+    # (input-aligned segments), else the channel's
+    levels = row.get("state_levels") or ch.get("state_levels") or {}
+    refs = row.get("reference_levels") or ch.get("reference_levels") or {}
 
     ax_in = _input_axes(ax, x, y, _input_unit(inp, out, ch))
     if x is not None:
         ax_in.plot(tt, x[sel], color=INPUT_COLOR, lw=0.9, label="input", gid="input")
     ax.plot(tt, y[sel], color=OUTPUT_COLOR, label="output", gid="output")
-    # state levels (IEEE Std 181 histogram or min/max, as measured)
+    # state levels (as measured: histogram, min/max or segment ends)
     for key, word, dy, va in (("low", "low state", 2, "bottom"), ("high", "high state", -2, "top")):
         if levels.get(key) is not None:
             ax.axhline(levels[key], color=LEVEL_COLOR, ls="--", lw=0.8, gid=f"state-{key}")

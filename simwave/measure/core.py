@@ -18,6 +18,7 @@ import numpy as np
 
 from simwave.errors import MeasurementError
 from simwave.measure import levels as lv
+from simwave.measure import segments as seg
 from simwave.measure import steady as st
 from simwave.measure.predict import Predictions, compare_rows, predictions_for
 from simwave.measure.result import MeasurementResult
@@ -46,6 +47,16 @@ SINE_MIN_EXPLAINED = 0.5
 RAMP_R2 = 0.999
 #: Fewest samples a steady-state window may have.
 MIN_WINDOW = 8
+#: A level change smaller than this fraction of the channel's range is no transition
+#: (input-aligned segments: the output did not follow that input transition; our choice).
+NO_CHANGE_FRACTION = 0.05
+
+
+def _method_text(m_low: str | None, m_high: str | None, basis: str) -> str:
+    """How a pair of state levels was found, e.g. "segment end (input-aligned)"."""
+    if m_low == m_high:
+        return f"{m_low} ({basis})"
+    return f"low: {m_low}, high: {m_high} ({basis})"
 
 
 @dataclass
@@ -59,6 +70,7 @@ class MeasureOptions:
     tones_hz: list | None = None
     steady_fraction: float = 0.25
     state_level_method: str = "histogram"
+    segment_end_fraction: float = seg.SEGMENT_END_FRACTION
     signal_kind: str = "auto"
     reference_channel: Any = None
     discrete: Any = None
@@ -104,6 +116,16 @@ class MeasureOptions:
         if not (0.0 < frac <= 1.0):
             raise MeasurementError(f"steady-state fraction must be in (0, 1], got {frac:g}")
         self.steady_fraction = frac
+        try:
+            sef = float(self.segment_end_fraction)
+        except (TypeError, ValueError):
+            raise MeasurementError(
+                f"segment end fraction must be a number in (0, 0.5], got "
+                f"{self.segment_end_fraction!r}"
+            ) from None
+        if not (0.0 < sef <= 0.5):
+            raise MeasurementError(f"segment end fraction must be in (0, 0.5], got {sef:g}")
+        self.segment_end_fraction = sef
         if self.sine_hz is not None:
             f = float(self.sine_hz)
             if not (f > 0 and math.isfinite(f)):
@@ -142,6 +164,7 @@ class MeasureOptions:
             "tones_hz": self.tones_hz,
             "steady_fraction": self.steady_fraction,
             "state_level_method": self.state_level_method,
+            "segment_end_fraction": self.segment_end_fraction,
             "signal_kind": self.signal_kind,
             "reference_channel": self.reference_channel,
             "gain_tolerance_db": self.gain_tolerance_db,
@@ -206,6 +229,13 @@ class _Chan:
     edges: list = field(default_factory=list)
     window: np.ndarray | None = None
     null_reasons: dict = field(default_factory=dict)
+    # segment levels: "input-aligned" or "output state intervals" when used, the segments,
+    # per-transition level information (input-aligned) and input transitions with no
+    # output transition
+    level_mode: str | None = None
+    segments: list = field(default_factory=list)
+    edge_info: list = field(default_factory=list)
+    unmatched: list = field(default_factory=list)
 
     @property
     def constant(self) -> bool:
@@ -333,9 +363,12 @@ class _Measurement:
             self.notes.append(f"steady-state window capped at {w_len} samples (max_window_samples)")
         self.regions: dict[int, list[EdgeRegions]] = {}
         self.pre_step_value: dict[int, float] = {}
+        self._values: dict[int, dict[int, float]] = {}
         self._pass_levels()
+        self._levels_from_output_intervals()
         self._classify()
         self._pass_edges()
+        self._input_aligned_levels()
         self._pass_regions()
         self.pred = predictions_for(self.system, self.o, self.rate)
         return MeasurementResult(self._assemble())
@@ -373,6 +406,120 @@ class _Measurement:
             ch.refs = lv.reference_values(ch.levels, self.o.reference_levels_pct)
         self.hist = hist
         self._n_out = n_out
+
+    # ------------------------------------------------------------------ segment levels
+    def _collect(self, segs_by_c: dict[int, list]) -> None:
+        """One pass: each output channel's segments analysed at their ends."""
+        cols = {
+            c: seg.SegmentCollector(ss, self.o.segment_end_fraction, self.o.max_window_samples)
+            for c, ss in segs_by_c.items()
+            if ss
+        }
+        if not cols:
+            return
+        for start, a, _b in self.src.blocks():
+            for c, col in cols.items():
+                col.feed(a[:, c], start)
+        for col in cols.values():
+            col.finish()
+
+    def _find_edges(self, refs_by_c: dict[int, tuple]) -> dict[int, list[Edge]]:
+        """One pass: transitions of output channels with the given reference levels."""
+        finders = {c: EdgeFinder(*r) for c, r in refs_by_c.items()}
+        if finders:
+            for start, a, _b in self.src.blocks():
+                for c, f in finders.items():
+                    f.feed(a[:, c], start)
+        return {c: f.edges for c, f in finders.items()}
+
+    def _min_change(self, ch: _Chan) -> float:
+        """Smallest level change that counts as a transition of this channel."""
+        return NO_CHANGE_FRACTION * (ch.hi - ch.lo)
+
+    def _decide(self, segs: list, ch: _Chan) -> None:
+        """Each segment's level, its settling judged against the transitions beside it."""
+        meds = [s.median for s in segs]
+        floor = self._min_change(ch)
+        for i, s in enumerate(segs):
+            amps = [abs(meds[k] - meds[i]) for k in (i - 1, i + 1) if 0 <= k < len(segs)]
+            s.decide(max(amps + [floor]), self.o.settling_band_pct)
+
+    def _levels_from_output_intervals(self) -> None:
+        """Without a reference input: the state levels from the ends of the output's own
+        state intervals, to check the histogram against (and replace it where ringing fools
+        it). Transitions are found first with wide hysteresis (25/75 % of the histogram or
+        min/max levels), the intervals' ends give levels, the transitions are found again
+        on those, and the intervals' ends measured again."""
+        o = self.o
+        if o.state_level_method == "minmax":
+            return
+        forced_other = o.signal_kind not in ("auto", "transitions") or (
+            o.signal_kind == "auto" and (o.sine_hz is not None or o.tones_hz is not None)
+        )
+        if forced_other:
+            return
+        cands = [
+            c
+            for c, ch in enumerate(self.outs)
+            if self.ref_for(c) is None and ch.levels is not None and not ch.constant
+        ]
+        if not cands:
+            return
+        refs = {c: lv.reference_values(self.outs[c].levels, (25.0, 50.0, 75.0)) for c in cands}
+        found: dict[int, tuple] = {}
+        for _round in range(2):
+            edges = self._find_edges(refs)
+            segs = {c: seg.segments_between(e, self.n) for c, e in edges.items() if e}
+            self._collect(segs)
+            found = {}
+            for c, ss in segs.items():
+                self._decide(ss, self.outs[c])
+                low, m_low, _ = seg.pooled_level(ss, 0)
+                high, m_high, _ = seg.pooled_level(ss, 1)
+                if low is None or high is None or not high - low > self._min_change(self.outs[c]):
+                    continue
+                found[c] = (low, high, m_low, m_high, ss)
+            if not found:
+                return
+            refs = {
+                c: lv.reference_values(lv.StateLevels(f[0], f[1], ""), o.reference_levels_pct)
+                for c, f in found.items()
+            }
+        for c, (low, high, m_low, m_high, ss) in found.items():
+            self._choose_interval_levels(c, low, high, m_low, m_high, ss)
+
+    def _choose_interval_levels(self, c, low, high, m_low, m_high, ss) -> None:
+        ch, o = self.outs[c], self.o
+        hist = ch.levels
+        established = seg.METHOD_UNSETTLED not in (m_low, m_high)
+        if not established and o.state_level_method != "segment":
+            return  # the intervals' ends are no better than the histogram
+        amp = high - low
+        tol = 0.5 * o.settling_band_pct / 100.0 * amp
+        if (
+            o.state_level_method == "histogram"
+            and hist.method == "histogram"
+            and abs(hist.low - low) <= tol
+            and abs(hist.high - high) <= tol
+        ):
+            ch.segments, ch.level_mode = ss, "output state intervals (check)"
+            return  # the histogram agrees with the settled intervals: keep the standard's
+        if hist.method == "histogram":
+            off = max(abs(hist.low - low), abs(hist.high - high))
+            why = (
+                f"the histogram modes (low {hist.low:.6g}, high {hist.high:.6g}) differ from "
+                f"the state intervals' ends by {100.0 * off / amp:.3g} % of the amplitude "
+                "(ringing turning points pile up samples in a short record)"
+            )
+        elif hist.note:
+            why = hist.note.replace("; min/max used", "")
+        else:
+            why = "state-level method 'segment' asked for"
+        method = _method_text(m_low, m_high, "output state intervals")
+        ch.levels = lv.StateLevels(low, high, method, note=f"{why}; levels from {method}")
+        ch.refs = lv.reference_values(ch.levels, o.reference_levels_pct)
+        ch.two_state_fraction = self.hist.fraction_near(c, (low, high), 0.1 * amp)
+        ch.segments, ch.level_mode = ss, "output state intervals"
 
     # ------------------------------------------------------------------ kinds
     def _window_t(self, m: int) -> np.ndarray:
@@ -478,6 +625,118 @@ class _Measurement:
         for i in active:
             chans[i].edges = chans[i].finder.edges
 
+    # ------------------------------------------------------------------ input-aligned levels
+    def _input_aligned_levels(self) -> None:
+        """With a reference input of transitions: cut each output channel at the input's
+        transitions; every transition's initial level is the settled end of the segment
+        before it, its final level the settled end of its own segment; the output
+        transition is then searched between the two, on its own reference levels."""
+        o = self.o
+        if o.state_level_method == "minmax":
+            return
+        todo: dict[int, list] = {}
+        for c, ch in enumerate(self.outs):
+            ri = self.ref_for(c)
+            if ch.kind != "transitions" or ch.constant or ri is None or not self.refs[ri].edges:
+                continue
+            todo[c] = seg.segments_between(self.refs[ri].edges, self.n)
+        if not todo:
+            return
+        self._collect(todo)
+        plans: dict[int, list] = {}
+        for c, segs in todo.items():
+            ch = self.outs[c]
+            in_edges = self.refs[self.ref_for(c)].edges
+            self._decide(segs, ch)
+            ch.segments, ch.level_mode = segs, "input-aligned"
+            ch.edges, ch.edge_info, ch.unmatched = [], [], []
+            plans[c] = []
+            for i in range(len(in_edges)):
+                a, b = segs[i], segs[i + 1]
+                amp = b.level - a.level
+                if not abs(amp) > self._min_change(ch):
+                    ch.unmatched.append(
+                        (
+                            i,
+                            f"the output level hardly changes across it (from {a.level:.6g} "
+                            f"to {b.level:.6g}, less than {100 * NO_CHANGE_FRACTION:g} % of "
+                            "the channel's range): no output transition",
+                        )
+                    )
+                    continue
+                lo_, hi_ = min(a.level, b.level), max(a.level, b.level)
+                refs = lv.reference_values(lv.StateLevels(lo_, hi_, ""), o.reference_levels_pct)
+                direction = 1 if amp > 0 else -1
+                seed = 0 if direction > 0 else 1  # the output sits at its initial level
+                finder = EdgeFinder(*refs, seed_state=seed, seed_index=a.w_start)
+                plans[c].append((i, a.w_start, b.end, direction, refs, finder))
+        self._pass_aligned_edges(plans)
+        for c, plan in plans.items():
+            ch = self.outs[c]
+            in_edges = self.refs[self.ref_for(c)].edges
+            segs = ch.segments
+            for i, _lo, _hi, direction, refs, finder in plan:
+                e = next(
+                    (
+                        e
+                        for e in finder.edges
+                        if e.direction == direction and e.j >= in_edges[i].k_start
+                    ),
+                    None,
+                )
+                if e is None:
+                    ch.unmatched.append(
+                        (
+                            i,
+                            "the output does not pass from its level before to its level after "
+                            f"this input transition (reference levels {refs[0]:.6g} and "
+                            f"{refs[2]:.6g}) before the next input transition",
+                        )
+                    )
+                    continue
+                e.refs = refs
+                ch.edges.append(e)
+                ch.edge_info.append({"match": i, "before": segs[i], "after": segs[i + 1]})
+            ch.unmatched.sort()
+            self._aligned_channel_levels(c, ch, segs)
+
+    def _pass_aligned_edges(self, plans: dict[int, list]) -> None:
+        """One pass feeding each input transition's own edge finder its search region (from
+        the end window of the segment before to the end of the segment after)."""
+        spans = {
+            c: (np.array([p[1] for p in pl]), np.array([p[2] for p in pl]))
+            for c, pl in plans.items()
+            if pl
+        }
+        if not spans:
+            return
+        for start, a, _b in self.src.blocks():
+            last = start + a.shape[0] - 1
+            for c, (lo, hi) in spans.items():
+                y = a[:, c]
+                for r in np.flatnonzero((lo <= last) & (hi >= start)):
+                    _, rlo, rhi, _, _, finder = plans[c][r]
+                    s0, s1 = max(rlo, start), min(rhi, last)
+                    finder.feed(y[s0 - start : s1 - start + 1], s0)
+
+    def _aligned_channel_levels(self, c: int, ch: _Chan, segs: list) -> None:
+        """The channel's two state levels: the segments' levels pooled by input state."""
+        g0, m0, _ = seg.pooled_level(segs, 0)
+        g1, m1, _ = seg.pooled_level(segs, 1)
+        if g0 is None or g1 is None or not abs(g1 - g0) > self._min_change(ch):
+            return  # the output does not follow the input's two states: keep the histogram
+        (low, m_low), (high, m_high) = sorted(((g0, m0), (g1, m1)))
+        method = _method_text(m_low, m_high, "input-aligned")
+        unsettled = [s for s in segs if not s.settled]
+        note = None
+        if unsettled:
+            note = (
+                f"{len(unsettled)} of {len(segs)} segments not settled at their ends "
+                "(see each transition's initial/final level details)"
+            )
+        ch.levels = lv.StateLevels(low, high, method, note=note)
+        ch.refs = lv.reference_values(ch.levels, self.o.reference_levels_pct)
+
     # ------------------------------------------------------------------ pass 4
     def _pass_regions(self) -> None:
         chans = self.outs + self.refs
@@ -532,6 +791,7 @@ class _Measurement:
                 e.set_instants(values[i], ch.refs)
         self.pre_step_value = {c: values[c][k] for c, k in self.pre_step_index.items()}
         self.regions = regions
+        self._values = values
 
     def _regions_for(self, c: int, ch: _Chan) -> list[EdgeRegions]:
         ri = self.ref_for(c)
@@ -542,7 +802,9 @@ class _Measurement:
         pre_starts, matches = [], []
         for i, e in enumerate(ch.edges):
             m = None
-            if in_mids.size:
+            if ch.edge_info:
+                m = ch.edge_info[i]["match"]  # input-aligned: found in its own segment
+            elif in_mids.size:
                 k = int(np.searchsorted(in_mids, e.k_mid, side="right")) - 1
                 m = k if k >= 0 else None
             matches.append(m)
@@ -556,8 +818,13 @@ class _Measurement:
         for i, e in enumerate(ch.edges):
             post_end = pre_starts[i + 1] - 1 if i + 1 < len(ch.edges) else self.n - 1
             post_end = max(post_end, e.j)
-            final = lvls.high if e.direction > 0 else lvls.low
-            initial = lvls.low if e.direction > 0 else lvls.high
+            if ch.edge_info:
+                initial = ch.edge_info[i]["before"].level
+                final = ch.edge_info[i]["after"].level
+                band_abs = self.o.settling_band_pct / 100.0 * abs(final - initial)
+            else:
+                final = lvls.high if e.direction > 0 else lvls.low
+                initial = lvls.low if e.direction > 0 else lvls.high
             r = EdgeRegions(e, pre_starts[i], post_end, initial, final, band_abs)
             r.match = matches[i]  # type: ignore[attr-defined]
             out.append(r)
@@ -673,13 +940,31 @@ class _Measurement:
             return
         d["state_levels"] = ch.levels.to_dict()
         d["reference_levels"] = self._levels_dict(ch)
-        rows = [self._transition_row(ch, r, ref, i) for i, r in enumerate(self.regions.get(c, []))]
+        if ch.level_mode:
+            d["state_levels"]["basis"] = ch.level_mode
+        rows = [
+            self._transition_row(c, ch, r, ref, i) for i, r in enumerate(self.regions.get(c, []))
+        ]
         d["transitions"] = rows
+        if ch.unmatched and ref is not None:
+            d["unmatched_input_transitions"] = [
+                {
+                    "input_transition": i,
+                    "input_crossing_50_s": self.t(ref.edges[i].mid),
+                    "reason": why,
+                }
+                for i, why in ch.unmatched
+            ]
         if not rows:
-            reasons["transitions"] = (
-                "no transition found: the waveform never goes from one reference level "
-                f"({ch.refs[0]:.6g}) to the other ({ch.refs[2]:.6g})"
-            )
+            if ch.unmatched:
+                reasons["transitions"] = (
+                    "no output transition found for any input transition: " + ch.unmatched[0][1]
+                )
+            else:
+                reasons["transitions"] = (
+                    "no transition found: the waveform never goes from one reference level "
+                    f"({ch.refs[0]:.6g}) to the other ({ch.refs[2]:.6g})"
+                )
         d["transition_summary"] = summarize(rows, WORST_IS_MAX + ("peak_time_s",), worst=True)
         pulses = pulse_table(ch.edges, self.rate, self.t0)
         if pulses:
@@ -688,22 +973,93 @@ class _Measurement:
                 pulses, ("pulse_duration_s", "period_s", "duty_pct"), worst=False
             )
 
-    def _transition_row(self, ch: _Chan, r: EdgeRegions, ref: _Chan | None, index: int) -> dict:
-        e, lvls, rate = r.edge, ch.levels, self.rate
-        amp = lvls.amplitude
+    def _transition_levels(self, ch: _Chan, r: EdgeRegions, index: int, row: dict) -> tuple:
+        """Per-transition state and reference levels, how they were found, and whether the
+        final level is established (settled or extrapolated)."""
+        refs = r.edge.refs if r.edge.refs is not None else ch.refs
+        lo, hi = min(r.initial, r.final), max(r.initial, r.final)
+        amp = hi - lo
+        p = self.o.reference_levels_pct
+        info = ch.edge_info[index] if ch.edge_info else None
+        if info is not None:
+            before, after = info["before"], info["after"]
+            method = _method_text(
+                before.method if r.final > r.initial else after.method,
+                after.method if r.final > r.initial else before.method,
+                "input-aligned",
+            )
+            row["initial_level_detail"] = before.detail(self.rate, self.t0, amp)
+            row["final_level_detail"] = after.detail(self.rate, self.t0, amp)
+            settled = (before.settled, after.settled)
+            final_ok = after.method != seg.METHOD_UNSETTLED
+            initial_ok = before.method != seg.METHOD_UNSETTLED
+        else:
+            method = ch.levels.method
+            settled = (None, None)
+            final_ok = initial_ok = True
+        row["state_levels"] = {"low": lo, "high": hi, "amplitude": amp, "method": method}
+        row["reference_levels"] = {
+            "low_pct": p[0],
+            "mid_pct": p[1],
+            "high_pct": p[2],
+            "low": refs[0],
+            "mid": refs[1],
+            "high": refs[2],
+        }
+        if settled[0] is not None:
+            row["initial_level_settled"] = bool(settled[0])
+            row["final_level_settled"] = bool(settled[1])
+        return amp, refs, initial_ok, final_ok
+
+    def _segment_after(self, ch: _Chan, index: int, e: Edge):
+        """The segment that holds this transition's final state, if segments were measured."""
+        if ch.edge_info:
+            return ch.edge_info[index]["after"]
+        if not ch.segments:
+            return None
+        slack = (e.j - e.k_start) + 2
+        best = min(ch.segments, key=lambda s: abs(s.start - e.j))
+        return best if abs(best.start - e.j) <= slack else None
+
+    def _transition_row(
+        self, c: int, ch: _Chan, r: EdgeRegions, ref: _Chan | None, index: int
+    ) -> dict:
+        e, rate = r.edge, self.rate
         reasons: dict = {}
         dur = (e.end - e.start) / rate
+        dur_key = "rise_time_s" if e.direction > 0 else "fall_time_s"
         row: dict = {
             "index": index,
             "direction": e.name,
             "start_s": self.t(e.start),
             "crossing_50_s": self.t(e.mid),
             "end_s": self.t(e.end),
-            ("rise_time_s" if e.direction > 0 else "fall_time_s"): dur,
+            dur_key: dur,
             "transition_duration_s": dur,
             "initial_level": r.initial,
             "final_level": r.final,
         }
+        amp, refs, initial_ok, final_ok = self._transition_levels(ch, r, index, row)
+        if ch.edge_info:
+            vals = self._values.get(c, {})
+            near = refs[0] if e.direction > 0 else refs[2]
+            v = vals.get(e.k_start)
+            if v is not None and e.direction * (v - near) > 0:
+                # the finder was seeded with the initial state: the output never was at the
+                # near reference level in the search region, so there is no start instant
+                row[dur_key] = row["transition_duration_s"] = None
+                row["start_s"] = None
+                reasons[dur_key] = reasons["transition_duration_s"] = (
+                    "the output is not at its initial level before this transition (the "
+                    f"previous segment does not settle to within the {refs[0]:.6g} .. "
+                    f"{refs[2]:.6g} reference levels): no start instant"
+                )
+        if ch.edge_info and ref is not None:
+            in_lv = ref.levels
+            in_dir = ref.edges[ch.edge_info[index]["match"]].direction
+            dx = (in_lv.high - in_lv.low) * in_dir
+            if dx:
+                row["level_change_gain"] = (r.final - r.initial) / dx
         m = getattr(r, "match", None)
         if ref is not None and m is not None:
             ie = ref.edges[m]
@@ -747,7 +1103,45 @@ class _Measurement:
             row["peak_value"], row["peak_time_s"] = pk[0], (pk[1] - origin) / rate
         row["settling_band_pct"] = self.o.settling_band_pct
         si = r.settle_instant()
-        if si is None:
+        if not (initial_ok and final_ok):
+            # a level the record does not establish: the instants are kept (found on the
+            # provisional level, the median of the segment's end) but nothing is given in
+            # percent of an amplitude that is not known, nor a band around it
+            which = " and ".join(
+                w for w, ok in (("initial", initial_ok), ("final", final_ok)) if not ok
+            )
+            row["levels_note"] = (
+                f"{which} level not established: its segment neither settles nor rings enough "
+                "to extrapolate (the record gives it too little time); the instants are found "
+                "on the median of the segment's end as a provisional level"
+            )
+            why = f"{which} level not established (see levels_note)"
+            for k in (
+                dur_key,
+                "transition_duration_s",
+                "overshoot_pct",
+                "undershoot_pct",
+                "preshoot_pct",
+                "settling_time_s",
+            ):
+                row[k] = None
+                reasons[k] = why
+            row["settled_at_s"] = None
+        elif si is not None and (after := self._segment_after(ch, index, e)) is not None and not (
+            after.settled
+        ):
+            # inside the band for a moment, but the end of its segment still moves by more
+            # than the band: it has not settled, it is passing through (IEEE Std 181-2011:
+            # settling means entering the band and remaining in it)
+            row["settling_time_s"] = None
+            row["settled_at_s"] = None
+            where = "the end of the record" if r.post_end >= self.n - 1 else "the next transition"
+            reasons["settling_time_s"] = (
+                f"never settles before {where}: the last part of the segment after it still "
+                f"moves by {100.0 * after.drift / amp:.3g} % of amplitude, more than the "
+                f"±{self.o.settling_band_pct:g} % band (it is only passing through the band)"
+            )
+        elif si is None:
             row["settling_time_s"] = None
             row["settled_at_s"] = None
             where = "the end of the record" if r.post_end >= self.n - 1 else "the next transition"
@@ -834,7 +1228,12 @@ class _Measurement:
             last_in = ref.edges[-1]
             x_init = ref.levels.low if last_in.direction > 0 else ref.levels.high
             y_init = self.pre_step_value[c]
-            if ch.levels is not None:
+            if ch.level_mode == "input-aligned" and len(ch.segments) >= 2:
+                # the settled end of the segment before the last input transition
+                before = ch.segments[-2]
+                y_init = before.level
+                d["initial_output_level_method"] = before.method
+            elif ch.levels is not None:
                 # snap to the output state level it sits at (noise), if it is near one
                 near = min((ch.levels.low, ch.levels.high), key=lambda v: abs(v - y_init))
                 if abs(near - y_init) <= 0.1 * ch.levels.amplitude:

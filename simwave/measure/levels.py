@@ -25,7 +25,12 @@ HISTOGRAM_BINS = 2**15
 #: near 1. Our own choice; IEEE Std 181-2011 leaves the test for bimodality to the user.
 PEAK_TO_MEAN_MIN = 3.0
 
-STATE_LEVEL_METHODS = ("histogram", "minmax")
+#: Option values: "histogram" (the default: the IEEE 181 histogram, checked against and,
+#: where ringing fools it, replaced by the settled ends of the state intervals; per
+#: transition from input-aligned segments when a reference input is given), "segment"
+#: (the segment ends wherever they can be found, see :mod:`simwave.measure.segments`),
+#: "minmax" (smallest and largest sample, nothing else).
+STATE_LEVEL_METHODS = ("histogram", "minmax", "segment")
 
 
 @dataclass
@@ -218,10 +223,11 @@ def state_levels(hist: LevelHistogram, c: int, method: str = "histogram") -> Sta
         The channel's accumulated histogram.
     c : int
         Channel index in ``hist``.
-    method : {"histogram", "minmax"}
-        ``"histogram"``: split the histogram at the midpoint of its range and take the
-        mode of each half (falls back to min/max, and says so, when a half holds no clear
-        peak). ``"minmax"``: the smallest and largest sample.
+    method : {"histogram", "minmax", "segment"}
+        ``"histogram"`` (and ``"segment"``, whose starting point this is): split the
+        histogram at the midpoint of its range and take the mode of each half (falls back
+        to min/max, and says so, when a half holds no clear peak). ``"minmax"``: the
+        smallest and largest sample.
 
     Returns
     -------
@@ -240,6 +246,7 @@ def state_levels(hist: LevelHistogram, c: int, method: str = "histogram") -> Sta
         )
     if method == "minmax":
         return StateLevels(lo, hi, "minmax")
+    # "segment" starts from the histogram too: its transitions cut the record into segments
     counts = hist.counts[c]
     x = hist.centers(c)
     width = (hi - lo) / hist.n_bins

@@ -276,6 +276,7 @@ def compare_rows(ch: dict, p: Predictions, o: Any) -> list[dict]:
                     "H(0) = 0: compared, not flagged",
                 )
             )
+    rows.extend(_level_gain_rows(ch, p))
     sine = ch.get("sine") or {}
     if "predicted_gain_db" in sine:
         rows.extend(_gain_phase_rows("sine", sine, p))
@@ -285,6 +286,39 @@ def compare_rows(ch: dict, p: Predictions, o: Any) -> list[dict]:
     if p.overshoot_pct is not None:
         rows.extend(_second_order_rows(ch, p, o))
     return rows
+
+
+def _level_gain_rows(ch: dict, p: Predictions) -> list[dict]:
+    """Cross-check of the per-transition state levels against H(0): the output level change
+    over the input level change, for the transition furthest from H(0). The levels are
+    measured; H(0) only checks them (a level that is off shows here at once)."""
+    trans = [
+        t for t in ch.get("transitions") or [] if isinstance(t.get("level_change_gain"), float)
+    ]
+    if not trans or p.dc_gain is None or p.dc_gain == 0:
+        return []
+    worst = max(trans, key=lambda t: abs(t["level_change_gain"] - p.dc_gain))
+    rel_tol = 10 ** (p.tolerances(None)[2] / 20.0) - 1.0
+    diff = (worst["level_change_gain"] - p.dc_gain) / abs(p.dc_gain)
+    established = "levels_note" not in worst
+    note = None
+    if not established:
+        note = "a level of this transition is not established: compared, not flagged"
+    elif not (worst.get("initial_level_settled", True) and worst.get("final_level_settled", True)):
+        note = "a level of this transition is extrapolated from ringing (not settled)"
+    return [
+        _row(
+            f"level_change_gain (transition {worst['index']} of {len(trans)}, relative "
+            "difference)",
+            worst["level_change_gain"],
+            p.dc_gain,
+            diff,
+            rel_tol,
+            p.tol_source,
+            (abs(diff) > rel_tol) if established else None,
+            note,
+        )
+    ]
 
 
 def _gain_phase_rows(label: str, d: dict, p: Predictions) -> list[dict]:

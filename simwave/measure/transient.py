@@ -58,6 +58,9 @@ class Edge:
     start: float = math.nan
     mid: float = math.nan
     end: float = math.nan
+    # this transition's own reference levels (low, mid, high) when its state levels are
+    # its own (input-aligned segments); None: the channel's
+    refs: tuple | None = None
 
     @property
     def name(self) -> str:
@@ -67,7 +70,7 @@ class Edge:
         return [self.k_start, self.k_start + 1, self.k_mid, self.k_mid + 1, self.j - 1, self.j]
 
     def set_instants(self, values: dict[int, float], refs: tuple[float, float, float]) -> None:
-        low, mid, high = refs
+        low, mid, high = self.refs if self.refs is not None else refs
         near, far = (low, high) if self.direction > 0 else (high, low)
         self.start = _cross(values, self.k_start, near)
         self.mid = _cross(values, self.k_mid, mid)
@@ -95,12 +98,17 @@ class EdgeFinder:
     our choice, so that noise crossing one level repeatedly is not a transition.
     """
 
-    def __init__(self, low: float, mid: float, high: float) -> None:
+    def __init__(
+        self, low: float, mid: float, high: float, seed_state: int = -1, seed_index: int = -1
+    ) -> None:
         self.low, self.mid, self.high = low, mid, high
-        self.last_event = -1  # index of the last sample at/below low or at/above high
-        self.last_state = -1  # 0 low, 1 high, -1 not yet known
-        self.last_below_mid = -1
-        self.last_above_mid = -1
+        # index of the last sample at/below low or at/above high, and that state (0 low,
+        # 1 high, -1 not yet known); a seed says which state the waveform is known to be in
+        # at ``seed_index`` (the settled level before an input transition)
+        self.last_event = seed_index if seed_state >= 0 else -1
+        self.last_state = seed_state
+        self.last_below_mid = seed_index if seed_state == 0 else -1
+        self.last_above_mid = seed_index if seed_state == 1 else -1
         self.edges: list[Edge] = []
 
     def feed(self, y: np.ndarray, start: int) -> None:

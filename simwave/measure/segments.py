@@ -1,0 +1,372 @@
+"""State levels from the settled ends of the intervals between transitions.
+
+IEEE Std 181-2011 finds state levels from the histogram of the whole waveform
+(the mode method) and allows other methods provided the method is stated. The
+histogram is fooled by ringing in a short record: the density of a sinusoid piles
+up at its turning points, so a lightly damped pulse response gives "states" at
+its overshoot peaks. Here the record is cut into segments, each holding one
+state: between the transitions of the reference input ("input-aligned"), or
+between the output's own transitions when there is no input ("output state
+intervals"). Each segment's level is read where it has had the longest time to
+settle, at its end:
+
+* ``segment end``: the median of the last ``fraction`` of the segment, when that
+  window is settled: the medians of its four quarters span no more than the
+  settling band (a percentage of the transition amplitude), beyond what the noise
+  of the window explains.
+* ``turning-point extrapolation``: when the end is not settled and the segment
+  rings (at least three turning points alternating about the level with
+  shrinking size), the level the ringing converges to, from the last three turning
+  points by Aitken's delta-squared process. Exact when the turning points shrink
+  geometrically, as those of a second-order (or one dominant pole pair) response
+  do (Ogata, sec. 5-3: successive extremes of the underdamped step response fall
+  by exp(-zeta pi / sqrt(1 - zeta^2)) per half period); an approximation otherwise.
+* ``segment end, not settled``: neither: the end-window median, flagged not
+  settled, with how far it still drifts.
+
+Memory: the pass holds the samples of the current segment only (at most ``cap``
+samples per channel: the last ``cap`` of a longer segment).
+
+References
+----------
+IEEE Std 181-2011, *IEEE Standard for Transitions, Pulses, and Related Waveforms*,
+clause 5.2 (state levels; methods other than the histogram allowed when stated).
+A. C. Aitken, "On Bernoulli's numerical solution of algebraic equations", Proc. Roy.
+Soc. Edinburgh 46 (1926), pp. 289-305 (the delta-squared process).
+K. Ogata, *Modern Control Engineering*, 5th ed., sec. 5-3.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+#: Default part of a segment, at its end, whose median is the segment's level (the brief
+#: of this method: the last 10-20 %; our choice).
+SEGMENT_END_FRACTION = 0.2
+#: Fewest samples in the end window (four quarters of at least two samples).
+MIN_END_WINDOW = 8
+#: Hysteresis of the turning-point search, in robust noise standard deviations, so noise
+#: alone does not make turning points (our choice).
+NOISE_HYSTERESIS = 4.0
+#: Samples of a segment held at once (the last ones of a longer segment).
+DEFAULT_CAP = 1_000_000
+
+METHOD_END = "segment end"
+METHOD_EXTRAPOLATED = "turning-point extrapolation"
+METHOD_UNSETTLED = "segment end, not settled"
+
+
+@dataclass
+class Segment:
+    """One state's interval of a channel and its level.
+
+    ``start``/``end`` are global sample indices (inclusive). The measured fields are
+    filled by :func:`analyse_segment`, the decision (``level``, ``method``,
+    ``settled``) by :meth:`decide`.
+    """
+
+    index: int
+    start: int
+    end: int
+    state: int = -1  # 0 lower, 1 upper (from the transitions around it), -1 unknown
+    w_start: int = -1
+    n_window: int = 0
+    median: float = math.nan
+    drift: float = math.nan  # span of the medians of the end window's quarters
+    allowance: float = 0.0  # part of that span the window's noise explains
+    noise: float = 0.0  # robust noise standard deviation in the end window
+    extrapolated: float | None = None
+    residual: float | None = None  # size of the last turning point used (abs)
+    turning_points: int = 0
+    tp_reason: str | None = None
+    # the decision
+    level: float = math.nan
+    method: str = ""
+    settled: bool = False
+    note: str | None = None
+
+    @property
+    def length(self) -> int:
+        return self.end - self.start + 1
+
+    def decide(self, amplitude: float, band_pct: float) -> None:
+        """Choose the level: settled end median, else turning-point extrapolation, else the
+        end median flagged not settled. ``amplitude``: the size of the transition(s) next
+        to this segment, which scales the settling band."""
+        tol = band_pct / 100.0 * abs(amplitude)
+        self.note = None
+        if self.length < MIN_END_WINDOW:
+            self.level, self.method, self.settled = self.median, METHOD_UNSETTLED, False
+            self.note = (
+                f"segment of only {self.length} samples: too short to tell whether it settled"
+            )
+            return
+        if self.drift <= tol + self.allowance:
+            self.level, self.method, self.settled = self.median, METHOD_END, True
+            return
+        self.settled = False
+        drift_pct = 100.0 * self.drift / abs(amplitude) if amplitude else math.inf
+        if self.extrapolated is not None:
+            self.level, self.method = self.extrapolated, METHOD_EXTRAPOLATED
+            self.note = (
+                f"end of the segment not settled (its last part still moves by "
+                f"{drift_pct:.3g} % of the amplitude); level extrapolated from the last three "
+                f"of {self.turning_points} turning points of its ringing"
+            )
+            return
+        self.level, self.method = self.median, METHOD_UNSETTLED
+        self.note = (
+            f"end of the segment not settled: its last part still moves by {drift_pct:.3g} % "
+            f"of the amplitude, outside the ±{band_pct:g} % band"
+            + (f"; no extrapolation ({self.tp_reason})" if self.tp_reason else "")
+        )
+
+    def detail(self, rate: float, t0: float, amplitude: float) -> dict:
+        """Dictionary for the result: how this level was found."""
+        d: dict = {
+            "method": self.method,
+            "settled": bool(self.settled),
+            "segment_s": [t0 + self.start / rate, t0 + self.end / rate],
+            "window_s": [t0 + self.w_start / rate, t0 + self.end / rate],
+            "end_median": self.median,
+            "end_drift_pct": (100.0 * self.drift / abs(amplitude) if amplitude else None),
+        }
+        if self.method == METHOD_EXTRAPOLATED:
+            d["turning_points"] = self.turning_points
+            if self.residual is not None and amplitude:
+                d["last_turning_point_pct"] = 100.0 * self.residual / abs(amplitude)
+        if self.note:
+            d["note"] = self.note
+        return d
+
+
+def _robust_noise(w: np.ndarray) -> float:
+    """Noise standard deviation from second differences: 1.4826 MAD / sqrt(6).
+
+    Second differences remove a level and a slope, so slow ringing hardly counts; for
+    white noise of deviation sigma they have deviation sigma sqrt(6). The factor 1.4826
+    turns a median absolute deviation into a standard deviation for normal noise
+    (common practice; e.g. Huber & Ronchetti, *Robust Statistics*, 2nd ed., sec. 5.1).
+    """
+    if w.size < 5:
+        return 0.0
+    d2 = np.diff(w, 2)
+    return float(1.4826 * np.median(np.abs(d2 - np.median(d2))) / math.sqrt(6.0))
+
+
+def _refined_extreme(d: np.ndarray, k: int, q: int, sign: int) -> float:
+    """Value of the extreme of ``d`` near sample ``k``: the extreme of a least-squares
+    polynomial (quartic, or quadratic over fewer than 7 samples) through ``k - q .. k + q``.
+
+    A quartic follows the top of a (damped) cosine over a third of a lobe to a few parts
+    per million of its height, and averaging that many samples keeps noise from
+    pulling the extreme (the largest noisy sample alone is biased upward).
+    """
+    lo, hi = max(k - q, 0), min(k + q, d.size - 1)
+    npts = hi - lo + 1
+    if npts < 3:
+        return float(d[k])
+    deg = 4 if npts >= 7 else 2
+    span = float(max(k - lo, hi - k, 1))
+    x = (np.arange(lo, hi + 1, dtype=np.float64) - k) / span
+    coef = np.polyfit(x, d[lo : hi + 1], deg)
+    r = np.roots(np.polyder(coef))
+    r = r[np.abs(r.imag) < 1e-9].real
+    r = r[(r >= x[0]) & (r <= x[-1])]
+    if r.size == 0:
+        return float(d[k])
+    v = np.polyval(coef, r)
+    return float(v[np.argmax(sign * v)])
+
+
+def turning_point_level(
+    y: np.ndarray, level0: float, noise: float
+) -> tuple[float | None, int, float | None, str | None]:
+    """Level that ringing converges to, from its last three turning points.
+
+    Parameters
+    ----------
+    y : ndarray, shape (n,)
+        The segment's samples (the first ones at the previous level, as a rule).
+    level0 : float
+        Provisional level (the end-window median): the turning points are the extremes
+        of ``y - level0`` between its sign changes (with hysteresis of
+        ``NOISE_HYSTERESIS`` noise deviations), counted from the first arrival at
+        ``level0``, each refined by a least-squares parabola.
+    noise : float
+        Robust noise standard deviation.
+
+    Returns
+    -------
+    level, count, residual, reason
+        ``level`` is None (and ``reason`` says why) when there are fewer than three
+        turning points or they do not alternate about the level with shrinking size.
+
+    References
+    ----------
+    A. C. Aitken, Proc. Roy. Soc. Edinburgh 46 (1926): for a sequence converging
+    geometrically, L = p3 - (p3 - p2)^2 / ((p3 - p2) - (p2 - p1)) is its limit.
+    """
+    d = np.asarray(y, dtype=np.float64) - level0
+    if d.size < 5:
+        return None, 0, None, "segment too short"
+    if d[0] != 0:
+        arrive = np.flatnonzero(np.sign(d[0]) * d <= 0)
+        if arrive.size == 0:
+            return None, 0, None, "it never reaches its end level (no ringing about it)"
+        d = d[int(arrive[0]) :]
+    scale = float(np.max(np.abs(d))) if d.size else 0.0
+    h = max(NOISE_HYSTERESIS * noise, 1e-9 * scale)
+    state = np.where(d > h, 1, np.where(d < -h, -1, 0))
+    nz = np.flatnonzero(state)
+    if nz.size == 0:
+        return None, 0, None, "no ringing above the noise"
+    sv = state[nz]
+    first = np.concatenate(([0], np.flatnonzero(sv[1:] != sv[:-1]) + 1))
+    starts, signs = nz[first], sv[first]
+    closed = starts.size - 1  # the last run is still open at the segment's end
+    if closed < 3:
+        return None, closed, None, f"only {closed} turning point(s) (three needed)"
+    p = []
+    for r in range(closed - 3, closed):
+        a, b = int(starts[r]), int(starts[r + 1])
+        k = a + int(np.argmax(signs[r] * d[a:b]))
+        if k == 0:
+            return None, closed, None, "a turning point lies at the segment's start"
+        q = max(1, (b - a) // 3)
+        p.append(_refined_extreme(d, k, q, int(signs[r])))
+    p1, p2, p3 = p
+    den = (p3 - p2) - (p2 - p1)
+    if den == 0:
+        return None, closed, None, "turning points do not converge"
+    lim = p3 - (p3 - p2) ** 2 / den  # Aitken's delta-squared process
+    e1, e2, e3 = p1 - lim, p2 - lim, p3 - lim
+    if not (e1 * e2 < 0 and e2 * e3 < 0 and abs(e1) > abs(e2) > abs(e3)):
+        return None, closed, None, "turning points do not alternate with shrinking size"
+    return level0 + lim, closed, abs(e3), None
+
+
+def analyse_segment(seg: Segment, y: np.ndarray, first: int, fraction: float) -> None:
+    """Fill ``seg``'s measured fields from its samples ``y`` (global index of ``y[0]`` is
+    ``first``; ``y`` ends at ``seg.end`` and may hold only the segment's last part)."""
+    n_seg = seg.length
+    w_len = min(max(int(round(fraction * n_seg)), MIN_END_WINDOW), n_seg, y.size)
+    w_len = max(w_len, 1)
+    w = y[y.size - w_len :]
+    seg.w_start = seg.end - w_len + 1
+    seg.n_window = int(w_len)
+    seg.median = float(np.median(w))
+    seg.noise = _robust_noise(w)
+    if w_len >= MIN_END_WINDOW:
+        m = w_len // 4
+        meds = [float(np.median(w[i * m : (i + 1) * m])) for i in range(3)]
+        meds.append(float(np.median(w[3 * m :])))
+        seg.drift = max(meds) - min(meds)
+        # four medians of m normal samples: each has deviation ~1.2533 sigma / sqrt(m)
+        # (asymptotic variance of the median, pi sigma^2 / (2 m)); allow +/- 2 of them
+        seg.allowance = 4.0 * 1.2533 * seg.noise / math.sqrt(m)
+    else:
+        seg.drift = float(np.ptp(w)) if w.size else 0.0
+        seg.allowance = 0.0
+    if y.size >= MIN_END_WINDOW and seg.drift > seg.allowance:
+        lvl, count, resid, why = turning_point_level(y, seg.median, seg.noise)
+        seg.extrapolated, seg.turning_points, seg.residual, seg.tp_reason = (
+            lvl,
+            count,
+            resid,
+            why,
+        )
+    else:
+        seg.extrapolated, seg.turning_points, seg.residual, seg.tp_reason = None, 0, None, None
+
+
+class SegmentCollector:
+    """Gathers one segment at a time from blocks fed in order and analyses it at its end.
+
+    Parameters
+    ----------
+    segments : list of Segment
+        Disjoint and in time order.
+    fraction : float
+        End-window fraction (see :func:`analyse_segment`).
+    cap : int
+        Most samples of one segment held (its last ones).
+    """
+
+    def __init__(self, segments: list[Segment], fraction: float, cap: int = DEFAULT_CAP) -> None:
+        self.segments = segments
+        self.fraction = fraction
+        self.cap = max(int(cap), MIN_END_WINDOW)
+        self.cur = 0
+        self.parts: list[np.ndarray] = []
+        self.held = 0
+        self.first = 0
+
+    def _flush(self) -> None:
+        seg = self.segments[self.cur]
+        y = np.concatenate(self.parts) if self.parts else np.empty(0)
+        if y.size:
+            analyse_segment(seg, y, self.first, self.fraction)
+        self.parts, self.held = [], 0
+        self.cur += 1
+
+    def feed(self, y: np.ndarray, start: int) -> None:
+        last = start + y.size - 1
+        while self.cur < len(self.segments):
+            seg = self.segments[self.cur]
+            if seg.start > last:
+                return
+            lo, hi = max(seg.start, start), min(seg.end, last)
+            if lo <= hi:
+                if not self.parts:
+                    self.first = lo
+                self.parts.append(np.array(y[lo - start : hi - start + 1], dtype=np.float64))
+                self.held += hi - lo + 1
+                if self.held > 2 * self.cap:
+                    keep = np.concatenate(self.parts)[-self.cap :]
+                    self.first = hi - keep.size + 1
+                    self.parts, self.held = [keep], keep.size
+            if seg.end > last:
+                return
+            if self.held > self.cap:
+                keep = np.concatenate(self.parts)[-self.cap :]
+                self.first = seg.end - keep.size + 1
+                self.parts, self.held = [keep], keep.size
+            self._flush()
+
+    def finish(self) -> None:
+        while self.cur < len(self.segments):
+            self._flush()
+
+
+def segments_between(edges: list, n: int) -> list[Segment]:
+    """Segments of a record cut by transitions (objects with ``k_start``, ``j`` and
+    ``direction``): before the first, between each pair, after the last. A segment runs
+    from the end of one transition (its far reference level instant ``j``) to the start
+    of the next (its near reference level sample ``k_start``), so it holds one state."""
+    segs: list[Segment] = []
+    lo = 0
+    for i, e in enumerate(edges):
+        hi = max(int(e.k_start), lo)
+        state = 0 if e.direction > 0 else 1
+        segs.append(Segment(i, lo, min(hi, n - 1), state))
+        lo = min(int(e.j), n - 1)
+    last_state = (1 if edges[-1].direction > 0 else 0) if edges else -1
+    segs.append(Segment(len(edges), lo, n - 1, last_state))
+    return segs
+
+
+def pooled_level(segs: list[Segment], state: int) -> tuple[float | None, str | None, bool]:
+    """Median of the levels of one state's segments (settled or extrapolated ones when
+    there are any), the method behind it, and whether all used were settled."""
+    mine = [s for s in segs if s.state == state and math.isfinite(s.level)]
+    if not mine:
+        return None, None, False
+    good = [s for s in mine if s.method != METHOD_UNSETTLED]
+    use = good or mine
+    methods = sorted({s.method for s in use})
+    method = METHOD_EXTRAPOLATED if METHOD_EXTRAPOLATED in methods else methods[0]
+    return float(np.median([s.level for s in use])), method, all(s.settled for s in use)
