@@ -148,3 +148,78 @@ def test_missing_file_and_refusing_to_overwrite_input(tmp_path, step_csv):
     err = one_line_error(run("measure", step_csv, "-o", step_csv))
     assert "refusing" in err
     assert step_csv.read_bytes() == before
+
+
+def _pulse_response(t, zeta, wn, t_on, t_off):
+    """Exact response of wn^2 / (s^2 + 2 zeta wn s + wn^2) to a unit pulse: the step
+    response (Ogata 5th ed. eq. 5-10) at t - t_on minus the one at t - t_off."""
+    wd = wn * math.sqrt(1 - zeta**2)
+
+    def step(tt):
+        tp = max(tt, 0.0)
+        if tt <= 0:
+            return 0.0
+        return 1 - math.exp(-zeta * wn * tp) * (
+            math.cos(wd * tp) + zeta / math.sqrt(1 - zeta**2) * math.sin(wd * tp)
+        )
+
+    return step(t - t_on) - step(t - t_off)
+
+
+def test_run_metrics_of_a_lightly_damped_pulse(tmp_path):
+    # The integration case: a 10 ms pulse through zeta = 0.25, fn = 200 Hz. Before the
+    # fix the levels came out 1.444 / -0.43 (the ringing peaks), the rise was not found
+    # and the fall had an 8.4 ms "fall time". Checked against the exact analytic response
+    # by root finding (scipy.optimize.brentq) and Ogata 5th ed. sec. 5-3 for the first edge
+    # (it starts from rest): overshoot exp(-pi zeta / sqrt(1 - zeta^2)) = 44.4 %, peak time
+    # pi / omega_d. The generated edge lies half-way between samples 99 and 100 (4.975 ms).
+    from scipy.optimize import brentq
+
+    zeta, wn = 0.25, 2 * math.pi * 200
+    wd = wn * math.sqrt(1 - zeta**2)
+    t_on, t_off = 0.004975, 0.014975
+    js = tmp_path / "p.json"
+    r = run(
+        "run", "pulse:rate=20k,duration=40m,width=10m,delay=5m",
+        "-s", "(2*pi*200)^2/(s^2 + 0.5*2*pi*200*s + (2*pi*200)^2)",
+        "-o", tmp_path / "p.h5", "--with-input", "--metrics", js,
+    )  # fmt: skip
+    assert r.exit_code == 0, r.output
+    ch = json.loads(js.read_text())["metrics"]["channels"][0]
+    sl = ch["state_levels"]
+    assert sl["low"] == pytest.approx(0.0, abs=1e-3) and sl["high"] == pytest.approx(1.0, abs=1e-3)
+    assert sl["method"] == "low: segment end, high: turning-point extrapolation (input-aligned)"
+    rise, fall = ch["transitions"]
+    assert (rise["direction"], fall["direction"]) == ("rising", "falling")
+
+    def y(t):
+        return _pulse_response(t, zeta, wn, t_on, t_off)
+
+    t10 = brentq(lambda t: y(t) - 0.1, t_on, t_on + math.pi / wd)
+    t90 = brentq(lambda t: y(t) - 0.9, t_on, t_on + math.pi / wd)
+    # linear interpolation between samples at 20 samples per rise time: a few 1e-4
+    assert rise["rise_time_s"] == pytest.approx(t90 - t10, rel=2e-3)
+    mp = 100 * math.exp(-math.pi * zeta / math.sqrt(1 - zeta**2))
+    assert rise["overshoot_pct"] == pytest.approx(mp, rel=5e-3)
+    assert rise["peak_time_s"] == pytest.approx(math.pi / wd, rel=5e-3)
+    assert rise["settling_time_s"] is None
+    assert "never settles before the next transition" in rise["null_reasons"]["settling_time_s"]
+    # the fall starts on the ringing left from the rise: not the mirror of the step
+    f90 = brentq(lambda t: y(t) - 0.9, t_off, t_off + 0.5 * math.pi / wd)
+    f10 = brentq(lambda t: y(t) - 0.1, t_off, t_off + math.pi / wd)
+    assert fall["fall_time_s"] == pytest.approx(f10 - f90, rel=2e-3)
+    def dy(t):  # impulse responses (Ogata 5th ed. sec. 5-3): the derivative of y
+        return sum(
+            sgn * wn / math.sqrt(1 - zeta**2) * math.exp(-zeta * wn * (t - t0))
+            * math.sin(wd * (t - t0))
+            for t0, sgn in ((t_on, 1.0), (t_off, -1.0))
+            if t > t0
+        )  # fmt: skip
+
+    t_min = brentq(dy, t_off + 0.5 * math.pi / wd, t_off + 1.5 * math.pi / wd)
+    assert fall["overshoot_pct"] == pytest.approx(-100 * y(t_min), rel=5e-3)
+    grid = np.linspace(t_off, 0.03995, 20_001)
+    dev = np.array([abs(y(t)) for t in grid]) - 0.02
+    last = int(np.flatnonzero(dev > 0)[-1])
+    t_settle = brentq(lambda t: abs(y(t)) - 0.02, grid[last], grid[last + 1])
+    assert fall["settling_time_s"] == pytest.approx(t_settle - t_off, abs=0.1 / 20e3)

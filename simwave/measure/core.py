@@ -504,17 +504,17 @@ class _Measurement:
         ):
             ch.segments, ch.level_mode = ss, "output state intervals (check)"
             return  # the histogram agrees with the settled intervals: keep the standard's
-        if hist.method == "histogram":
+        if o.state_level_method == "segment":
+            why = "state-level method 'segment' asked for"
+        elif hist.method == "histogram":
             off = max(abs(hist.low - low), abs(hist.high - high))
             why = (
                 f"the histogram modes (low {hist.low:.6g}, high {hist.high:.6g}) differ from "
                 f"the state intervals' ends by {100.0 * off / amp:.3g} % of the amplitude "
-                "(ringing turning points pile up samples in a short record)"
+                "(a histogram is fooled e.g. by the turning points of ringing in a short record)"
             )
-        elif hist.note:
-            why = hist.note.replace("; min/max used", "")
         else:
-            why = "state-level method 'segment' asked for"
+            why = (hist.note or "the histogram gave no levels").replace("; min/max used", "")
         method = _method_text(m_low, m_high, "output state intervals")
         ch.levels = lv.StateLevels(low, high, method, note=f"{why}; levels from {method}")
         ch.refs = lv.reference_values(ch.levels, o.reference_levels_pct)
