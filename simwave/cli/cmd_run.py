@@ -15,10 +15,21 @@ from simwave.cli.model_options import method_options, model_kwargs
 from simwave.cli.system_input import parse_number, parse_number_list, resolve_system, system_options
 from simwave.run import RunJob, execute
 
-AUDIO_CAUTION = (
-    "Caution: audio output can be loud. Peak level {peak_dbfs:.1f} dBFS; "
-    "start playback at low volume."
-)
+AUDIO_CAUTION = "Caution: audio output can be loud ({level}); start playback at low volume."
+
+
+def _audio_level(write: dict) -> str:
+    """The written audio level in words: peak in dBFS, and what clipping or normalizing did."""
+    import math
+
+    gain = write.get("gain") or 1.0
+    peak = write["peak_dbfs"]
+    if gain != 1.0:
+        return (f"output peak {peak:+.1f} dBFS, normalized by {20 * math.log10(gain):+.1f} dB "
+                f"to {peak + 20 * math.log10(gain):+.1f} dBFS in the file")
+    if write.get("clipped"):
+        return f"output peak {peak:+.1f} dBFS, {write['clipped']} samples clipped to full scale"
+    return f"peak {peak:+.1f} dBFS"
 
 
 class _Progress:
@@ -212,6 +223,6 @@ def run_command(source, system_spec, output, method, prewarp, match_frequency, i
         if text not in shown:
             shown.add(text)
             click.echo(f"Warning: {text}", err=True)
-    peak_dbfs = (result["run"].get("write") or {}).get("peak_dbfs")
-    if peak_dbfs is not None:
-        click.echo(AUDIO_CAUTION.format(peak_dbfs=peak_dbfs), err=True)
+    write = result["run"].get("write") or {}
+    if write.get("peak_dbfs") is not None:
+        click.echo(AUDIO_CAUTION.format(level=_audio_level(write)), err=True)
