@@ -301,7 +301,11 @@ def test_pulse_train_through_ringing_system_without_reference():
     zeta = 0.2
     out, _, resp, t_end = pulse_record(zeta, 0.010, n_pulses=4, period=0.020)
     ch = measure(out).to_dict()["channels"][0]
-    assert ch["state_levels"]["method"] == "turning-point extrapolation (output state intervals)"
+    # the low state is settled at rest before the first pulse and in the tail: those
+    # segments are preferred; every top rings into the next edge
+    assert ch["state_levels"]["method"] == (
+        "low: segment end, high: turning-point extrapolation (output state intervals)"
+    )
     assert ch["state_levels"]["low"] == pytest.approx(0.0, abs=1e-4)
     assert ch["state_levels"]["high"] == pytest.approx(1.0, abs=1e-4)
     tr = ch["transitions"]
@@ -371,3 +375,28 @@ def test_segment_options():
         with pytest.raises(MeasurementError, match="segment end fraction") as exc:
             measure(out, inp, segment_end_fraction=bad)
         assert "\n" not in str(exc.value)
+
+
+def test_first_order_top_still_approaching():
+    # A 10 ms pulse through a first-order lag of tau = 5 ms: the top reaches only
+    # 1 - e^-2 = 86.5 % and is still rising at the falling edge. Its level is the last value
+    # reached, flagged as a lower bound; the rise time between 0 and that level L follows
+    # from y = 1 - e^(-t/tau) (first-order step response, common practice):
+    # t_10-90 = tau ln((1 - 0.1 L) / (1 - 0.9 L)).
+    fs, tau = 10_000.0, 0.005
+    t = np.arange(500) / fs
+    t1 = (100 - 0.5) / fs
+
+    def lag(tt):
+        return np.where(tt > 0, 1 - np.exp(-np.maximum(tt, 0) / tau), 0.0)
+
+    y = lag(t - t1) - lag(t - t1 - 0.01)
+    x = ((t > t1) & (t < t1 + 0.01)).astype(float)
+    rise = measure(Waveform(y, fs), Waveform(x, fs)).to_dict()["channels"][0]["transitions"][0]
+    top = rise["final_level"]
+    assert rise["final_level_detail"]["method"] == "segment end, still approaching"
+    assert 1 - math.exp(-1.9) < top < 1 - math.exp(-2.0)  # the last few samples' value
+    assert "lower bound" in rise["levels_note"]
+    expected = tau * math.log((1 - 0.1 * top) / (1 - 0.9 * top))
+    assert rise["rise_time_s"] == pytest.approx(expected, rel=1e-3)
+    assert rise["settling_time_s"] is None

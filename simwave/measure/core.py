@@ -50,6 +50,14 @@ MIN_WINDOW = 8
 #: A level change smaller than this fraction of the channel's range is no transition
 #: (input-aligned segments: the output did not follow that input transition; our choice).
 NO_CHANGE_FRACTION = 0.05
+#: Without a reference input, the first round of output state intervals looks at this
+#: many (the second, on the levels they give, at all of them).
+FIRST_ROUND_SEGMENTS = 64
+
+
+def _established(*methods: str | None) -> bool:
+    """Levels found settled or extrapolated from ringing: the record establishes them."""
+    return all(m in (seg.METHOD_END, seg.METHOD_EXTRAPOLATED) for m in methods)
 
 
 def _method_text(m_low: str | None, m_high: str | None, basis: str) -> str:
@@ -236,6 +244,10 @@ class _Chan:
     segments: list = field(default_factory=list)
     edge_info: list = field(default_factory=list)
     unmatched: list = field(default_factory=list)
+    # both state levels established (settled or extrapolated) at the ends of the output's
+    # own state intervals: a two-state waveform even when ringing keeps most of its
+    # samples away from the levels
+    established: bool = False
 
     @property
     def constant(self) -> bool:
@@ -409,7 +421,8 @@ class _Measurement:
 
     # ------------------------------------------------------------------ segment levels
     def _collect(self, segs_by_c: dict[int, list]) -> None:
-        """One pass: each output channel's segments analysed at their ends."""
+        """One pass: each output channel's segments analysed at their ends (the pass stops
+        early once every list is done)."""
         cols = {
             c: seg.SegmentCollector(ss, self.o.segment_end_fraction, self.o.max_window_samples)
             for c, ss in segs_by_c.items()
@@ -420,6 +433,8 @@ class _Measurement:
         for start, a, _b in self.src.blocks():
             for c, col in cols.items():
                 col.feed(a[:, c], start)
+            if all(col.done for col in cols.values()):
+                break
         for col in cols.values():
             col.finish()
 
@@ -442,7 +457,11 @@ class _Measurement:
         floor = self._min_change(ch)
         for i, s in enumerate(segs):
             amps = [abs(meds[k] - meds[i]) for k in (i - 1, i + 1) if 0 <= k < len(segs)]
-            s.decide(max(amps + [floor]), self.o.settling_band_pct)
+            # a still-approaching end moves away from the level before (the one after,
+            # for the first segment)
+            other = i - 1 if i > 0 else i + 1
+            away = int(np.sign(meds[i] - meds[other])) if 0 <= other < len(segs) else 0
+            s.decide(max(amps + [floor]), self.o.settling_band_pct, away)
 
     def _levels_from_output_intervals(self) -> None:
         """Without a reference input: the state levels from the ends of the output's own
@@ -467,9 +486,17 @@ class _Measurement:
             return
         refs = {c: lv.reference_values(self.outs[c].levels, (25.0, 50.0, 75.0)) for c in cands}
         found: dict[int, tuple] = {}
-        for _round in range(2):
+        for rnd in range(2):
             edges = self._find_edges(refs)
-            segs = {c: seg.segments_between(e, self.n) for c, e in edges.items() if e}
+            # end each segment where a linear edge would leave the level: a quarter of
+            # the 25-75 % time before the wide provisional transitions, an eighth of the
+            # 10-90 % time before the final ones
+            lead = 0.25 if rnd == 0 else 0.125
+            segs = {c: seg.segments_between(e, self.n, lead) for c, e in edges.items() if e}
+            if rnd == 0:
+                # the first segments are enough for provisional levels, and tell a two-state
+                # waveform from a sine (whose segments never settle) at little cost
+                segs = {c: ss[:FIRST_ROUND_SEGMENTS] for c, ss in segs.items()}
             self._collect(segs)
             found = {}
             for c, ss in segs.items():
@@ -478,6 +505,8 @@ class _Measurement:
                 high, m_high, _ = seg.pooled_level(ss, 1)
                 if low is None or high is None or not high - low > self._min_change(self.outs[c]):
                     continue
+                if rnd == 0 and not _established(m_low, m_high):
+                    continue  # the ends of the segments establish no state
                 found[c] = (low, high, m_low, m_high, ss)
             if not found:
                 return
@@ -491,9 +520,10 @@ class _Measurement:
     def _choose_interval_levels(self, c, low, high, m_low, m_high, ss) -> None:
         ch, o = self.outs[c], self.o
         hist = ch.levels
-        established = seg.METHOD_UNSETTLED not in (m_low, m_high)
+        established = _established(m_low, m_high)
         if not established and o.state_level_method != "segment":
             return  # the intervals' ends are no better than the histogram
+        ch.established = established
         amp = high - low
         tol = 0.5 * o.settling_band_pct / 100.0 * amp
         if (
@@ -516,7 +546,7 @@ class _Measurement:
         else:
             why = (hist.note or "the histogram gave no levels").replace("; min/max used", "")
         method = _method_text(m_low, m_high, "output state intervals")
-        ch.levels = lv.StateLevels(low, high, method, note=f"{why}; levels from {method}")
+        ch.levels = lv.StateLevels(low, high, method, note=why)
         ch.refs = lv.reference_values(ch.levels, o.reference_levels_pct)
         ch.two_state_fraction = self.hist.fraction_near(c, (low, high), 0.1 * amp)
         ch.segments, ch.level_mode = ss, "output state intervals"
@@ -528,7 +558,7 @@ class _Measurement:
     def _auto_kind(self, ch: _Chan, is_reference: bool) -> str:
         if ch.constant:
             return "constant"
-        if ch.two_state_fraction >= TWO_STATE_FRACTION:
+        if ch.two_state_fraction >= TWO_STATE_FRACTION or ch.established:
             return "transitions"
         y = ch.window
         if y.size >= MIN_WINDOW and np.ptp(y) > 0:
@@ -639,7 +669,9 @@ class _Measurement:
             ri = self.ref_for(c)
             if ch.kind != "transitions" or ch.constant or ri is None or not self.refs[ri].edges:
                 continue
-            todo[c] = seg.segments_between(self.refs[ri].edges, self.n)
+            # end each segment where the input starts to move (a linear input edge spends
+            # 1/8 of its 10-90 % time below 10 %), plus a sample
+            todo[c] = seg.segments_between(self.refs[ri].edges, self.n, 0.125)
         if not todo:
             return
         self._collect(todo)
@@ -996,7 +1028,9 @@ class _Measurement:
         else:
             method = ch.levels.method
             settled = (None, None)
-            final_ok = initial_ok = True
+            # the channel's levels (from the output's intervals only when asked for with
+            # state_level_method="segment" can they be unsettled)
+            final_ok = initial_ok = seg.METHOD_UNSETTLED not in method
         row["state_levels"] = {"low": lo, "high": hi, "amplitude": amp, "method": method}
         row["reference_levels"] = {
             "low_pct": p[0],
@@ -1103,6 +1137,20 @@ class _Measurement:
             row["peak_value"], row["peak_time_s"] = pk[0], (pk[1] - origin) / rate
         row["settling_band_pct"] = self.o.settling_band_pct
         si = r.settle_instant()
+        if ch.edge_info:
+            approaching = [
+                w
+                for w, d in (("initial", "initial_level_detail"), ("final", "final_level_detail"))
+                if (row.get(d) or {}).get("method") == seg.METHOD_APPROACHING
+            ]
+        else:
+            approaching = ["a state"] if seg.METHOD_APPROACHING in ch.levels.method else []
+        if approaching and initial_ok and final_ok:
+            row["levels_note"] = (
+                f"{' and '.join(approaching)} level still approaching at the end of its "
+                "segment: it is the last value reached, so the amplitude is a lower bound and "
+                "durations and percentages are relative to it"
+            )
         if not (initial_ok and final_ok):
             # a level the record does not establish: the instants are kept (found on the
             # provisional level, the median of the segment's end) but nothing is given in

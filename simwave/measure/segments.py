@@ -21,8 +21,12 @@ settle, at its end:
   geometrically, as those of a second-order (or one dominant pole pair) response
   do (Ogata, sec. 5-3: successive extremes of the underdamped step response fall
   by exp(-zeta pi / sqrt(1 - zeta^2)) per half period); an approximation otherwise.
-* ``segment end, not settled``: neither: the end-window median, flagged not
-  settled, with how far it still drifts.
+* ``segment end, still approaching``: the end moves steadily on, away from the level
+  before, without turning back (a first-order lag given too little time): the median of
+  its last five samples, the value nearest the final one, flagged not settled; the
+  amplitude it gives is a lower bound.
+* ``segment end, not settled``: none of these (ringing with fewer than three turning
+  points, a hump): the end-window median, flagged; the level is not established.
 
 Memory: the pass holds the samples of the current segment only (at most ``cap``
 samples per channel: the last ``cap`` of a longer segment).
@@ -56,6 +60,7 @@ DEFAULT_CAP = 1_000_000
 
 METHOD_END = "segment end"
 METHOD_EXTRAPOLATED = "turning-point extrapolation"
+METHOD_APPROACHING = "segment end, still approaching"
 METHOD_UNSETTLED = "segment end, not settled"
 
 
@@ -76,6 +81,8 @@ class Segment:
     n_window: int = 0
     median: float = math.nan
     drift: float = math.nan  # span of the medians of the end window's quarters
+    quarters: tuple = ()  # those medians, in time order
+    end_value: float = math.nan  # median of the last (up to) five samples
     allowance: float = 0.0  # part of that span the window's noise explains
     noise: float = 0.0  # robust noise standard deviation in the end window
     extrapolated: float | None = None
@@ -92,10 +99,14 @@ class Segment:
     def length(self) -> int:
         return self.end - self.start + 1
 
-    def decide(self, amplitude: float, band_pct: float) -> None:
+    def decide(self, amplitude: float, band_pct: float, away: int = 0) -> None:
         """Choose the level: settled end median, else turning-point extrapolation, else the
-        end median flagged not settled. ``amplitude``: the size of the transition(s) next
-        to this segment, which scales the settling band."""
+        last value of a steady approach, else the end median flagged not settled.
+
+        ``amplitude``: the size of the transition(s) next to this segment, which scales
+        the settling band; ``away``: +1 or -1, the direction away from the neighbouring
+        level (0: unknown), in which a still-approaching end moves.
+        """
         tol = band_pct / 100.0 * abs(amplitude)
         self.note = None
         if self.length < MIN_END_WINDOW:
@@ -115,6 +126,15 @@ class Segment:
                 f"end of the segment not settled (its last part still moves by "
                 f"{drift_pct:.3g} % of the amplitude); level extrapolated from the last three "
                 f"of {self.turning_points} turning points of its ringing"
+            )
+            return
+        q = np.asarray(self.quarters)
+        if away and q.size == 4 and self.turning_points == 0 and np.all(away * np.diff(q) > 0):
+            self.level, self.method = self.end_value, METHOD_APPROACHING
+            self.note = (
+                f"still approaching its final level at the end of the segment (its last part "
+                f"moves on by {drift_pct:.3g} % of the amplitude without turning back); the "
+                "level is its last value: the amplitude is a lower bound"
             )
             return
         self.level, self.method = self.median, METHOD_UNSETTLED
@@ -259,16 +279,19 @@ def analyse_segment(seg: Segment, y: np.ndarray, first: int, fraction: float) ->
     seg.w_start = seg.end - w_len + 1
     seg.n_window = int(w_len)
     seg.median = float(np.median(w))
+    seg.end_value = float(np.median(w[-min(5, w.size) :]))
     seg.noise = _robust_noise(w)
     if w_len >= MIN_END_WINDOW:
         m = w_len // 4
         meds = [float(np.median(w[i * m : (i + 1) * m])) for i in range(3)]
         meds.append(float(np.median(w[3 * m :])))
+        seg.quarters = tuple(meds)
         seg.drift = max(meds) - min(meds)
         # four medians of m normal samples: each has deviation ~1.2533 sigma / sqrt(m)
         # (asymptotic variance of the median, pi sigma^2 / (2 m)); allow +/- 2 of them
         seg.allowance = 4.0 * 1.2533 * seg.noise / math.sqrt(m)
     else:
+        seg.quarters = ()
         seg.drift = float(np.ptp(w)) if w.size else 0.0
         seg.allowance = 0.0
     if y.size >= MIN_END_WINDOW and seg.drift > seg.allowance:
@@ -313,6 +336,11 @@ class SegmentCollector:
         self.parts, self.held = [], 0
         self.cur += 1
 
+    @property
+    def done(self) -> bool:
+        """True once every segment has been analysed."""
+        return self.cur >= len(self.segments)
+
     def feed(self, y: np.ndarray, start: int) -> None:
         last = start + y.size - 1
         while self.cur < len(self.segments):
@@ -342,15 +370,21 @@ class SegmentCollector:
             self._flush()
 
 
-def segments_between(edges: list, n: int) -> list[Segment]:
+def segments_between(edges: list, n: int, lead: float = 0.0) -> list[Segment]:
     """Segments of a record cut by transitions (objects with ``k_start``, ``j`` and
     ``direction``): before the first, between each pair, after the last. A segment runs
     from the end of one transition (its far reference level instant ``j``) to the start
-    of the next (its near reference level sample ``k_start``), so it holds one state."""
+    of the next (its near reference level sample ``k_start``), so it holds one state.
+
+    ``lead``: end each segment this many times the next transition's duration (``j -
+    k_start``) earlier, so that the part of a slow transition before its near reference
+    level (a linear edge spends 1/8 of its 10-90 % time below 10 %, a quarter of its
+    25-75 % time below 25 %) stays out of the level window."""
     segs: list[Segment] = []
     lo = 0
     for i, e in enumerate(edges):
-        hi = max(int(e.k_start), lo)
+        early = int(math.ceil(lead * max(int(e.j) - int(e.k_start), 0)))
+        hi = max(int(e.k_start) - early, lo)
         state = 0 if e.direction > 0 else 1
         segs.append(Segment(i, lo, min(hi, n - 1), state))
         lo = min(int(e.j), n - 1)
@@ -359,14 +393,18 @@ def segments_between(edges: list, n: int) -> list[Segment]:
     return segs
 
 
+#: Level methods from the most to the least trustworthy.
+QUALITY = (METHOD_END, METHOD_EXTRAPOLATED, METHOD_APPROACHING, METHOD_UNSETTLED)
+
+
 def pooled_level(segs: list[Segment], state: int) -> tuple[float | None, str | None, bool]:
-    """Median of the levels of one state's segments (settled or extrapolated ones when
-    there are any), the method behind it, and whether all used were settled."""
+    """One state's level from its segments: the median of the levels found by the most
+    trustworthy method any of them has (settled ends before extrapolations before
+    still-approaching ends before unsettled ones), that method, and whether they were
+    all settled."""
     mine = [s for s in segs if s.state == state and math.isfinite(s.level)]
     if not mine:
         return None, None, False
-    good = [s for s in mine if s.method != METHOD_UNSETTLED]
-    use = good or mine
-    methods = sorted({s.method for s in use})
-    method = METHOD_EXTRAPOLATED if METHOD_EXTRAPOLATED in methods else methods[0]
-    return float(np.median([s.level for s in use])), method, all(s.settled for s in use)
+    best = min(QUALITY.index(s.method) for s in mine)
+    use = [s for s in mine if QUALITY.index(s.method) == best]
+    return float(np.median([s.level for s in use])), QUALITY[best], best == 0
