@@ -9,15 +9,24 @@ metrics, set against what H(s) predicts.
     steady_window_s, predicted{system, dc_gain, second_order{...}, ...},
     input[ {name, kind, state_levels, reference_levels, transitions[...]} ],
     channels[ {name, unit, input_channel, kind, min, max, mean, rms,
-               state_levels{low, high, amplitude, method},
+               state_levels{low, high, amplitude, method, note, basis},
                reference_levels{low_pct, mid_pct, high_pct, low, mid, high},
                transitions[ {index, direction, start_s, crossing_50_s, end_s,
                              rise_time_s | fall_time_s, transition_duration_s,
-                             initial_level, final_level, input_transition,
+                             initial_level, final_level,
+                             state_levels{low, high, amplitude, method},
+                             reference_levels{...}, levels_note,
+                             initial_level_detail{method, settled, segment_s, window_s,
+                                                  end_median, end_drift_pct, ...},
+                             final_level_detail{...}, initial_level_settled,
+                             final_level_settled, level_change_gain,
+                             input_transition,
                              input_crossing_50_s, delay_s, time_origin, time_origin_s,
                              overshoot_pct, undershoot_pct, preshoot_pct, peak_value,
                              peak_time_s, settling_band_pct, settling_time_s,
                              settled_at_s, null_reasons} ],
+               unmatched_input_transitions[ {input_transition, input_crossing_50_s,
+                                             reason} ],
                transition_summary{metric: {count, min, mean, max, worst, missing}},
                pulses[ {index, polarity, start_s, pulse_duration_s, period_s, duty_pct} ],
                pulse_summary{metric: {count, min, mean, max, std}},
@@ -36,6 +45,16 @@ metrics, set against what H(s) predicts.
 
 A missing value is ``None`` (JSON ``null``) with its reason under ``null_reasons``
 in the same dictionary.
+
+State levels (``state_levels.method``): with a reference input whose transitions cut
+the record, every transition has its own initial and final level, read at the settled
+end of the segment before it and of its own segment ("segment end (input-aligned)"),
+extrapolated from the turning points of ringing that has not died out
+("turning-point extrapolation"), the last value of a still-approaching end (flagged,
+a lower bound) or, failing all, not established (its percentages, duration and
+settling null). Without one, the IEEE Std 181 histogram is checked against the ends of
+the output's own state intervals and replaced by them where it is fooled. See
+:mod:`simwave.measure.segments`.
 """
 
 from simwave.measure.core import MeasureOptions, measure

@@ -274,9 +274,16 @@ def format_result(data: dict) -> str:
             if len(rows) > 50:
                 lines.append(f"  ... {len(rows) - 50} more (see --json)")
             for t in trans[:50]:
+                if t.get("levels_note"):
+                    lines.append(f"  #{t['index']} levels: {t['levels_note']}")
                 for k, why in (t.get("null_reasons") or {}).items():
                     if k != "delay_s":
                         lines.append(f"  #{t['index']} {k}: n/a - {why}")
+        for u in (ch.get("unmatched_input_transitions") or [])[:50]:
+            lines.append(
+                f"  input transition #{u['input_transition']} at "
+                f"{_eng_time(u['input_crossing_50_s'])}: {u['reason']}"
+            )
         if ch.get("pulses"):
             ps = ch["pulse_summary"]
             for key in ("pulse_duration_s", "period_s", "duty_pct"):
