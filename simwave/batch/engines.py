@@ -8,6 +8,7 @@ written by the workers.
 
 from __future__ import annotations
 
+import contextlib
 import gc
 import itertools
 import multiprocessing
@@ -70,6 +71,34 @@ class InlineEngine:
         pass
 
 
+#: Environment variables that set the thread count of the BLAS/OpenMP libraries.
+THREAD_VARIABLES = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
+                    "BLIS_NUM_THREADS", "VECLIB_MAXIMUM_THREADS", "NUMEXPR_NUM_THREADS")
+
+
+@contextlib.contextmanager
+def worker_thread_limits(jobs: int) -> Iterator[None]:
+    """Environment for starting pool workers: BLAS threads = cores // jobs (at least 1).
+
+    N worker processes that each start one BLAS thread per core oversubscribe the
+    machine (OpenBLAS threads also spin after each call); on two cores this halved
+    the speed of a two-worker pool. Dask's nanny sets the same variables to 1 for its
+    workers. Variables the user has set are left alone. The values are read when a
+    worker (or the forkserver they fork from) loads numpy, so this wraps their start.
+    """
+    per_worker = str(max(1, default_jobs() // max(1, jobs)))
+    saved = {k: os.environ.get(k) for k in THREAD_VARIABLES}
+    for k in THREAD_VARIABLES:
+        if saved[k] is None:
+            os.environ[k] = per_worker
+    try:
+        yield
+    finally:
+        for k, v in saved.items():
+            if v is None:
+                os.environ.pop(k, None)
+
+
 def _context() -> multiprocessing.context.BaseContext:
     # fork is unsafe with the reader/writer threads of the pipeline (and with Dask or BLAS
     # threads in the parent); forkserver forks from a clean single-threaded server with
@@ -79,6 +108,14 @@ def _context() -> multiprocessing.context.BaseContext:
         ctx.set_forkserver_preload(["simwave.batch.tasks"])
         return ctx
     return multiprocessing.get_context("spawn")
+
+
+def _start_forkserver(ctx: multiprocessing.context.BaseContext) -> None:
+    """Start the forkserver now (inside :func:`worker_thread_limits`), if it is one."""
+    if ctx.get_start_method() == "forkserver":
+        from multiprocessing import forkserver
+
+        forkserver.ensure_running()
 
 
 class PoolEngine:
@@ -102,7 +139,10 @@ class PoolEngine:
         return f"local process pool, {self.jobs} worker{'s' if self.jobs != 1 else ''}"
 
     def _new_executor(self) -> ProcessPoolExecutor:
-        return ProcessPoolExecutor(max_workers=self.jobs, mp_context=_context(),
+        ctx = _context()
+        with worker_thread_limits(self.jobs):
+            _start_forkserver(ctx)
+        return ProcessPoolExecutor(max_workers=self.jobs, mp_context=ctx,
                                    initializer=worker_init)
 
     def results(self, tasks: Iterable[PairTask]) -> Iterator[tuple[PairTask, dict]]:
@@ -111,32 +151,38 @@ class PoolEngine:
         crashes: dict[int, int] = {}
         window = max(4, self.jobs * 4)
         self._executor = self._new_executor()
+        state = {"broken": False, "finished": 0, "dead_starts": 0}
 
         def refill() -> None:
-            while len(self._pending) < window:
+            while len(self._pending) < window and not state["broken"]:
                 task = retry.pop() if retry else next(todo, None)
                 if task is None:
                     return
-                self._pending[self._executor.submit(run_pair, task)] = task
+                try:
+                    self._pending[self._executor.submit(run_pair, task)] = task
+                except BrokenProcessPool:
+                    state["broken"] = True
+                    retry.append(task)
 
-        refill()
-        while self._pending:
+        with worker_thread_limits(self.jobs):  # spawn starts the workers at the first submits
+            refill()
+        while self._pending or state["broken"]:
             done, _ = wait(list(self._pending), return_when=FIRST_COMPLETED)
-            broken = False
             for fut in done:
                 task = self._pending.pop(fut)
                 try:
                     result = fut.result()
                 except BrokenProcessPool:
-                    broken = True
+                    state["broken"] = True
                     retry.append(task)
                     continue
                 except WorkerStop:
                     raise KeyboardInterrupt from None
                 except Exception as exc:  # noqa: BLE001 - e.g. a result that does not pickle
                     result = failed_result(task, f"{type(exc).__name__}: {exc}")
+                state["finished"] += 1
                 yield task, result
-            if broken:
+            if state["broken"]:
                 # Every pair still in the pool fails the same way; collect them, rebuild.
                 wait(list(self._pending))
                 for fut, task in list(self._pending.items()):
@@ -146,6 +192,17 @@ class PoolEngine:
                         retry.append(task)
                 self._pending.clear()
                 self._executor.shutdown(wait=True, cancel_futures=True)
+                # A pool that breaks twice in a row before finishing any pair cannot start
+                # its workers at all: stop instead of failing every pair the same way.
+                state["dead_starts"] = state["dead_starts"] + 1 if state["finished"] == 0 else 0
+                if state["dead_starts"] >= 2:
+                    self._executor = None
+                    raise BatchError(
+                        "the worker processes stop before running any pair (see the messages "
+                        "above); a script that starts a pool must be importable by them "
+                        "(not read from stdin), or use --jobs 1"
+                    )
+                state.update(broken=False, finished=0)
                 self._executor = self._new_executor()
                 for task in list(retry):
                     crashes[task.index] = crashes.get(task.index, 0) + 1
@@ -154,7 +211,10 @@ class PoolEngine:
                         yield task, failed_result(
                             task, "the worker process died while running this pair "
                                   f"({MAX_CRASHES} times): a crash or the out-of-memory killer")
-            refill()
+                with worker_thread_limits(self.jobs):  # the new workers start here (spawn)
+                    refill()
+            else:
+                refill()
         self.close()
 
     def in_flight(self) -> list[PairTask]:

@@ -102,6 +102,7 @@ def run_pair(task: PairTask, capture_warnings: bool = True) -> dict[str, Any]:
         :class:`WorkerStop`) propagates after ``execute`` cleaned up.
     """
     started = time.perf_counter()
+    cpu_started = time.process_time()
     base: dict[str, Any] = {"index": task.index, "status": "failed", "error": None,
                             "elapsed_s": None, "samples": None, "duration_s": None,
                             "rate_hz": None, "channels": [], "warnings": [], "metrics": {},
@@ -125,7 +126,9 @@ def run_pair(task: PairTask, capture_warnings: bool = True) -> dict[str, Any]:
             return base
         finally:
             _state["busy"] = False
-    return summarize_result(result, task.index, time.perf_counter() - started, caught)
+    out = summarize_result(result, task.index, time.perf_counter() - started, caught)
+    out["cpu_s"] = time.process_time() - cpu_started  # this process's CPU time (all threads)
+    return out
 
 
 def summarize_result(result: dict, index: int, elapsed_s: float,
