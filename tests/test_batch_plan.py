@@ -197,6 +197,18 @@ def test_duplicate_output_names_are_refused(campaign):
     assert sorted(os.path.basename(p.output) for p in plan.pairs)[0] == "data-r0__a.csv"
 
 
+def test_a_file_matched_twice_is_one_input(campaign):
+    _, write = campaign
+    plan = load_description(write('[systems.a]\nexpression = "1/(s+1)"\n[[inputs]]\n'
+                                  'files = ["data/*.csv", "data/r1.csv"]\n'))
+    assert len(plan.inputs) == 3 and len(plan.pairs) == 3
+    # With different reader options it is two inputs, and their outputs would collide.
+    message = _error(write('[systems.a]\nexpression = "1/(s+1)"\n[[inputs]]\n'
+                           'files = ["data/*.csv"]\n[[inputs]]\nfiles = "data/r1.csv"\n'
+                           'rate = "1k"\n'))
+    assert "duplicate output name r1__a" in message
+
+
 def test_output_directory_inside_the_inputs_glob_is_refused(campaign):
     _, write = campaign
     message = _error(write('[systems.a]\nexpression = "1/(s+1)"\n[output]\ndir = "data/out"\n'

@@ -544,6 +544,7 @@ def _input_entries(inputs: Any, base: str, source: str, lines: KeyLines | None,
                             "signal = \"...\"")
     entries: list[InputEntry] = []
     patterns: list[tuple[str, str]] = []
+    seen: set[tuple] = set()  # a file matched twice with the same options is one input
     for n, table in enumerate(inputs):
         path = ["inputs", n]
         _check_keys(table, INPUT_KEYS, "[[inputs]]", lines, source, path)
@@ -603,6 +604,10 @@ def _input_entries(inputs: Any, base: str, source: str, lines: KeyLines | None,
                 found = [full]
             for p in found:
                 absp = os.path.abspath(p)
+                key = (_norm(absp), rate, channels, json.dumps(read, sort_keys=True, default=str))
+                if key in seen:
+                    continue
+                seen.add(key)
                 try:
                     label = os.path.relpath(absp, base)
                 except ValueError:  # another drive (Windows)
