@@ -192,14 +192,30 @@ def _refined_extreme(d: np.ndarray, k: int, q: int, sign: int) -> float:
     deg = 4 if npts >= 7 else 2
     span = float(max(k - lo, hi - k, 1))
     x = (np.arange(lo, hi + 1, dtype=np.float64) - k) / span
-    coef = np.polyfit(x, d[lo : hi + 1], deg)
-    r = np.roots(np.polyder(coef))
-    r = r[np.abs(r.imag) < 1e-9].real
-    r = r[(r >= x[0]) & (r <= x[-1])]
-    if r.size == 0:
+    v = np.vander(x, deg + 1, increasing=True)
+    try:
+        # normal equations of a small, well-scaled (|x| <= 1) least-squares problem
+        c = np.linalg.solve(v.T @ v, v.T @ d[lo : hi + 1])
+    except np.linalg.LinAlgError:
         return float(d[k])
-    v = np.polyval(coef, r)
-    return float(v[np.argmax(sign * v)])
+    # the largest value of the polynomial over the span: a fine grid, then Newton's method
+    # on p'(x) = 0 from the best grid point
+    grid = np.linspace(x[0], x[-1], 401)
+    vals = sign * np.polynomial.polynomial.polyval(grid, c)
+    xv = float(grid[int(np.argmax(vals))])
+    dc = c[1:] * np.arange(1, deg + 1)  # p'(x), increasing powers
+    ddc = dc[1:] * np.arange(1, deg)  # p''(x)
+    for _ in range(8):
+        curv = np.polynomial.polynomial.polyval(xv, ddc)
+        if sign * curv >= 0:
+            break  # at an end of the span, not at a turning point of p
+        step = np.polynomial.polynomial.polyval(xv, dc) / curv
+        if not (x[0] <= xv - step <= x[-1]):
+            break
+        xv -= step
+        if abs(step) < 1e-13:
+            break
+    return float(np.polynomial.polynomial.polyval(xv, c))
 
 
 def turning_point_level(
