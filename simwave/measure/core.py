@@ -1,11 +1,16 @@
 """simwave.measure: the passes over the record and the assembly of the result.
 
-Memory: the record is read in blocks (``block_size`` samples) in four passes
+Memory: the record is read in blocks (``block_size`` samples) in several passes
 (1: count, range, NaN check; 2: level histograms and the steady-state window;
-3: transitions; 4: crossing values and aberration/settling regions). Held at
-once: one block per stream, one histogram of 32768 counts per channel, the
-steady-state window (the last ``steady_fraction`` of the record, at most
-``max_window_samples`` samples per channel) and the list of transitions.
+without a reference input, up to four more for the output's own state intervals
+(transitions, segment ends, twice; the first segment pass stops after 64 segments);
+3: transitions; with a reference input, two more for the input-aligned segment ends
+and each input transition's output transition; 4: crossing values and
+aberration/settling regions). Held at once: one block per stream, one histogram of
+32768 counts per channel, the steady-state window (the last ``steady_fraction`` of
+the record, at most ``max_window_samples`` samples per channel), one segment per
+channel (at most ``max_window_samples`` samples: its last ones) and the lists of
+transitions and segments.
 """
 
 from __future__ import annotations
@@ -278,7 +283,13 @@ def measure(
         frequency: three-parameter fit; else estimated: four-parameter fit); ``tones_hz``
         (tone list for multi-tone input; else detected in the input's spectrum);
         ``steady_fraction`` (0.25: the steady-state window is this last part of the
-        record); ``state_level_method`` ("histogram" or "minmax"); ``signal_kind`` ("auto",
+        record); ``state_level_method`` ("histogram": IEEE Std 181 histogram, with levels
+        per transition from the settled ends of the input-aligned segments when a
+        reference input has transitions, and checked against the ends of the output's
+        own state intervals without one; "segment": those segment ends wherever found;
+        "minmax": smallest and largest sample only; the method used is reported);
+        ``segment_end_fraction`` (0.2: the part of a segment, at its end, whose median is
+        its level); ``signal_kind`` ("auto",
         "transitions", "sine", "multitone", "ramp", "other"); ``reference_channel`` (take
         the input from this channel of ``waveform``); ``discrete`` (a DiscreteSystem: its
         accuracy report sets the tolerances); ``gain_tolerance_db`` (0.1),
@@ -301,7 +312,10 @@ def measure(
 
     References
     ----------
-    IEEE Std 181-2011 (transitions, pulses, state levels, aberrations, settling);
+    IEEE Std 181-2011 (transitions, pulses, state levels, aberrations, settling; state
+    levels by other methods than the histogram allowed when stated);
+    A. C. Aitken, Proc. Roy. Soc. Edinburgh 46 (1926) (delta-squared extrapolation of
+    ringing turning points, :mod:`simwave.measure.segments`);
     IEEE Std 1057-2017 (sine fits, THD, SINAD); K. Ogata, *Modern Control Engineering*,
     5th ed., sec. 5-3 (second-order step response: overshoot and peak time).
     """

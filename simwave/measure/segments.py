@@ -19,8 +19,9 @@ settle, at its end:
   shrinking size), the level the ringing converges to, from the last three turning
   points by Aitken's delta-squared process. Exact when the turning points shrink
   geometrically, as those of a second-order (or one dominant pole pair) response
-  do (Ogata, sec. 5-3: successive extremes of the underdamped step response fall
-  by exp(-zeta pi / sqrt(1 - zeta^2)) per half period); an approximation otherwise.
+  do (from Ogata, sec. 5-3, eq. 5-10: the extremes of the underdamped step response
+  lie pi / omega_d apart and their distances from the final value fall by
+  exp(-zeta pi / sqrt(1 - zeta^2)) each time); an approximation otherwise.
 * ``segment end, still approaching``: the end moves steadily on, away from the level
   before, without turning back (a first-order lag given too little time): the median of
   its last five samples, the value nearest the final one, flagged not settled; the
@@ -36,7 +37,8 @@ References
 IEEE Std 181-2011, *IEEE Standard for Transitions, Pulses, and Related Waveforms*,
 clause 5.2 (state levels; methods other than the histogram allowed when stated).
 A. C. Aitken, "On Bernoulli's numerical solution of algebraic equations", Proc. Roy.
-Soc. Edinburgh 46 (1926), pp. 289-305 (the delta-squared process).
+Soc. Edinburgh 46 (1926), pp. 289-305 (the delta-squared process; volume and pages
+quoted from memory).
 K. Ogata, *Modern Control Engineering*, 5th ed., sec. 5-3.
 """
 
@@ -169,7 +171,8 @@ def _robust_noise(w: np.ndarray) -> float:
     Second differences remove a level and a slope, so slow ringing hardly counts; for
     white noise of deviation sigma they have deviation sigma sqrt(6). The factor 1.4826
     turns a median absolute deviation into a standard deviation for normal noise
-    (common practice; e.g. Huber & Ronchetti, *Robust Statistics*, 2nd ed., sec. 5.1).
+    (common practice; e.g. Huber & Ronchetti, *Robust Statistics*, 2nd ed.; section not
+    checked, from memory).
     """
     if w.size < 5:
         return 0.0
