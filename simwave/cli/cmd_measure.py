@@ -56,9 +56,10 @@ def _write_json(path: str, text: str, protect: list[str]) -> None:
               help="Tone frequencies of a multi-tone input; default: found in its spectrum.")
 @click.option("--steady-fraction", metavar="FRACTION", default="0.25", show_default=True,
               help="Steady-state window: this last part of the record.")
-@click.option("--state-levels", type=click.Choice(["histogram", "minmax"]),
+@click.option("--state-levels", type=click.Choice(["histogram", "minmax", "segment"]),
               default="histogram", show_default=True,
-              help="How the two state levels are found (IEEE Std 181 histogram mode, or min/max).")
+              help="How the state levels are found: IEEE Std 181 histogram mode (checked "
+                   "against settled segment ends), min/max, or segment ends wherever found.")
 @click.option("--kind", type=click.Choice(list(SIGNAL_KINDS)), default="auto", show_default=True,
               help="What the signal is; auto decides from the input (else the output).")
 @click.option("--method", metavar="METHOD", default=None,
