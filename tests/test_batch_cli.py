@@ -55,8 +55,10 @@ def test_quick_form_all_ok(tmp_path):
     assert worst == max(r["overshoot_pct_worst"] for r in doc["rows"]
                         if r["system"] == "system2")
     assert worst >= step["overshoot_pct_worst"]
-    # First order: no overshoot (Ogata, sec. 5-2).
-    assert doc["comparison"]["system1"]["overshoot_pct_worst"]["value"] < 0.5
+    # First order: a step does not overshoot (Ogata, sec. 5-2); the state levels of a
+    # 50 ms record leave a small measured value at most.
+    step1 = next(r for r in doc["rows"] if r["input"] == STEP and r["system"] == "system1")
+    assert step1["overshoot_pct_worst"] < 0.5
     line = next(ln for ln in result.output.splitlines() if ln.startswith("overshoot, worst"))
     assert f"{worst:.4g}" in line
 

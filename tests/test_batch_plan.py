@@ -247,7 +247,10 @@ def test_quick_form_names_systems_and_checks_them(tmp_path, monkeypatch):
     (tmp_path / "plain.toml").write_text('expression = "1/(s+1)"\n')
     plan = quick_plan(["notch.toml", "plain.toml", "10/(s+10)"],
                       ["step:rate=1k,duration=0.1"], "out")
-    assert [s.name for s in plan.systems] == ["notch50", "plain", "system3"]
+    # Batch names: the file stem (short, file-name safe); the file's own name stays the
+    # System's name, as `simwave run -s notch.toml` sees it.
+    assert [s.name for s in plan.systems] == ["notch", "plain", "system3"]
+    assert plan.systems[0].definition[1]["name"] == "notch50"
     assert plan.systems[2].definition == ("text", "10/(s+10)")
     with pytest.raises(SimwaveError, match="two systems are named 'plain'"):
         quick_plan(["plain.toml", "plain.toml"], ["step:rate=1k,duration=0.1"], "out")

@@ -52,7 +52,7 @@ class InlineEngine:
         self._current: PairTask | None = None
 
     def describe(self) -> str:
-        return "in this process (--jobs 1)"
+        return "in-process, 1 job"
 
     def results(self, tasks: Iterable[PairTask]) -> Iterator[tuple[PairTask, dict]]:
         for task in tasks:

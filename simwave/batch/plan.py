@@ -850,7 +850,8 @@ def quick_plan(systems: Sequence[str], inputs: Sequence[str], output_dir: str, *
     ----------
     systems : sequence of str
         Each an H(s) or ODE text, or a system file (``.toml``), as ``-s`` of ``simwave run``.
-        Names: the file's name (or stem); ``system1``, ``system2``, ... for texts.
+        Names (in output names and the summary): the file's stem; ``system1``,
+        ``system2``, ... for texts (by position).
     inputs : sequence of str
         Paths, globs and generated-signal texts (relative to the current directory).
     output_dir : str
@@ -868,7 +869,7 @@ def quick_plan(systems: Sequence[str], inputs: Sequence[str], output_dir: str, *
     for i, text in enumerate(systems):
         if text.strip().lower().endswith(".toml"):
             table = system_file_table(text.strip())
-            name = _safe_stem(table["name"])
+            name = _safe_stem(os.path.splitext(os.path.basename(text.strip()))[0])
             definition: tuple = ("table", table, text.strip())
             def_file = os.path.abspath(text.strip())
         else:
@@ -881,7 +882,7 @@ def quick_plan(systems: Sequence[str], inputs: Sequence[str], output_dir: str, *
             def_file = None
         if name in names:
             raise BatchError(f"two systems are named {name!r} ({names[name]} and {text}); "
-                             "rename one (name = \"...\" in its file)")
+                             "rename one of the files")
         names[name] = text
         entries.append(SystemEntry(name, definition, opts, {}, def_file))
     table: dict[str, Any] = {"files": []}

@@ -206,18 +206,20 @@ def _fmt(v: Any) -> str:
     return str(v)
 
 
-def format_comparison(comparison: Mapping[str, Any], width: int = 28) -> str:
-    """The per-system comparison as a text table: quantities down, systems across."""
+def format_comparison(comparison: Mapping[str, Any], max_width: int = 44) -> str:
+    """The per-system comparison as a text table: quantities down, systems across.
+
+    Each cell is the worst value and, in brackets, the input it came from; a
+    column is as wide as its longest cell (at most ``max_width`` characters).
+    """
     names = list(comparison)
     if not names:
         return ""
     label_w = max(len(lbl) for _, lbl, _, _ in COMPARISON) + 2
-    header = "".ljust(label_w) + "".join(n[: width - 2].ljust(width) for n in names)
-    lines = [header.rstrip()]
+    table: list[tuple[str, list[str]]] = []
 
     def line(label: str, cells: list[str]) -> None:
-        lines.append((label.ljust(label_w) + "".join(c[: width - 2].ljust(width)
-                                                     for c in cells)).rstrip())
+        table.append((label, cells))
 
     line("pairs ok / failed / not run",
          [f"{comparison[n]['ok']} / {comparison[n]['failed']} / {comparison[n]['not_run']}"
@@ -234,4 +236,15 @@ def format_comparison(comparison: Mapping[str, Any], width: int = 28) -> str:
     line("channels never settled", [str(comparison[n]["not_settled"]) for n in names])
     line("differences from H(s) flagged", [str(comparison[n]["flags"]) for n in names])
     line("outside tolerance bands", [str(comparison[n]["limit_failures"]) for n in names])
+    widths = [min(max_width, max([len(n)] + [len(cells[i]) for _, cells in table]) + 2)
+              for i, n in enumerate(names)]
+
+    def fit(text: str, w: int) -> str:
+        return (text if len(text) <= w - 2 else text[: w - 3] + "~").ljust(w)
+
+    head = "".join(fit(n, w) for n, w in zip(names, widths, strict=True))
+    lines = [("".ljust(label_w) + head).rstrip()]
+    for label, cells in table:
+        lines.append((label.ljust(label_w)
+                      + "".join(fit(c, w) for c, w in zip(cells, widths, strict=True))).rstrip())
     return "\n".join(lines)
