@@ -327,3 +327,33 @@ def test_missing_dask_is_a_clear_error(campaign, monkeypatch):
     assert result.exit_code == 2
     assert "pip install 'simwave[distributed]'" in result.output
     assert not (root / "out").exists()
+
+
+def test_the_documented_schema_example_loads(tmp_path):
+    """The description in simwave.batch.plan's docstring is a valid, complete example."""
+    import textwrap as tw
+
+    import simwave.batch.plan as plan_module
+
+    block = plan_module.__doc__.split("::", 1)[1].split("A system entry")[0]
+    (tmp_path / "recordings").mkdir()
+    (tmp_path / "extra").mkdir()
+    (tmp_path / "systems").mkdir()
+    for name in ("recordings/a.csv", "recordings/b.csv", "extra/run7.csv"):
+        (tmp_path / name).write_text("v\n0\n1\n1\n")
+    (tmp_path / "systems" / "sensor.toml").write_text('expression = "1/(1m*s + 1)"\n')
+    path = tmp_path / "campaign.toml"
+    path.write_text(tw.dedent(block))
+    plan = load_description(str(path))
+    assert plan.jobs == 4 and plan.scheduler == "tcp://10.1.2.3:8786"
+    assert plan.connect_timeout_s == 10
+    assert [s.name for s in plan.systems] == ["lp4", "sensor", "rc"]
+    assert plan.systems[0].run_options == {"method": "bilinear", "prewarp_hz": 1000.0}
+    assert plan.systems[0].limits == {"overshoot_pct_worst": (None, 12.0)}
+    assert plan.limits == {"overshoot_pct_worst": (None, 10.0),
+                           "settling_time_s_longest": (None, 0.02),
+                           "steady_state_gain": (0.99, 1.01)}
+    assert len(plan.inputs) == 4 and plan.inputs[0].rate == 10_000.0
+    assert len(plan.pairs) == 12
+    assert os.path.basename(plan.pairs[0].output) == "a__lp4.csv"
+    assert plan.write_options == {"subtype": "FLOAT"}

@@ -16,16 +16,18 @@ Description file (TOML; paths are relative to the file)::
     format = "csv"               # same (default), csv, h5, wav, flac, ...
     name = "{input}__{system}"   # file stem; {input} {system} {parent} {path} {index}
     summary = "summary"          # summary.csv and summary.json in dir
-    include_input = false
-    write = { subtype = "FLOAT" }   # writer options (subtype, on_clip, dtype, compression, ...)
+    include_input = false        # write the input beside the output
+    write = { subtype = "FLOAT" }   # writer options: subtype on_clip full_scale offset dtype
+                                    # compression delimiter time_column dataset
 
     [measure]                    # measurement options (see simwave.measure)
     settling_band_pct = 2
     reference_levels_pct = [10, 50, 90]
 
-    [limits]                     # tolerance bands on summary metrics: min and/or max
+    [limits]                     # tolerance bands on summary columns: min and/or max
     overshoot_pct_worst = { max = 10 }
     settling_time_s_longest = { max = "20m" }
+    steady_state_gain = [0.99, 1.01]      # [min, max]
 
     [systems.lp4]                # name -> one system form (as in a system file) + run options
     design = { family = "butterworth", kind = "lowpass", order = 4, cutoff_hz = "1k" }
@@ -36,6 +38,9 @@ Description file (TOML; paths are relative to the file)::
     [systems.sensor]
     file = "systems/sensor.toml" # a system file instead of an inline form
 
+    [systems]
+    rc = "2*pi*100/(s + 2*pi*100)"   # short form: H(s) text (or ODE text, with "=")
+
     [[inputs]]
     files = ["recordings/*.csv", "extra/run7.csv"]   # paths and globs (** allowed)
     rate = "10k"                 # reader options: rate channels dataset format time_column
@@ -44,6 +49,13 @@ Description file (TOML; paths are relative to the file)::
     [[inputs]]
     signal = "step:rate=10k,duration=50m,time=5m"   # generated signals (text or list)
     name = "step"                # optional: its {input} name in output names
+
+A system entry holds one system form (``expression``, ``ode``, ``coefficients``,
+``zpk``, ``design``, with ``name``, ``notes``, ``dead_time_s``: the keys of a system
+file) or ``file``, plus run options as ``simwave run`` has them: ``method``,
+``initial`` ("rest"/"settled"), ``prewarp_hz``, ``match_hz``, ``output_ics``,
+``oversample``, ``keep_going``; and ``limits``. System names become part of the
+output file names (letters, digits, ``. _ = -``).
 """
 
 from __future__ import annotations
@@ -55,7 +67,6 @@ import math
 import os
 import re
 import sys
-import warnings
 from dataclasses import dataclass, field
 from typing import Any, Callable, Mapping, Sequence
 
@@ -917,9 +928,3 @@ def quick_plan(systems: Sequence[str], inputs: Sequence[str], output_dir: str, *
     )
     make_pairs(plan, ext, patterns)
     return plan
-
-
-def warn_plan(plan: BatchPlan) -> None:
-    """Emit the plan's notes (globs matching nothing) as warnings."""
-    for note in plan.warnings:
-        warnings.warn(note, stacklevel=2)
