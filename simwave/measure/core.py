@@ -55,6 +55,9 @@ MIN_WINDOW = 8
 #: A level change smaller than this fraction of the channel's range is no transition
 #: (input-aligned segments: the output did not follow that input transition; our choice).
 NO_CHANGE_FRACTION = 0.05
+#: Input-aligned segments end this many times the next input transition's 10-90 % time
+#: before its start (a linear edge spends 1/8 of its 10-90 % time below 10 %).
+INPUT_LEAD = 0.125
 #: Without a reference input, the first round of output state intervals looks at this
 #: many (the second, on the levels they give, at all of them).
 FIRST_ROUND_SEGMENTS = 64
@@ -63,6 +66,27 @@ FIRST_ROUND_SEGMENTS = 64
 def _established(*methods: str | None) -> bool:
     """Levels found settled or extrapolated from ringing: the record establishes them."""
     return all(m in (seg.METHOD_END, seg.METHOD_EXTRAPOLATED) for m in methods)
+
+
+def _rings_down_inside(after: seg.Segment, si: float, r: EdgeRegions) -> bool:
+    """A segment whose end still rings by more than the band (not settled by the end-window
+    test) has settled all the same when its ringing converges (the turning points used for
+    its level alternate with shrinking size) and a whole swing of it, up to its last turning
+    point, lies inside the band: the output entered the band before that turning point
+    (``si``) and the swings after it are smaller still.
+
+    References
+    ----------
+    IEEE Std 181-2011 (settling: entering the band and remaining in it); the shrinking
+    turning points of a damped response, K. Ogata, *Modern Control Engineering*, 5th ed.,
+    sec. 5-3.
+    """
+    return (
+        after.method == seg.METHOD_EXTRAPOLATED
+        and after.last_tp >= 0
+        and si < after.last_tp <= r.post_end
+        and abs(after.last_tp_value - r.final) <= r.band_abs
+    )
 
 
 def _method_text(m_low: str | None, m_high: str | None, basis: str) -> str:
@@ -253,6 +277,9 @@ class _Chan:
     # own state intervals: a two-state waveform even when ringing keeps most of its
     # samples away from the levels
     established: bool = False
+    # input-aligned: the output's response onset delay (samples) the segments were cut with;
+    # None when no transition starts from a settled segment (cut where the input moves)
+    onset_delay: int | None = None
 
     @property
     def constant(self) -> bool:
@@ -671,10 +698,21 @@ class _Measurement:
 
     # ------------------------------------------------------------------ input-aligned levels
     def _input_aligned_levels(self) -> None:
-        """With a reference input of transitions: cut each output channel at the input's
-        transitions; every transition's initial level is the settled end of the segment
-        before it, its final level the settled end of its own segment; the output
-        transition is then searched between the two, on its own reference levels."""
+        """With a reference input of transitions: cut each output channel into one segment
+        per input state; every transition's initial level is the settled end of the segment
+        before it, its final level the settled end of its own segment; the output transition
+        is then searched between the two, on its own reference levels.
+
+        A segment ends where the output starts to answer the next input transition, not
+        where the input does: first the record is cut where the input starts to move, which
+        a causal system cannot answer earlier; on the transitions that start from a settled
+        segment the output's response onset delay is measured (the first sample after the
+        cut that leaves the range the output kept over that segment's end window, see
+        :func:`simwave.measure.segments.onset_threshold`), and the record is cut again that
+        much later (the smallest delay found), never past the start (near reference level
+        instant) of the output's own next transition. The level reading (last part of the
+        segment), the settled check and the settling search all use these segments.
+        """
         o = self.o
         if o.state_level_method == "minmax":
             return
@@ -685,23 +723,54 @@ class _Measurement:
                 continue
             # end each segment where the input starts to move (a linear input edge spends
             # 1/8 of its 10-90 % time below 10 %), plus a sample
-            todo[c] = seg.segments_between(self.refs[ri].edges, self.n, 0.125)
+            todo[c] = seg.segments_between(self.refs[ri].edges, self.n, INPUT_LEAD)
         if not todo:
             return
         self._collect(todo)
+        found = self._aligned_round(todo)
+        delays = self._onset_delays(found)
+        redo: dict[int, list] = {}
+        for c, delay in delays.items():
+            if delay <= 0:
+                continue
+            in_edges = self.refs[self.ref_for(c)].edges
+            stops: list = [None] * len(in_edges)
+            for i, e in found[c][1].items():
+                stops[i] = e.k_start - 1  # the output's own transition has begun
+            redo[c] = seg.segments_between(
+                in_edges, self.n, INPUT_LEAD, delay=delay, stops=stops
+            )
+        if redo:
+            self._collect(redo)
+            found.update(self._aligned_round(redo))
+        for c, (segs, matched, unmatched) in found.items():
+            ch = self.outs[c]
+            ch.segments, ch.level_mode = segs, "input-aligned"
+            ch.onset_delay = delays.get(c)
+            ch.edges = [matched[i] for i in sorted(matched)]
+            ch.edge_info = [
+                {"match": i, "before": segs[i], "after": segs[i + 1]} for i in sorted(matched)
+            ]
+            ch.unmatched = sorted(unmatched)
+            self._aligned_channel_levels(c, ch, segs)
+
+    def _aligned_round(self, todo: dict[int, list]) -> dict[int, tuple]:
+        """Levels of the input-aligned segments (already collected) and, in one pass, the
+        output transition of each input transition: {channel: (segments, {input transition:
+        output Edge}, [(input transition, why there is no output transition)])}."""
+        o = self.o
         plans: dict[int, list] = {}
+        unmatched: dict[int, list] = {}
         for c, segs in todo.items():
             ch = self.outs[c]
             in_edges = self.refs[self.ref_for(c)].edges
             self._decide(segs, ch)
-            ch.segments, ch.level_mode = segs, "input-aligned"
-            ch.edges, ch.edge_info, ch.unmatched = [], [], []
-            plans[c] = []
+            plans[c], unmatched[c] = [], []
             for i in range(len(in_edges)):
                 a, b = segs[i], segs[i + 1]
                 amp = b.level - a.level
                 if not abs(amp) > self._min_change(ch):
-                    ch.unmatched.append(
+                    unmatched[c].append(
                         (
                             i,
                             f"the output level hardly changes across it (from {a.level:.6g} "
@@ -717,10 +786,10 @@ class _Measurement:
                 finder = EdgeFinder(*refs, seed_state=seed, seed_index=a.w_start)
                 plans[c].append((i, a.w_start, b.end, direction, refs, finder))
         self._pass_aligned_edges(plans)
+        found: dict[int, tuple] = {}
         for c, plan in plans.items():
-            ch = self.outs[c]
             in_edges = self.refs[self.ref_for(c)].edges
-            segs = ch.segments
+            matched: dict[int, Edge] = {}
             for i, _lo, _hi, direction, refs, finder in plan:
                 e = next(
                     (
@@ -731,7 +800,7 @@ class _Measurement:
                     None,
                 )
                 if e is None:
-                    ch.unmatched.append(
+                    unmatched[c].append(
                         (
                             i,
                             "the output does not pass from its level before to its level after "
@@ -741,10 +810,57 @@ class _Measurement:
                     )
                     continue
                 e.refs = refs
-                ch.edges.append(e)
-                ch.edge_info.append({"match": i, "before": segs[i], "after": segs[i + 1]})
-            ch.unmatched.sort()
-            self._aligned_channel_levels(c, ch, segs)
+                matched[i] = e
+            found[c] = (todo[c], matched, unmatched[c])
+        return found
+
+    def _onset_delays(self, found: dict[int, tuple]) -> dict[int, int]:
+        """Each channel's response onset delay, in samples: over the output transitions whose
+        segment before is settled, the smallest number of samples after that segment's end
+        (where the input starts to move) during which the output stays within the onset
+        threshold of its level; one pass, stopped once every search is done. None for a
+        channel with no such transition (its segments stay cut at the input)."""
+        searches: dict[int, list] = {}
+        for c, (segs, matched, _) in found.items():
+            rows = []
+            for i, e in matched.items():
+                before, after = segs[i], segs[i + 1]
+                if not (before.settled and before.method == seg.METHOD_END):
+                    continue
+                lo, hi = before.end + 1, min(int(e.k_start), self.n - 1)
+                if hi < lo:
+                    rows.append([before.end, lo, hi, 0.0, 0.0, before.end])
+                    continue
+                thr = seg.onset_threshold(
+                    before, after.level - before.level, self.o.settling_band_pct
+                )
+                rows.append([before.end, lo, hi, before.level, thr, None])
+            if rows:
+                searches[c] = rows
+        if not searches:
+            return {}
+        pending = sum(1 for rows in searches.values() for r in rows if r[5] is None)
+        if pending:
+            for start, a, _b in self.src.blocks():
+                last = start + a.shape[0] - 1
+                for c, rows in searches.items():
+                    for r in rows:
+                        if r[5] is not None or r[1] > last or r[2] < start:
+                            continue
+                        s0, s1 = max(r[1], start), min(r[2], last)
+                        k = seg.first_departure(a[s0 - start : s1 - start + 1, c], r[3], r[4])
+                        if k >= 0:
+                            r[5] = s0 + k - 1  # the last sample still in the state
+                            pending -= 1
+                        elif s1 == r[2]:
+                            r[5] = r[2]  # still in it at the output's transition start
+                            pending -= 1
+                if pending <= 0:
+                    break
+        return {
+            c: max(0, min(int(r[5]) - int(r[0]) for r in rows if r[5] is not None))
+            for c, rows in searches.items()
+        }
 
     def _pass_aligned_edges(self, plans: dict[int, list]) -> None:
         """One pass feeding each input transition's own edge finder its search region (from
@@ -862,7 +978,12 @@ class _Measurement:
             pre_starts.append(max(ps, floor, 0))
         out = []
         for i, e in enumerate(ch.edges):
-            post_end = pre_starts[i + 1] - 1 if i + 1 < len(ch.edges) else self.n - 1
+            if ch.edge_info:
+                # input-aligned: to the end of its segment, where the output starts to answer
+                # the next input transition (the same stretch its final level is read from)
+                post_end = ch.edge_info[i]["after"].end
+            else:
+                post_end = pre_starts[i + 1] - 1 if i + 1 < len(ch.edges) else self.n - 1
             post_end = max(post_end, e.j)
             if ch.edge_info:
                 initial = ch.edge_info[i]["before"].level
@@ -988,6 +1109,9 @@ class _Measurement:
         d["reference_levels"] = self._levels_dict(ch)
         if ch.level_mode:
             d["state_levels"]["basis"] = ch.level_mode
+        if ch.level_mode == "input-aligned" and ch.onset_delay is not None:
+            # segments end this long after the input starts to move (see _input_aligned_levels)
+            d["state_levels"]["response_onset_delay_s"] = ch.onset_delay / self.rate
         rows = [
             self._transition_row(c, ch, r, ref, i) for i, r in enumerate(self.regions.get(c, []))
         ]
@@ -1189,8 +1313,11 @@ class _Measurement:
                 row[k] = None
                 reasons[k] = why
             row["settled_at_s"] = None
-        elif si is not None and (after := self._segment_after(ch, index, e)) is not None and not (
-            after.settled
+        elif (
+            si is not None
+            and (after := self._segment_after(ch, index, e)) is not None
+            and not after.settled
+            and not _rings_down_inside(after, si, r)
         ):
             # inside the band for a moment, but the end of its segment still moves by more
             # than the band: it has not settled, it is passing through (IEEE Std 181-2011:
@@ -1198,11 +1325,25 @@ class _Measurement:
             row["settling_time_s"] = None
             row["settled_at_s"] = None
             where = "the end of the record" if r.post_end >= self.n - 1 else "the next transition"
-            reasons["settling_time_s"] = (
-                f"never settles before {where}: the last part of the segment after it still "
-                f"moves by {100.0 * after.drift / amp:.3g} % of amplitude, more than the "
-                f"±{self.o.settling_band_pct:g} % band (it is only passing through the band)"
-            )
+            if after.method == seg.METHOD_EXTRAPOLATED and after.last_tp >= 0:
+                tp_pct = 100.0 * abs(after.last_tp_value - r.final) / amp
+                inside = "inside" if abs(after.last_tp_value - r.final) <= r.band_abs else "outside"
+                reasons["settling_time_s"] = (
+                    f"never settles before {where}: the last swing of its ringing there peaks "
+                    f"{tp_pct:.3g} % of amplitude from the final level, {inside} the "
+                    f"±{self.o.settling_band_pct:g} % band, and "
+                    + (
+                        "the ringing has not come back inside the band since"
+                        if inside == "outside"
+                        else "the output leaves the band again after it"
+                    )
+                )
+            else:
+                reasons["settling_time_s"] = (
+                    f"never settles before {where}: the last part of the segment after it still "
+                    f"moves by {100.0 * after.drift / amp:.3g} % of amplitude, more than the "
+                    f"±{self.o.settling_band_pct:g} % band (it is only passing through the band)"
+                )
         elif si is None:
             row["settling_time_s"] = None
             row["settled_at_s"] = None

@@ -57,6 +57,10 @@ MIN_END_WINDOW = 8
 #: Hysteresis of the turning-point search, in robust noise standard deviations, so noise
 #: alone does not make turning points (our choice).
 NOISE_HYSTERESIS = 4.0
+#: A turning point closer to the one before than this fraction of the spacing of the two
+#: before is not a swing of the ringing (our choice; the swings of a damped response are
+#: equally long).
+SHORT_SWING = 0.5
 #: Samples of a segment held at once (the last ones of a longer segment).
 DEFAULT_CAP = 1_000_000
 
@@ -87,8 +91,11 @@ class Segment:
     end_value: float = math.nan  # median of the last (up to) five samples
     allowance: float = 0.0  # part of that span the window's noise explains
     noise: float = 0.0  # robust noise standard deviation in the end window
+    spread: float = 0.0  # largest distance of an end-window sample from the window's median
     extrapolated: float | None = None
     residual: float | None = None  # size of the last turning point used (abs)
+    last_tp: int = -1  # global index of that turning point (the last closed one)
+    last_tp_value: float = math.nan  # the sample there
     turning_points: int = 0
     tp_reason: str | None = None
     # the decision
@@ -223,7 +230,7 @@ def _refined_extreme(d: np.ndarray, k: int, q: int, sign: int) -> float:
 
 def turning_point_level(
     y: np.ndarray, level0: float, noise: float
-) -> tuple[float | None, int, float | None, str | None]:
+) -> tuple[float | None, int, float | None, str | None, int]:
     """Level that ringing converges to, from its last three turning points.
 
     Parameters
@@ -234,15 +241,20 @@ def turning_point_level(
         Provisional level (the end-window median): the turning points are the extremes
         of ``y - level0`` between its sign changes (with hysteresis of
         ``NOISE_HYSTERESIS`` noise deviations), counted from the first arrival at
-        ``level0``, each refined by a least-squares parabola.
+        ``level0``, each refined by a least-squares polynomial. The last one does not
+        count when it follows the one before sooner than ``SHORT_SWING`` times their
+        spacing: the swings of ringing are equally long, and a short one at the end is
+        the onset of the next transition bending the ringing back.
     noise : float
         Robust noise standard deviation.
 
     Returns
     -------
-    level, count, residual, reason
+    level, count, residual, reason, index
         ``level`` is None (and ``reason`` says why) when there are fewer than three
-        turning points or they do not alternate about the level with shrinking size.
+        turning points or they do not alternate about the level with shrinking size;
+        ``residual`` is the distance of the last of the three from ``level``, ``index``
+        its sample (into ``y``; -1 when there is none).
 
     References
     ----------
@@ -251,41 +263,53 @@ def turning_point_level(
     """
     d = np.asarray(y, dtype=np.float64) - level0
     if d.size < 5:
-        return None, 0, None, "segment too short"
+        return None, 0, None, "segment too short", -1
+    offset = 0
     if d[0] != 0:
         arrive = np.flatnonzero(np.sign(d[0]) * d <= 0)
         if arrive.size == 0:
-            return None, 0, None, "it never reaches its end level (no ringing about it)"
-        d = d[int(arrive[0]) :]
+            return None, 0, None, "it never reaches its end level (no ringing about it)", -1
+        offset = int(arrive[0])
+        d = d[offset:]
     scale = float(np.max(np.abs(d))) if d.size else 0.0
     h = max(NOISE_HYSTERESIS * noise, 1e-9 * scale)
     state = np.where(d > h, 1, np.where(d < -h, -1, 0))
     nz = np.flatnonzero(state)
     if nz.size == 0:
-        return None, 0, None, "no ringing above the noise"
+        return None, 0, None, "no ringing above the noise", -1
     sv = state[nz]
     first = np.concatenate(([0], np.flatnonzero(sv[1:] != sv[:-1]) + 1))
     starts, signs = nz[first], sv[first]
     closed = starts.size - 1  # the last run is still open at the segment's end
+    if closed >= 3:
+        # extremes of the last three closed runs: a swing cut short is no swing of the
+        # ringing (its extremes lie half a damped period apart: Ogata, sec. 5-3); at a
+        # segment's end it is the next transition's onset bending the ringing back
+        ks = [
+            int(starts[r]) + int(np.argmax(signs[r] * d[starts[r] : starts[r + 1]]))
+            for r in range(closed - 3, closed)
+        ]
+        if ks[2] - ks[1] < SHORT_SWING * (ks[1] - ks[0]):
+            closed -= 1
     if closed < 3:
-        return None, closed, None, f"only {closed} turning point(s) (three needed)"
+        return None, closed, None, f"only {closed} turning point(s) (three needed)", -1
     p = []
     for r in range(closed - 3, closed):
         a, b = int(starts[r]), int(starts[r + 1])
         k = a + int(np.argmax(signs[r] * d[a:b]))
         if k == 0:
-            return None, closed, None, "a turning point lies at the segment's start"
+            return None, closed, None, "a turning point lies at the segment's start", -1
         q = max(1, (b - a) // 3)
         p.append(_refined_extreme(d, k, q, int(signs[r])))
     p1, p2, p3 = p
     den = (p3 - p2) - (p2 - p1)
     if den == 0:
-        return None, closed, None, "turning points do not converge"
+        return None, closed, None, "turning points do not converge", -1
     lim = p3 - (p3 - p2) ** 2 / den  # Aitken's delta-squared process
     e1, e2, e3 = p1 - lim, p2 - lim, p3 - lim
     if not (e1 * e2 < 0 and e2 * e3 < 0 and abs(e1) > abs(e2) > abs(e3)):
-        return None, closed, None, "turning points do not alternate with shrinking size"
-    return level0 + lim, closed, abs(e3), None
+        return None, closed, None, "turning points do not alternate with shrinking size", -1
+    return level0 + lim, closed, abs(e3), None, offset + k
 
 
 def analyse_segment(seg: Segment, y: np.ndarray, first: int, fraction: float) -> None:
@@ -300,6 +324,7 @@ def analyse_segment(seg: Segment, y: np.ndarray, first: int, fraction: float) ->
     seg.median = float(np.median(w))
     seg.end_value = float(np.median(w[-min(5, w.size) :]))
     seg.noise = _robust_noise(w)
+    seg.spread = float(np.max(np.abs(w - seg.median))) if w.size else 0.0
     if w_len >= MIN_END_WINDOW:
         m = w_len // 4
         meds = [float(np.median(w[i * m : (i + 1) * m])) for i in range(3)]
@@ -314,15 +339,18 @@ def analyse_segment(seg: Segment, y: np.ndarray, first: int, fraction: float) ->
         seg.drift = float(np.ptp(w)) if w.size else 0.0
         seg.allowance = 0.0
     if y.size >= MIN_END_WINDOW and seg.drift > seg.allowance:
-        lvl, count, resid, why = turning_point_level(y, seg.median, seg.noise)
+        lvl, count, resid, why, k = turning_point_level(y, seg.median, seg.noise)
         seg.extrapolated, seg.turning_points, seg.residual, seg.tp_reason = (
             lvl,
             count,
             resid,
             why,
         )
+        seg.last_tp = first + k if k >= 0 else -1
+        seg.last_tp_value = float(y[k]) if k >= 0 else math.nan
     else:
         seg.extrapolated, seg.turning_points, seg.residual, seg.tp_reason = None, 0, None, None
+        seg.last_tp = -1
 
 
 class SegmentCollector:
@@ -389,7 +417,14 @@ class SegmentCollector:
             self._flush()
 
 
-def segments_between(edges: list, n: int, lead: float = 0.0) -> list[Segment]:
+def segments_between(
+    edges: list,
+    n: int,
+    lead: float = 0.0,
+    *,
+    delay: int = 0,
+    stops: list | None = None,
+) -> list[Segment]:
     """Segments of a record cut by transitions (objects with ``k_start``, ``j`` and
     ``direction``): before the first, between each pair, after the last. A segment runs
     from the end of one transition (its far reference level instant ``j``) to the start
@@ -398,18 +433,57 @@ def segments_between(edges: list, n: int, lead: float = 0.0) -> list[Segment]:
     ``lead``: end each segment this many times the next transition's duration (``j -
     k_start``) earlier, so that the part of a slow transition before its near reference
     level (a linear edge spends 1/8 of its 10-90 % time below 10 %, a quarter of its
-    25-75 % time below 25 %) stays out of the level window."""
+    25-75 % time below 25 %) stays out of the level window.
+
+    ``delay``: move every cut this many samples later (each segment's end and the next
+    one's start): the cuts are the transitions of an input, and the output starts to
+    answer them only this long after (its response onset delay). ``stops``: for each
+    transition, the last sample the segment before it may reach (the output's own
+    transition has begun there), or None.
+    """
     segs: list[Segment] = []
     lo = 0
     for i, e in enumerate(edges):
         early = int(math.ceil(lead * max(int(e.j) - int(e.k_start), 0)))
-        hi = max(int(e.k_start) - early, lo)
+        hi = int(e.k_start) - early + int(delay)
+        if stops is not None and stops[i] is not None:
+            hi = min(hi, int(stops[i]))
+        hi = max(hi, lo)
         state = 0 if e.direction > 0 else 1
         segs.append(Segment(i, lo, min(hi, n - 1), state))
-        lo = min(int(e.j), n - 1)
+        lo = min(int(e.j) + int(delay), n - 1)
+        if lo <= hi:
+            lo = min(hi + 1, n - 1)
     last_state = (1 if edges[-1].direction > 0 else 0) if edges else -1
     segs.append(Segment(len(edges), lo, n - 1, last_state))
     return segs
+
+
+#: The output has left a settled state once it is farther from its level than this
+#: fraction of the settling band's half-width (a response smaller than that cannot move it
+#: across the band's edge by more than as much; our choice) ...
+ONSET_BAND_FRACTION = 0.1
+#: ... or, when noise or leftover ringing is larger, than this many times the largest
+#: excursion of the state's end window from its median (our choice) ...
+ONSET_MARGIN = 1.5
+#: ... but never farther than this fraction of the band's half-width.
+ONSET_BAND_MAX = 0.5
+
+
+def onset_threshold(before: Segment, amplitude: float, band_pct: float) -> float:
+    """Distance from a settled segment's level beyond which the output has left that state:
+    ``ONSET_BAND_FRACTION`` of the settling band's half-width, or ``ONSET_MARGIN`` times
+    the largest excursion of its end window from its median when that is larger (noise,
+    leftover ringing), at most ``ONSET_BAND_MAX`` of the half-width."""
+    tol = band_pct / 100.0 * abs(amplitude)
+    return min(max(ONSET_MARGIN * before.spread, ONSET_BAND_FRACTION * tol), ONSET_BAND_MAX * tol)
+
+
+def first_departure(y: np.ndarray, level: float, threshold: float) -> int:
+    """Index of the first sample of ``y`` farther than ``threshold`` from ``level`` (either
+    way, so that a preshoot counts), or -1."""
+    out = np.flatnonzero(np.abs(y - level) > threshold)
+    return int(out[0]) if out.size else -1
 
 
 #: Level methods from the most to the least trustworthy.
