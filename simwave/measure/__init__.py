@@ -9,7 +9,8 @@ metrics, set against what H(s) predicts.
     steady_window_s, predicted{system, dc_gain, second_order{...}, ...},
     input[ {name, kind, state_levels, reference_levels, transitions[...]} ],
     channels[ {name, unit, input_channel, kind, min, max, mean, rms,
-               state_levels{low, high, amplitude, method, note, basis},
+               state_levels{low, high, amplitude, method, note, basis,
+                            response_onset_delay_s},
                reference_levels{low_pct, mid_pct, high_pct, low, mid, high},
                transitions[ {index, direction, start_s, crossing_50_s, end_s,
                              rise_time_s | fall_time_s, transition_duration_s,
@@ -52,7 +53,10 @@ end of the segment before it and of its own segment ("segment end (input-aligned
 extrapolated from the turning points of ringing that has not died out
 ("turning-point extrapolation"), the last value of a still-approaching end (flagged,
 a lower bound) or, failing all, not established (its percentages, duration and
-settling null). Without one, the IEEE Std 181 histogram is checked against the ends of
+settling null). Such a segment ends where the output starts to answer the next input
+transition: where the input starts to move plus the output's response onset delay
+(``state_levels.response_onset_delay_s``, measured on the transitions that start from a
+settled state). Without one, the IEEE Std 181 histogram is checked against the ends of
 the output's own state intervals and replaced by them where it is fooled. See
 :mod:`simwave.measure.segments`.
 """

@@ -5,7 +5,9 @@ Memory: the record is read in blocks (``block_size`` samples) in several passes
 without a reference input, up to four more for the output's own state intervals
 (transitions, segment ends, twice; the first segment pass stops after 64 segments);
 3: transitions; with a reference input, two more for the input-aligned segment ends
-and each input transition's output transition; 4: crossing values and
+and each input transition's output transition, and, when the output answers the input
+late, three more (its response onset delay, then the segment ends and output
+transitions again on segments cut that much later); 4: crossing values and
 aberration/settling regions). Held at once: one block per stream, one histogram of
 32768 counts per channel, the steady-state window (the last ``steady_fraction`` of
 the record, at most ``max_window_samples`` samples per channel), one segment per
@@ -68,12 +70,14 @@ def _established(*methods: str | None) -> bool:
     return all(m in (seg.METHOD_END, seg.METHOD_EXTRAPOLATED) for m in methods)
 
 
-def _rings_down_inside(after: seg.Segment, si: float, r: EdgeRegions) -> bool:
+def _turns_inside_band(after: seg.Segment, r: EdgeRegions, allowance: float) -> bool:
     """A segment whose end still rings by more than the band (not settled by the end-window
-    test) has settled all the same when its ringing converges (the turning points used for
-    its level alternate with shrinking size) and a whole swing of it, up to its last turning
-    point, lies inside the band: the output entered the band before that turning point
-    (``si``) and the swings after it are smaller still.
+    test) has settled all the same when its ringing converges (the turning points its level
+    is extrapolated from alternate with shrinking size) and, after it last came into the
+    band, it turned back inside it: a whole swing of the ringing, up to its extreme, lies
+    inside the band, and the swings after it are smaller still. The turn must exceed the
+    noise (``NOISE_HYSTERESIS`` deviations) and ``allowance``, the most of the response to
+    the next transition the segment's end may hold, so that neither makes it.
 
     References
     ----------
@@ -81,12 +85,9 @@ def _rings_down_inside(after: seg.Segment, si: float, r: EdgeRegions) -> bool:
     turning points of a damped response, K. Ogata, *Modern Control Engineering*, 5th ed.,
     sec. 5-3.
     """
-    return (
-        after.method == seg.METHOD_EXTRAPOLATED
-        and after.last_tp >= 0
-        and si < after.last_tp <= r.post_end
-        and abs(after.last_tp_value - r.final) <= r.band_abs
-    )
+    if after.method != seg.METHOD_EXTRAPOLATED:
+        return False
+    return r.turn > max(seg.NOISE_HYSTERESIS * after.noise, allowance)
 
 
 def _method_text(m_low: str | None, m_high: str | None, basis: str) -> str:
@@ -280,6 +281,8 @@ class _Chan:
     # input-aligned: the output's response onset delay (samples) the segments were cut with;
     # None when no transition starts from a settled segment (cut where the input moves)
     onset_delay: int | None = None
+    # the most of the response to the next transition such a segment's end may hold
+    onset_allowance: float = 0.0
 
     @property
     def constant(self) -> bool:
@@ -316,7 +319,10 @@ def measure(
         own state intervals without one; "segment": those segment ends wherever found;
         "minmax": smallest and largest sample only; the method used is reported);
         ``segment_end_fraction`` (0.2: the part of a segment, at its end, whose median is
-        its level); ``signal_kind`` ("auto",
+        its level; with a reference input a segment ends where the output starts to answer
+        the next input transition: where the input starts to move plus the output's
+        response onset delay, ``state_levels.response_onset_delay_s``);
+        ``signal_kind`` ("auto",
         "transitions", "sine", "multitone", "ramp", "other"); ``reference_channel`` (take
         the input from this channel of ``waveform``); ``discrete`` (a DiscreteSystem: its
         accuracy report sets the tolerances); ``gain_tolerance_db`` (0.1),
@@ -730,7 +736,7 @@ class _Measurement:
         found = self._aligned_round(todo)
         delays = self._onset_delays(found)
         redo: dict[int, list] = {}
-        for c, delay in delays.items():
+        for c, (delay, _thr) in delays.items():
             if delay <= 0:
                 continue
             in_edges = self.refs[self.ref_for(c)].edges
@@ -746,7 +752,9 @@ class _Measurement:
         for c, (segs, matched, unmatched) in found.items():
             ch = self.outs[c]
             ch.segments, ch.level_mode = segs, "input-aligned"
-            ch.onset_delay = delays.get(c)
+            ch.onset_delay, ch.onset_allowance = delays.get(c, (None, 0.0))
+            if not ch.onset_delay:
+                ch.onset_allowance = 0.0  # cut where the input starts: none of its response
             ch.edges = [matched[i] for i in sorted(matched)]
             ch.edge_info = [
                 {"match": i, "before": segs[i], "after": segs[i + 1]} for i in sorted(matched)
@@ -814,12 +822,16 @@ class _Measurement:
             found[c] = (todo[c], matched, unmatched[c])
         return found
 
-    def _onset_delays(self, found: dict[int, tuple]) -> dict[int, int]:
-        """Each channel's response onset delay, in samples: over the output transitions whose
-        segment before is settled, the smallest number of samples after that segment's end
-        (where the input starts to move) during which the output stays within the onset
-        threshold of its level; one pass, stopped once every search is done. None for a
-        channel with no such transition (its segments stay cut at the input)."""
+    def _onset_delays(self, found: dict[int, tuple]) -> dict[int, tuple[int, float]]:
+        """Each channel's response onset delay, in samples, and the onset threshold it was
+        found with (the most of the response a segment's end may then hold).
+
+        Over the output transitions whose segment before is settled: the number of samples
+        after that segment's end (where the input starts to move) during which the output
+        stays within the onset threshold of its level, less one (the last of them may hold
+        up to a threshold's worth of the response already); the smallest of these. One
+        pass, stopped once every search is done. A channel with no such transition is left
+        out (its segments stay cut where the input starts to move)."""
         searches: dict[int, list] = {}
         for c, (segs, matched, _) in found.items():
             rows = []
@@ -827,40 +839,49 @@ class _Measurement:
                 before, after = segs[i], segs[i + 1]
                 if not (before.settled and before.method == seg.METHOD_END):
                     continue
-                lo, hi = before.end + 1, min(int(e.k_start), self.n - 1)
-                if hi < lo:
-                    rows.append([before.end, lo, hi, 0.0, 0.0, before.end])
+                # up to the output's own transition start (and the run that may begin there)
+                lo = before.end + 1
+                hi = min(int(e.k_start) + seg.ONSET_RUN, self.n - 1)
+                if int(e.k_start) < lo:
+                    rows.append([before.end, lo, hi, None, before.end])
                     continue
                 thr = seg.onset_threshold(
                     before, after.level - before.level, self.o.settling_band_pct
                 )
-                rows.append([before.end, lo, hi, before.level, thr, None])
+                if thr is None:
+                    continue  # too noisy for the band to show where the output leaves it
+                rows.append([before.end, lo, hi, seg.DepartureSearch(before.level, thr), None])
             if rows:
                 searches[c] = rows
         if not searches:
             return {}
-        pending = sum(1 for rows in searches.values() for r in rows if r[5] is None)
+        pending = sum(1 for rows in searches.values() for r in rows if r[4] is None)
         if pending:
             for start, a, _b in self.src.blocks():
                 last = start + a.shape[0] - 1
                 for c, rows in searches.items():
                     for r in rows:
-                        if r[5] is not None or r[1] > last or r[2] < start:
+                        if r[4] is not None or r[1] > last or r[2] < start:
                             continue
                         s0, s1 = max(r[1], start), min(r[2], last)
-                        k = seg.first_departure(a[s0 - start : s1 - start + 1, c], r[3], r[4])
-                        if k >= 0:
-                            r[5] = s0 + k - 1  # the last sample still in the state
+                        r[3].feed(a[s0 - start : s1 - start + 1, c], s0)
+                        if r[3].found >= 0:
+                            # a sample short of the last one still in the state: that one
+                            # may already hold up to a threshold's worth of the response
+                            r[4] = r[3].found - 2
                             pending -= 1
                         elif s1 == r[2]:
-                            r[5] = r[2]  # still in it at the output's transition start
+                            r[4] = r[2]  # still in it at the output's transition start
                             pending -= 1
                 if pending <= 0:
                     break
-        return {
-            c: max(0, min(int(r[5]) - int(r[0]) for r in rows if r[5] is not None))
-            for c, rows in searches.items()
-        }
+        out: dict[int, tuple[int, float]] = {}
+        for c, rows in searches.items():
+            done = [r for r in rows if r[4] is not None]
+            if done:
+                r = min(done, key=lambda r: int(r[4]) - int(r[0]))
+                out[c] = (max(0, int(r[4]) - int(r[0])), r[3].threshold if r[3] else 0.0)
+        return out
 
     def _pass_aligned_edges(self, plans: dict[int, list]) -> None:
         """One pass feeding each input transition's own edge finder its search region (from
@@ -1109,9 +1130,21 @@ class _Measurement:
         d["reference_levels"] = self._levels_dict(ch)
         if ch.level_mode:
             d["state_levels"]["basis"] = ch.level_mode
-        if ch.level_mode == "input-aligned" and ch.onset_delay is not None:
+        if ch.level_mode == "input-aligned":
             # segments end this long after the input starts to move (see _input_aligned_levels)
-            d["state_levels"]["response_onset_delay_s"] = ch.onset_delay / self.rate
+            sl = d["state_levels"]
+            if ch.onset_delay is not None:
+                sl["response_onset_delay_s"] = ch.onset_delay / self.rate
+            else:
+                sl["response_onset_delay_s"] = None
+                sl["null_reasons"] = {
+                    "response_onset_delay_s": (
+                        "no output transition starts from a settled state quiet enough (noise "
+                        f"under about a third of the ±{self.o.settling_band_pct:g} % band) to "
+                        "show where the output starts to answer the input: segments end where "
+                        "the input starts to move"
+                    )
+                }
         rows = [
             self._transition_row(c, ch, r, ref, i) for i, r in enumerate(self.regions.get(c, []))
         ]
@@ -1317,7 +1350,7 @@ class _Measurement:
             si is not None
             and (after := self._segment_after(ch, index, e)) is not None
             and not after.settled
-            and not _rings_down_inside(after, si, r)
+            and not _turns_inside_band(after, r, ch.onset_allowance if ch.edge_info else 0.0)
         ):
             # inside the band for a moment, but the end of its segment still moves by more
             # than the band: it has not settled, it is passing through (IEEE Std 181-2011:
@@ -1325,18 +1358,13 @@ class _Measurement:
             row["settling_time_s"] = None
             row["settled_at_s"] = None
             where = "the end of the record" if r.post_end >= self.n - 1 else "the next transition"
-            if after.method == seg.METHOD_EXTRAPOLATED and after.last_tp >= 0:
-                tp_pct = 100.0 * abs(after.last_tp_value - r.final) / amp
-                inside = "inside" if abs(after.last_tp_value - r.final) <= r.band_abs else "outside"
+            if after.method == seg.METHOD_EXTRAPOLATED:
                 reasons["settling_time_s"] = (
-                    f"never settles before {where}: the last swing of its ringing there peaks "
-                    f"{tp_pct:.3g} % of amplitude from the final level, {inside} the "
-                    f"±{self.o.settling_band_pct:g} % band, and "
-                    + (
-                        "the ringing has not come back inside the band since"
-                        if inside == "outside"
-                        else "the output leaves the band again after it"
-                    )
+                    f"never settles before {where}: it comes into the "
+                    f"±{self.o.settling_band_pct:g} % band only "
+                    f"{1e3 * (r.post_end - si) / rate:.3g} ms before the output starts to "
+                    "answer it, and its ringing does not turn back inside the band in that "
+                    "time (it is only passing through the band)"
                 )
             else:
                 reasons["settling_time_s"] = (

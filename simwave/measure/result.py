@@ -235,6 +235,12 @@ def format_result(data: dict) -> str:
                 f"  state levels: low {_num(sl['low'])}, high {_num(sl['high'])} "
                 f"({sl['method']})" + (f"; {sl['note']}" if sl.get("note") else "")
             )
+            if sl.get("response_onset_delay_s") is not None:
+                lines.append(
+                    "  segments end where the output starts to answer the next input "
+                    f"transition: {_num(sl['response_onset_delay_s'], ' s')} after the input "
+                    "starts to move (response onset delay)"
+                )
         trans = ch.get("transitions")
         if trans:
             rows = []

@@ -8,7 +8,24 @@ its overshoot peaks. Here the record is cut into segments, each holding one
 state: between the transitions of the reference input ("input-aligned"), or
 between the output's own transitions when there is no input ("output state
 intervals"). Each segment's level is read where it has had the longest time to
-settle, at its end:
+settle, at its end.
+
+Where an input-aligned segment ends: where the OUTPUT starts to answer the next input
+transition, not where the input does (a system with lag or dead time goes on settling
+toward the current level after the input's next edge has begun). That instant is the
+input's start (1/8 of its 10-90 % time before its 10 % instant, where a linear edge
+leaves its level) plus the output's response onset delay: on the transitions that start
+from a settled segment, the number of samples after that start during which the output
+stays within :func:`onset_threshold` of its level (a tenth of the settling band's
+half-width, or three robust deviations of the segment end when noise is larger; it has
+left when ``ONSET_RUN`` samples in a row lie beyond), less one, the smallest over those
+transitions; never past the near reference level instant of
+the output's own next transition. The input's start alone is a safe cut (a causal system
+cannot answer earlier) and is kept when no transition starts from a settled segment quiet
+enough (noise under about a third of the band) to show where the output leaves it.
+The level window, the settled test and the settling search all use the same segment.
+
+The level:
 
 * ``segment end``: the median of the last ``fraction`` of the segment, when that
   window is settled: the medians of its four quarters span no more than the
@@ -91,11 +108,9 @@ class Segment:
     end_value: float = math.nan  # median of the last (up to) five samples
     allowance: float = 0.0  # part of that span the window's noise explains
     noise: float = 0.0  # robust noise standard deviation in the end window
-    spread: float = 0.0  # largest distance of an end-window sample from the window's median
+    scatter: float = 0.0  # robust deviation of the end window about its median (noise, hum)
     extrapolated: float | None = None
     residual: float | None = None  # size of the last turning point used (abs)
-    last_tp: int = -1  # global index of that turning point (the last closed one)
-    last_tp_value: float = math.nan  # the sample there
     turning_points: int = 0
     tp_reason: str | None = None
     # the decision
@@ -230,7 +245,7 @@ def _refined_extreme(d: np.ndarray, k: int, q: int, sign: int) -> float:
 
 def turning_point_level(
     y: np.ndarray, level0: float, noise: float
-) -> tuple[float | None, int, float | None, str | None, int]:
+) -> tuple[float | None, int, float | None, str | None]:
     """Level that ringing converges to, from its last three turning points.
 
     Parameters
@@ -250,11 +265,10 @@ def turning_point_level(
 
     Returns
     -------
-    level, count, residual, reason, index
+    level, count, residual, reason
         ``level`` is None (and ``reason`` says why) when there are fewer than three
         turning points or they do not alternate about the level with shrinking size;
-        ``residual`` is the distance of the last of the three from ``level``, ``index``
-        its sample (into ``y``; -1 when there is none).
+        ``residual`` is the distance of the last of the three from ``level``.
 
     References
     ----------
@@ -263,20 +277,18 @@ def turning_point_level(
     """
     d = np.asarray(y, dtype=np.float64) - level0
     if d.size < 5:
-        return None, 0, None, "segment too short", -1
-    offset = 0
+        return None, 0, None, "segment too short"
     if d[0] != 0:
         arrive = np.flatnonzero(np.sign(d[0]) * d <= 0)
         if arrive.size == 0:
-            return None, 0, None, "it never reaches its end level (no ringing about it)", -1
-        offset = int(arrive[0])
-        d = d[offset:]
+            return None, 0, None, "it never reaches its end level (no ringing about it)"
+        d = d[int(arrive[0]) :]
     scale = float(np.max(np.abs(d))) if d.size else 0.0
     h = max(NOISE_HYSTERESIS * noise, 1e-9 * scale)
     state = np.where(d > h, 1, np.where(d < -h, -1, 0))
     nz = np.flatnonzero(state)
     if nz.size == 0:
-        return None, 0, None, "no ringing above the noise", -1
+        return None, 0, None, "no ringing above the noise"
     sv = state[nz]
     first = np.concatenate(([0], np.flatnonzero(sv[1:] != sv[:-1]) + 1))
     starts, signs = nz[first], sv[first]
@@ -292,24 +304,24 @@ def turning_point_level(
         if ks[2] - ks[1] < SHORT_SWING * (ks[1] - ks[0]):
             closed -= 1
     if closed < 3:
-        return None, closed, None, f"only {closed} turning point(s) (three needed)", -1
+        return None, closed, None, f"only {closed} turning point(s) (three needed)"
     p = []
     for r in range(closed - 3, closed):
         a, b = int(starts[r]), int(starts[r + 1])
         k = a + int(np.argmax(signs[r] * d[a:b]))
         if k == 0:
-            return None, closed, None, "a turning point lies at the segment's start", -1
+            return None, closed, None, "a turning point lies at the segment's start"
         q = max(1, (b - a) // 3)
         p.append(_refined_extreme(d, k, q, int(signs[r])))
     p1, p2, p3 = p
     den = (p3 - p2) - (p2 - p1)
     if den == 0:
-        return None, closed, None, "turning points do not converge", -1
+        return None, closed, None, "turning points do not converge"
     lim = p3 - (p3 - p2) ** 2 / den  # Aitken's delta-squared process
     e1, e2, e3 = p1 - lim, p2 - lim, p3 - lim
     if not (e1 * e2 < 0 and e2 * e3 < 0 and abs(e1) > abs(e2) > abs(e3)):
-        return None, closed, None, "turning points do not alternate with shrinking size", -1
-    return level0 + lim, closed, abs(e3), None, offset + k
+        return None, closed, None, "turning points do not alternate with shrinking size"
+    return level0 + lim, closed, abs(e3), None
 
 
 def analyse_segment(seg: Segment, y: np.ndarray, first: int, fraction: float) -> None:
@@ -324,7 +336,9 @@ def analyse_segment(seg: Segment, y: np.ndarray, first: int, fraction: float) ->
     seg.median = float(np.median(w))
     seg.end_value = float(np.median(w[-min(5, w.size) :]))
     seg.noise = _robust_noise(w)
-    seg.spread = float(np.max(np.abs(w - seg.median))) if w.size else 0.0
+    # 1.4826 MAD: the standard deviation of normal noise (common practice, as above); unlike
+    # the second differences it also counts slow noise and hum
+    seg.scatter = float(1.4826 * np.median(np.abs(w - seg.median))) if w.size else 0.0
     if w_len >= MIN_END_WINDOW:
         m = w_len // 4
         meds = [float(np.median(w[i * m : (i + 1) * m])) for i in range(3)]
@@ -339,18 +353,15 @@ def analyse_segment(seg: Segment, y: np.ndarray, first: int, fraction: float) ->
         seg.drift = float(np.ptp(w)) if w.size else 0.0
         seg.allowance = 0.0
     if y.size >= MIN_END_WINDOW and seg.drift > seg.allowance:
-        lvl, count, resid, why, k = turning_point_level(y, seg.median, seg.noise)
+        lvl, count, resid, why = turning_point_level(y, seg.median, seg.noise)
         seg.extrapolated, seg.turning_points, seg.residual, seg.tp_reason = (
             lvl,
             count,
             resid,
             why,
         )
-        seg.last_tp = first + k if k >= 0 else -1
-        seg.last_tp_value = float(y[k]) if k >= 0 else math.nan
     else:
         seg.extrapolated, seg.turning_points, seg.residual, seg.tp_reason = None, 0, None, None
-        seg.last_tp = -1
 
 
 class SegmentCollector:
@@ -463,27 +474,77 @@ def segments_between(
 #: fraction of the settling band's half-width (a response smaller than that cannot move it
 #: across the band's edge by more than as much; our choice) ...
 ONSET_BAND_FRACTION = 0.1
-#: ... or, when noise or leftover ringing is larger, than this many times the largest
-#: excursion of the state's end window from its median (our choice) ...
-ONSET_MARGIN = 1.5
-#: ... but never farther than this fraction of the band's half-width.
+#: ... or, when noise or leftover ringing is larger, than this many robust deviations of the
+#: state's end window about its median (our choice; with ``ONSET_RUN`` samples in a row
+#: needed beyond it, normal noise does it less than once in 10^8 tries) ...
+ONSET_MARGIN = 3.0
+#: ... but a state whose noise asks for more than this fraction of the band's half-width
+#: cannot show where the output leaves it without letting that much of the response in.
 ONSET_BAND_MAX = 0.5
 
 
-def onset_threshold(before: Segment, amplitude: float, band_pct: float) -> float:
+def onset_threshold(before: Segment, amplitude: float, band_pct: float) -> float | None:
     """Distance from a settled segment's level beyond which the output has left that state:
-    ``ONSET_BAND_FRACTION`` of the settling band's half-width, or ``ONSET_MARGIN`` times
-    the largest excursion of its end window from its median when that is larger (noise,
-    leftover ringing), at most ``ONSET_BAND_MAX`` of the half-width."""
+    ``ONSET_BAND_FRACTION`` of the settling band's half-width, or ``ONSET_MARGIN`` robust
+    deviations of its end window about its median when that is larger (noise, hum,
+    leftover ringing); None when that exceeds ``ONSET_BAND_MAX`` of the half-width (the
+    state is too noisy for the band to tell where the output leaves it)."""
     tol = band_pct / 100.0 * abs(amplitude)
-    return min(max(ONSET_MARGIN * before.spread, ONSET_BAND_FRACTION * tol), ONSET_BAND_MAX * tol)
+    thr = max(ONSET_MARGIN * before.scatter, ONSET_BAND_FRACTION * tol)
+    return thr if thr <= ONSET_BAND_MAX * tol else None
 
 
-def first_departure(y: np.ndarray, level: float, threshold: float) -> int:
-    """Index of the first sample of ``y`` farther than ``threshold`` from ``level`` (either
-    way, so that a preshoot counts), or -1."""
-    out = np.flatnonzero(np.abs(y - level) > threshold)
-    return int(out[0]) if out.size else -1
+#: Samples in a row, on one side, beyond the onset threshold: where the output has left its
+#: state (a lone noise sample does not; three white-noise samples in a row beyond three
+#: deviations on one side: (1.35e-3)^3, about 2.5e-9; our choice).
+ONSET_RUN = 3
+
+
+class DepartureSearch:
+    """First sample of the first run of ``ONSET_RUN`` samples in a row on one side of
+    ``level``, each farther from it than ``threshold``: where the output leaves a state
+    (either way, so that a preshoot counts). Feed blocks in order with :meth:`feed`;
+    ``found`` is that global index, or -1.
+    """
+
+    def __init__(self, level: float, threshold: float) -> None:
+        self.level, self.threshold = level, threshold
+        self.found = -1
+        self._side = 0  # side and length of the run open at the end of the last block
+        self._run = 0
+        self._run_start = -1
+
+    def feed(self, y: np.ndarray, start: int) -> None:
+        if self.found >= 0 or y.size == 0:
+            return
+        dev = y - self.level
+        side = np.where(dev > self.threshold, 1, np.where(dev < -self.threshold, -1, 0))
+        # run starts: a sample whose side differs from the one before (or the block's first)
+        prev = np.concatenate(([self._side], side[:-1]))
+        new = side != prev
+        idx = np.arange(side.size)
+        first = np.where(new, idx, 0)
+        np.maximum.accumulate(first, out=first)  # local start of the run each sample is in
+        length = idx - first + 1
+        carried = first == 0
+        if self._side != 0:
+            length = np.where(carried & (side == self._side), length + self._run, length)
+        hit = np.flatnonzero((side != 0) & (length >= ONSET_RUN))
+        if hit.size:
+            k = int(hit[0])
+            if carried[k] and self._side != 0 and side[k] == self._side:
+                self.found = self._run_start
+            else:
+                self.found = start + int(first[k])
+            return
+        last_first = int(first[-1])
+        if side[-1] == 0:
+            self._side, self._run, self._run_start = 0, 0, -1
+        elif last_first == 0 and self._side == side[-1]:
+            self._run += side.size
+        else:
+            self._side, self._run = int(side[-1]), side.size - last_first
+            self._run_start = start + last_first
 
 
 #: Level methods from the most to the least trustworthy.

@@ -23,13 +23,19 @@ the standard leaves their extent to the user):
   Preshoot = largest excursion beyond the initial state level there.
 * Post-transition aberration region: from the end of the transition to the
   start of the next transition's pre-transition region (or the end of the
-  record). Overshoot = largest excursion beyond the final state level there;
-  undershoot = largest excursion back short of the final state level after the
-  waveform first reached it. Both in percent of the waveform amplitude.
+  record); with a reference input, to the end of the transition's segment, where
+  the output starts to answer the next input transition
+  (:mod:`simwave.measure.segments`). Overshoot = largest excursion beyond the
+  final state level there; undershoot = largest excursion back short of the final
+  state level after the waveform first reached it. Both in percent of the waveform
+  amplitude.
 * Settling time: from the time origin (the matched input transition's 50 %
   instant, else this transition's start) to the last instant the waveform is
   outside the band final level +/- band % of amplitude, searched from the start
-  of the transition to the end of its post-transition region.
+  of the transition to the end of its post-transition region. It has settled when
+  the waveform remains in the band from there to the region's end and that part is
+  settled (its final level read from a flat segment end) or holds a whole swing of
+  ringing that converges (the swings after it are smaller still).
 """
 
 from __future__ import annotations
@@ -167,6 +173,11 @@ class EdgeRegions:
     last_out_next: float | None = None
     tail_start: int = 0
     tail_dev: float = 0.0
+    # since the last sample outside the band: the side it came in from (-1 below, +1 above),
+    # its running extreme in that direction and the largest turn back from it
+    entry_side: int = 0
+    run_extreme: float = math.nan
+    turn: float = 0.0
 
     def __post_init__(self) -> None:
         self.s = self.edge.direction
@@ -190,11 +201,16 @@ class EdgeRegions:
         if lo <= hi:
             seg = y[lo - start : hi - start + 1]
             out = np.flatnonzero(np.abs(seg - self.final) > self.band_abs)
+            inside = seg
             if out.size:
                 k = lo + int(out[-1])
                 self.last_out = k
                 self.last_out_val = float(y[k - start])
                 self.last_out_next = float(y[k - start + 1]) if k < last else None
+                self.entry_side = 1 if self.last_out_val > self.final else -1
+                self.run_extreme, self.turn = math.nan, 0.0
+                inside = seg[int(out[-1]) + 1 :]
+            self._track_turn(inside)
         lo, hi = max(e.j, start), min(self.post_end, last)
         if lo > hi:
             return
@@ -219,6 +235,19 @@ class EdgeRegions:
         if tl <= hi:
             dev = float(np.max(np.abs(y[tl - start : hi - start + 1] - self.final)))
             self.tail_dev = max(self.tail_dev, dev)
+
+    def _track_turn(self, inside: np.ndarray) -> None:
+        """Largest turn back of the waveform inside the band since it last came in: after
+        coming in from below, how far it fell back from its running maximum (from above:
+        rose back from its running minimum)."""
+        if inside.size == 0 or self.entry_side == 0:
+            return
+        v = -self.entry_side * inside  # rising into the band from below: v rises too
+        if not math.isnan(self.run_extreme):
+            v = np.concatenate(([self.run_extreme], v))
+        run = np.maximum.accumulate(v)
+        self.turn = max(self.turn, float(np.max(run - v)))
+        self.run_extreme = float(run[-1])
 
     # ------------------------------------------------------------------ results
     def peak(self) -> tuple[float, float] | None:
