@@ -234,10 +234,10 @@ def test_noise_on_the_dead_time_output():
     # The dead-time case of above (tau1 = 5 ms, +/-0.1 % band) with white noise on the output.
     # At 0.01 % of the amplitude (a tenth of the band's half-width) the onset delay is still
     # the dead time and every edge settles, a little later than without noise (a noise
-    # excursion beyond the band delays the last exit). At 0.04 % (a third of the band's
-    # width: the rest level's excursions reach half its half-width) where the output leaves
-    # its state cannot be told from noise: no onset delay, with the reason, and the
-    # segments stay cut where the input starts to move.
+    # excursion beyond the band delays the last exit). At 0.04 % (three deviations are more
+    # than half the band's half-width) where the output leaves its state cannot be told
+    # from noise: no onset delay, with the reason, and the segments stay cut where the
+    # input starts to move.
     fs, tau, tau1, band_pct = 10_000.0, 0.020, 0.005, 0.1
     edges = pulse_edges(0.05, 0.05, 0.1, 3, 0.001, 1.0)
     resp = RampTrainResponse([1.0], [tau1, 1.0], 0.0, edges, dead=tau)

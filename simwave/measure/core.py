@@ -1139,10 +1139,10 @@ class _Measurement:
                 sl["response_onset_delay_s"] = None
                 sl["null_reasons"] = {
                     "response_onset_delay_s": (
-                        "no output transition starts from a settled state quiet enough (noise "
-                        f"under about a third of the ±{self.o.settling_band_pct:g} % band) to "
-                        "show where the output starts to answer the input: segments end where "
-                        "the input starts to move"
+                        "no output transition starts from a settled state quiet enough (three "
+                        "robust deviations of its noise within half of the "
+                        f"±{self.o.settling_band_pct:g} % band) to show where the output starts "
+                        "to answer the input: segments end where the input starts to move"
                     )
                 }
         rows = [

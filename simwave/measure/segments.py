@@ -19,11 +19,12 @@ from a settled segment, the number of samples after that start during which the 
 stays within :func:`onset_threshold` of its level (a tenth of the settling band's
 half-width, or three robust deviations of the segment end when noise is larger; it has
 left when ``ONSET_RUN`` samples in a row lie beyond), less one, the smallest over those
-transitions; never past the near reference level instant of
-the output's own next transition. The input's start alone is a safe cut (a causal system
-cannot answer earlier) and is kept when no transition starts from a settled segment quiet
-enough (noise under about a third of the band) to show where the output leaves it.
-The level window, the settled test and the settling search all use the same segment.
+transitions; never past the near reference level instant of the output's own next
+transition. The input's start alone is a safe cut (a causal system cannot answer
+earlier) and is kept when no transition starts from a settled segment quiet enough
+(three robust deviations of its noise within half the band's half-width) to show where
+the output leaves it. The level window, the settled test and the settling search all use
+the same segment.
 
 The level:
 
