@@ -7,14 +7,18 @@ Makes N short recordings (CSV, 0.05 s at 2 kHz: steps and pulses, invented data)
 and runs them all through one system with measurement (every pair writes its
 output and its metrics JSON), in one process run, on:
 
-1. ``--jobs 1`` (the pairs in the batch process itself),
-2. ``--jobs 2`` (a local process pool of two workers),
-3. a Dask ``LocalCluster`` of two single-threaded worker processes (started
+1. ``--jobs 1`` (the pairs in the batch process itself: what a user gets),
+2. a local process pool of one worker (the same worker set-up as 3., so 3. / 2. is
+   the scaling of the pool alone: pool workers run BLAS single-threaded, the batch
+   process keeps the library default),
+3. ``--jobs 2`` (a local process pool of two workers),
+4. a Dask ``LocalCluster`` of two single-threaded worker processes (started
    before the clock starts, as a cluster one connects to would be).
 
 Prints pairs per second for each, the ``--jobs 2`` / ``--jobs 1`` throughput ratio
-(target >= 1.8x on two cores), and the per-pair wall-time overhead of the Dask
-engine over the local pool with the same two worker processes. Each engine writes
+(target >= 1.8x on two cores) and the 2-worker / 1-worker pool ratio, and the
+per-pair wall-time overhead of the Dask engine over the local pool with the same
+two worker processes. Each engine writes
 to its own fresh output directory. With ``--rounds`` > 1 the engines are
 interleaved and each keeps its best time (the machines are shared and noisy).
 ``os.getloadavg()`` is printed before and after: other work on the machine
@@ -34,7 +38,7 @@ import warnings
 
 import simwave
 from simwave.batch import load_description, run_batch
-from simwave.batch.engines import DaskEngine, default_jobs
+from simwave.batch.engines import DaskEngine, PoolEngine, default_jobs
 
 RATE = 2000.0
 DURATION = 0.05
@@ -103,12 +107,13 @@ def main() -> None:
                                dashboard_address=None, silence_logs=logging.ERROR)
         print(f"Dask LocalCluster (2 worker processes x 1 thread) started in "
               f"{time.perf_counter() - t0:.1f} s (not counted)")
-        best = {"jobs1": float("inf"), "jobs2": float("inf"), "dask": float("inf")}
+        best = {k: float("inf") for k in ("jobs1", "pool1", "jobs2", "dask")}
         cpu = {}
         n = 0
         try:
             for _ in range(args.rounds):
-                for name, kw in (("jobs1", {"jobs": 1}), ("jobs2", {"jobs": 2}),
+                for name, kw in (("jobs1", {"jobs": 1}), ("pool1", {"engine": PoolEngine(1)}),
+                                 ("jobs2", {"jobs": 2}),
                                  ("dask", {"engine": DaskEngine(cluster.scheduler_address)})):
                     elapsed, n, used = timed(root, name, args.state_levels, **kw)
                     if elapsed < best[name]:
@@ -118,13 +123,13 @@ def main() -> None:
         finally:
             cluster.close()
         t1, t2, td = best["jobs1"], best["jobs2"], best["dask"]
-        workers = {"jobs1": 1, "jobs2": 2, "dask": 2}
+        workers = {"jobs1": 1, "pool1": 1, "jobs2": 2, "dask": 2}
         print()
         print(f"pairs: {n} (one system, output + metrics JSON each)")
         print("engine                     wall      pairs/s   ms/pair   worker CPU ms/pair  "
               "CPU busy")
-        labels = {"jobs1": "--jobs 1 (in-process)", "jobs2": "--jobs 2 (process pool)",
-                  "dask": "Dask, 2 worker processes"}
+        labels = {"jobs1": "--jobs 1 (in-process)", "pool1": "pool of 1 worker",
+                  "jobs2": "--jobs 2 (process pool)", "dask": "Dask, 2 worker processes"}
         for name, label in labels.items():
             t = best[name]
             # CPU busy: the workers' CPU time over (wall time x workers); below 100 % means
@@ -132,6 +137,7 @@ def main() -> None:
             print(f"{label:26s} {t:8.2f} s {n / t:8.1f} {t / n * 1e3:9.2f} "
                   f"{cpu[name] / n * 1e3:12.2f} {100 * cpu[name] / (t * workers[name]):14.0f} %")
         print(f"scaling --jobs 2 / --jobs 1: {t1 / t2:.2f}x throughput (target >= 1.8x)")
+        print(f"scaling pool 2 workers / pool 1 worker: {best['pool1'] / t2:.2f}x throughput")
         print(f"Dask / local pool (same 2 workers): {td / t2:.2f}x wall time; overhead "
               f"{(td - t2) / n * 1e3:+.2f} ms per pair wall, {(td - t2) / n * 2e3:+.2f} ms "
               "per pair of worker time")

@@ -19,10 +19,12 @@ import threading
 import time
 
 import pytest
+from click.testing import CliRunner
 
 import simwave
 from simwave.batch import load_description, run_batch
 from simwave.batch.engines import InlineEngine
+from simwave.cli import main
 from simwave.cli.system_input import load_system_file, system_from_mapping
 from simwave.measure import key_metrics
 from simwave.run import RunJob, execute
@@ -194,6 +196,12 @@ def test_local_pool_matches_one_by_one_runs(campaign):
     result = run_batch(plan, jobs=2)
     assert result.engine.startswith("local process pool, 2 workers")
     _check_against_reference(root, "pool", result, reference)
+    # The command line `simwave run` writes the same bytes for a pair as the batch did.
+    cli_out = root / "cli-rec000__rc.csv"
+    run = CliRunner().invoke(main, ["run", str(root / "data" / "rec000.csv"), "-s",
+                                    str(root / "systems" / "rc.toml"), "-o", str(cli_out)])
+    assert run.exit_code == 0, run.output
+    assert _normal_output(str(cli_out)) == _normal_output(str(root / "pool" / "rec000__rc.csv"))
     # Both workers took part (the pool really ran in parallel processes).
     assert len({r["worker"] for r in result.results.values()} - {os.getpid()}) == 2
     # The summary files say the same as the result object.
