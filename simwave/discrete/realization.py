@@ -174,17 +174,28 @@ def analog_state_space(zeros, poles, gain: float):
     m = len(groups)
     total = abs(gain) * float(np.prod(mags))
     share = total ** (1.0 / m) if total > 0 else 0.0
-    A = np.zeros((0, 0))
-    B = np.zeros((0, 1))
-    C = np.zeros((1, 0))
-    D = np.ones((1, 1))
+    parts = []
     for i, ((z, p), mag) in enumerate(zip(groups, mags, strict=True)):
         g = share / mag
         if i == 0 and gain < 0:
             g = -g
-        Ai, Bi, Ci, Di = _section_ss(z, p, g)
+        parts.append(_section_ss(z, p, g))
+    return series_state_space(parts)
+
+
+def series_state_space(parts):
+    """Cascade of single-input single-output state-space blocks (A, B, C, D), in order.
+
+    The previous block's output y = C x + D u feeds the next block's input, so
+    the states stack block-lower-triangularly (Ogata, *Modern Control
+    Engineering*, 5th ed., ch. 9, series connection; section number from memory).
+    """
+    A = np.zeros((0, 0))
+    B = np.zeros((0, 1))
+    C = np.zeros((1, 0))
+    D = np.ones((1, 1))
+    for Ai, Bi, Ci, Di in parts:
         n, k = A.shape[0], Ai.shape[0]
-        # Series connection: previous output y = C x + D u feeds this section.
         A = np.block([[A, np.zeros((n, k))], [Bi @ C, Ai]])
         B = np.vstack([B, Bi @ D])
         C = np.hstack([Di @ C, Ci])

@@ -409,28 +409,21 @@ class System:
         """
         from scipy.signal import tf2ss
 
-        A = np.zeros((0, 0))
-        B = np.zeros((0, 1))
-        C = np.zeros((1, 0))
-        D = np.ones((1, 1))
+        from simwave.discrete.realization import series_state_space
+
+        parts = []
         for row in self.sections:
             b = np.trim_zeros(row[:3], "f")
             a = np.trim_zeros(row[3:], "f")
-            if a.size == 1:  # a pure gain
-                D = D * (b[0] / a[0] if b.size else 0.0)
-                C = C * (b[0] / a[0] if b.size else 0.0)
+            if a.size == 1:  # a pure gain: a block without states
+                g = b[0] / a[0] if b.size else 0.0
+                parts.append((np.zeros((0, 0)), np.zeros((0, 1)), np.zeros((1, 0)),
+                              np.array([[g]])))
                 continue
             Ai, Bi, Ci, Di = (np.atleast_2d(m) for m in tf2ss(b if b.size else [0.0], a))
-            Ai = Ai.reshape(a.size - 1, a.size - 1)
-            Bi = Bi.reshape(a.size - 1, 1)
-            Ci = Ci.reshape(1, a.size - 1)
-            # Series connection: the previous output feeds this section's input.
-            n, m = A.shape[0], Ai.shape[0]
-            A = np.block([[A, np.zeros((n, m))], [Bi @ C, Ai]])
-            B = np.vstack([B, Bi @ D])
-            C = np.hstack([Di @ C, Ci])
-            D = Di @ D
-        return A, B, C, D
+            parts.append((Ai.reshape(a.size - 1, a.size - 1), Bi.reshape(a.size - 1, 1),
+                          Ci.reshape(1, a.size - 1), Di.reshape(1, 1)))
+        return series_state_space(parts)
 
     # ----------------------------------------------------------------- response
     def frequency_response(self, f_hz: Any) -> np.ndarray:

@@ -126,14 +126,16 @@ class TimeAxis:
         self.next_k = 0
         self.off_grid = 0
 
+    def _intervals(self, t: np.ndarray) -> tuple[np.ndarray, int]:
+        """Intervals ending at each row (from the previous piece's last time when known),
+        and the index of the row the first interval ends at."""
+        if self.prev_t is not None:
+            return np.diff(t, prepend=self.prev_t), 0
+        return np.diff(t), 1
+
     def _monotonic(self, rows: Rows) -> None:
         t = rows.time
-        if self.prev_t is not None:
-            d = np.diff(t, prepend=self.prev_t)
-            base = 0
-        else:
-            d = np.diff(t)
-            base = 1
+        d, base = self._intervals(t)
         bad = np.flatnonzero(~(d > 0))
         if bad.size:
             i = int(bad[0]) + base
@@ -162,12 +164,7 @@ class TimeAxis:
 
     def _check_regular(self, rows: Rows) -> None:
         t = rows.time
-        if self.prev_t is not None:
-            d = np.diff(t, prepend=self.prev_t)
-            base = 0
-        else:
-            d = np.diff(t)
-            base = 1
+        d, base = self._intervals(t)
         tol = _grid_tolerance(t if base == 0 else t[1:], self.dt)
         bad = np.flatnonzero(np.abs(d - self.dt) > tol)
         if bad.size:
