@@ -284,3 +284,22 @@ def test_constant_input_gain_and_ramp_kind():
     assert ch["kind"] == "constant"
     assert ch["steady_state"]["steady_state_gain"] == pytest.approx(np.mean(out[-500:]), rel=1e-12)
     assert measure(Waveform(t, fs)).to_dict()["channels"][0]["kind"] == "ramp"
+
+
+def test_prediction_rows_survive_a_transition_without_overshoot():
+    # Regression: a pulse shorter than the ringing leaves its level (and so its overshoot)
+    # unestablished, while the peak time exists; the second-order comparison must skip the
+    # overshoot row instead of failing. Prediction: Ogata, Modern Control Engineering,
+    # 5th ed., sec. 5-3 (peak time pi/omega_d).
+    import simwave
+
+    sys_ = "(2*pi*200)^2/(s^2 + 0.5*2*pi*200*s + (2*pi*200)^2)"
+    pulse = simwave.generate("pulse", 20_000, 0.04, width=3e-3, delay=5e-3)
+    out = simwave.simulate(sys_, pulse)
+    result = simwave.measure(out, reference=pulse, system=sys_).to_dict()
+    rows = result["channels"][0]["comparison"]
+    names = [r["quantity"] for r in rows]
+    first = result["channels"][0]["transitions"][0]
+    assert first["overshoot_pct"] is None and first["peak_time_s"] is not None
+    assert "overshoot_pct (first transition)" not in names
+    assert "peak_time_s (first transition)" in names

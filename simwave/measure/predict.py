@@ -361,20 +361,23 @@ def _second_order_rows(ch: dict, p: Predictions, o: Any) -> list[dict]:
     if first is None:
         return rows
     note = None if exact else "dominant-pole approximation: compared, not flagged"
-    diff = first["overshoot_pct"] - p.overshoot_pct
-    tol = o.overshoot_tolerance_pct
-    rows.append(
-        _row(
-            "overshoot_pct (first transition)",
-            first["overshoot_pct"],
-            p.overshoot_pct,
-            diff,
-            tol,
-            "stated tolerance (percentage points)",
-            (abs(diff) > tol) if exact else None,
-            note,
+    # Overshoot is null when the transition's levels are not established (a pulse shorter
+    # than the ringing): then only the peak time can be compared.
+    if first.get("overshoot_pct") is not None:
+        diff = first["overshoot_pct"] - p.overshoot_pct
+        tol = o.overshoot_tolerance_pct
+        rows.append(
+            _row(
+                "overshoot_pct (first transition)",
+                first["overshoot_pct"],
+                p.overshoot_pct,
+                diff,
+                tol,
+                "stated tolerance (percentage points)",
+                (abs(diff) > tol) if exact else None,
+                note,
+            )
         )
-    )
     if first.get("delay_s") is not None:
         rate_tol = o.time_tolerance_pct / 100.0 * p.peak_time_s
         diff = first["peak_time_s"] - p.peak_time_s
