@@ -303,3 +303,19 @@ def test_prediction_rows_survive_a_transition_without_overshoot():
     assert first["overshoot_pct"] is None and first["peak_time_s"] is not None
     assert "overshoot_pct (first transition)" not in names
     assert "peak_time_s (first transition)" in names
+
+
+def test_wide_histogram_smoothing_equals_scipy_gaussian_filter():
+    # Reference: scipy.ndimage.gaussian_filter1d (mode "constant", truncate 4); simwave
+    # switches to an FFT convolution for wide kernels and must give the same counts.
+    import numpy as np
+    from scipy.ndimage import gaussian_filter1d
+
+    from simwave.measure.levels import _smoothed
+
+    rng = np.random.default_rng(5)
+    w = np.zeros(2**15)
+    np.add.at(w, rng.integers(0, w.size, 300), 1.0)
+    for h in (2.0, 15.9, 16.1, 700.0, 5000.0):
+        ref = gaussian_filter1d(w, h, mode="constant")
+        np.testing.assert_allclose(_smoothed(w, h), ref, rtol=0, atol=1e-12 * ref.max())
