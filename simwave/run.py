@@ -378,7 +378,7 @@ def simulate(
         "initial": (initial if output_ics is None
                     else f"output initial conditions {list(output_ics)}"),
         "input": src.label,
-        "written": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
+        "written": _written_time(),
     }
 
     meter = _LevelMeter(src.n_channels)
@@ -462,6 +462,17 @@ def simulate(
     )
     report.waveform = wave
     return wave
+
+
+def _written_time() -> str:
+    """UTC time for the provenance; SOURCE_DATE_EPOCH (reproducible-builds.org) overrides it,
+    so that repeated runs can give byte-identical files."""
+    epoch = os.environ.get("SOURCE_DATE_EPOCH")
+    if epoch and epoch.strip().isdigit():
+        when = _dt.datetime.fromtimestamp(int(epoch), _dt.timezone.utc)
+    else:
+        when = _dt.datetime.now(_dt.timezone.utc)
+    return when.isoformat(timespec="seconds")
 
 
 def _write_dict(result: Any) -> dict[str, Any] | None:

@@ -310,3 +310,13 @@ def test_cli_run_plot_and_bad_plot_name(tmp_path):
                 str(tmp_path / "z.csv"), "--plot", str(tmp_path / "z.bmpx"))
     assert r.exit_code == 2 and "Error:" in r.output
     assert not (tmp_path / "z.csv").exists()
+
+
+def test_source_date_epoch_makes_outputs_byte_identical(tmp_path, monkeypatch):
+    # reproducible-builds.org SOURCE_DATE_EPOCH convention: the provenance time is fixed.
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", "1700000000")
+    a, b = tmp_path / "a.csv", tmp_path / "b.csv"
+    for path in (a, b):
+        simwave.simulate("1/(1m*s+1)", "step:rate=1k,duration=0.05", output=path)
+    assert a.read_bytes() == b.read_bytes()
+    assert simwave.read(a).attrs["written"] == "2023-11-14T22:13:20+00:00"
