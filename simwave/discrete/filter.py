@@ -143,6 +143,71 @@ def _companion(a: np.ndarray) -> tuple[np.ndarray, np.ndarray, float]:
     return A, C, w0
 
 
+def _pair_zpk(z: np.ndarray, p: np.ndarray, k: float) -> np.ndarray:
+    """Second-order sections of k prod(z - z_i)/prod(z - p_i) with as many zeros as poles.
+
+    The pairing rule of scipy.signal.zpk2sos (pairing="nearest"): pole groups (a
+    complex pair, or two real poles) take their zeros in order of closeness to the
+    unit circle, each the nearest remaining zeros, and the sections are ordered with
+    the poles closest to the unit circle last (Jackson, *Digital Filters and Signal
+    Processing*, 3rd ed., sec. 11.4, from memory; scipy.signal.zpk2sos documentation).
+    Written out here because scipy's general routine costs ~0.5 ms per call, a fifth of
+    a short run; the tests compare the result with scipy's on the same poles and zeros.
+    """
+    z = np.asarray(z, dtype=np.complex128)
+    p = np.asarray(p, dtype=np.complex128)
+    if p.size == 0:
+        return np.array([[float(k), 0.0, 0.0, 1.0, 0.0, 0.0]])
+    tol = 1e-12
+
+    def split(roots: np.ndarray) -> tuple[list[complex], list[float]]:
+        upper = [complex(x) for x in roots if x.imag > tol * max(1.0, abs(x))]
+        reals = [float(x.real) for x in roots if abs(x.imag) <= tol * max(1.0, abs(x))]
+        return upper, reals
+
+    p_up, p_re = split(p)
+    z_up, z_re = split(z)
+    dist = lambda x: abs(1.0 - abs(x))  # noqa: E731 - closeness to the unit circle
+    p_re.sort(key=dist)
+    groups: list[list[complex]] = [[q, q.conjugate()] for q in p_up]
+    singles: list[list[complex]] = []
+    if len(p_re) % 2:  # the odd real pole makes a first-order section
+        singles.append([complex(p_re.pop())])
+    groups += [[complex(a), complex(b)] for a, b in zip(p_re[0::2], p_re[1::2], strict=True)]
+    groups.sort(key=lambda g: min(dist(x) for x in g))
+    assigned: dict[int, list[complex]] = {}
+
+    def take_real(target: complex) -> complex:
+        j = min(range(len(z_re)), key=lambda i: abs(z_re[i] - target))
+        return complex(z_re.pop(j))
+
+    # the single real pole first, so the real zeros left come in pairs
+    order = [("single", g) for g in singles] + [("pair", g) for g in groups]
+    for n, (kind, g) in enumerate(order):
+        target = g[0]
+        if kind == "single":
+            assigned[n] = [take_real(target)]
+            continue
+        best_c = min(range(len(z_up)), key=lambda i: abs(z_up[i] - target), default=None)
+        best_r = min((abs(x - target) for x in z_re), default=np.inf)
+        if best_c is not None and (len(z_re) < 2 or abs(z_up[best_c] - target) <= best_r):
+            q = z_up.pop(best_c)
+            assigned[n] = [q, q.conjugate()]
+        else:
+            first = take_real(target)
+            assigned[n] = [first, take_real(g[1])]
+    # output order: poles farthest from the unit circle first, closest last
+    idx = sorted(range(len(order)), key=lambda n: -min(dist(x) for x in order[n][1]))
+    rows = []
+    for n in idx:
+        b = np.real(np.poly(assigned[n]))
+        a = np.real(np.poly(order[n][1]))
+        rows.append(np.concatenate([b, np.zeros(3 - b.size), a, np.zeros(3 - a.size)]))
+    sos = np.array(rows, dtype=np.float64)
+    sos[0, :3] *= k
+    return sos
+
+
 def _zpk_to_sos(zd: np.ndarray, pd: np.ndarray, kd: float) -> np.ndarray:
     """Second-order sections of k prod(z - zd)/prod(z - pd), including its pure delay.
 
@@ -156,7 +221,7 @@ def _zpk_to_sos(zd: np.ndarray, pd: np.ndarray, kd: float) -> np.ndarray:
     r = pd.size - zd.size
     if r < 0:
         raise DiscretizationError("the discrete model has more zeros than poles (not causal)")
-    sos = sig.zpk2sos(np.concatenate([zd, np.zeros(r)]), pd, kd)
+    sos = _pair_zpk(np.concatenate([zd, np.zeros(r)]), pd, kd)
     for row in sos[::-1]:
         while r > 0 and row[2] == 0.0 and np.any(row[:2] != 0.0):
             row[1:3] = row[0:2].copy()
