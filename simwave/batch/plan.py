@@ -66,17 +66,13 @@ import json
 import math
 import os
 import re
-import sys
 from dataclasses import dataclass, field
 from typing import Any, Callable, Mapping, Sequence
 
 from simwave.batch.lines import KeyLines
 from simwave.errors import BatchError, SimwaveError
+from simwave.tomlfile import read_toml
 
-if sys.version_info >= (3, 11):
-    import tomllib
-else:  # pragma: no cover - Python 3.10
-    import tomli as tomllib
 
 #: Top-level tables of a description file.
 SECTIONS = ("batch", "output", "measure", "limits", "systems", "inputs")
@@ -364,23 +360,7 @@ def run_options(table: Mapping[str, Any], where_of: Callable[[str], str]) -> dic
 
 
 def _read_toml_file(path: str, what: str) -> tuple[dict, str]:
-    try:
-        with open(path, "rb") as fh:
-            raw = fh.read()
-    except FileNotFoundError:
-        raise BatchError(f"{what} {path} not found") from None
-    except IsADirectoryError:
-        raise BatchError(f"{what} {path} is a directory") from None
-    except OSError as exc:
-        raise BatchError(f"{what} {path} cannot be read: {exc.strerror}") from None
-    try:
-        text = raw.decode("utf-8")
-    except UnicodeDecodeError:
-        raise BatchError(f"{path}: not UTF-8 text") from None
-    try:
-        return tomllib.loads(text), text
-    except tomllib.TOMLDecodeError as exc:
-        raise BatchError(f"{path}: not valid TOML: {exc}") from None
+    return read_toml(path, what, BatchError)
 
 
 def system_file_table(path: str) -> dict:

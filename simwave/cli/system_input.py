@@ -24,7 +24,6 @@ from __future__ import annotations
 import functools
 import math
 import os
-import sys
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, fields
 from typing import Any
@@ -32,14 +31,11 @@ from typing import Any
 import click
 
 from simwave.errors import InvalidSystemError, ParseError, SimwaveError
+from simwave.tomlfile import read_toml
 from simwave.model.designs import design
 from simwave.model.parse import parse_complex, parse_number
 from simwave.model.system import System
 
-if sys.version_info >= (3, 11):
-    import tomllib
-else:  # pragma: no cover - Python 3.10
-    import tomli as tomllib
 
 #: The forms a system table may take (exactly one per table).
 FORMS = ("expression", "ode", "coefficients", "zpk", "design")
@@ -274,19 +270,7 @@ def load_system_file(path: str | os.PathLike[str]) -> System:
         Missing or unreadable file, invalid TOML, unknown keys, not exactly one form.
     """
     p = os.fspath(path)
-    try:
-        with open(p, "rb") as fh:
-            data = tomllib.load(fh)
-    except FileNotFoundError:
-        raise InvalidSystemError(f"system file {p} not found") from None
-    except IsADirectoryError:
-        raise InvalidSystemError(f"system file {p} is a directory") from None
-    except OSError as exc:
-        raise InvalidSystemError(f"system file {p} cannot be read: {exc.strerror}") from None
-    except UnicodeDecodeError:
-        raise ParseError(f"{p}: not UTF-8 text") from None
-    except tomllib.TOMLDecodeError as exc:
-        raise ParseError(f"{p}: not valid TOML: {exc}") from None
+    data, _ = read_toml(p, "system file", InvalidSystemError)
     system = system_from_mapping(data, where=p)
     if system.name is None:
         system.name = os.path.splitext(os.path.basename(p))[0]
