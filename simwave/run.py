@@ -85,22 +85,49 @@ def open_source(
         opts.setdefault("rate", rate)
     if channels:
         opts.setdefault("channels", list(channels))
-    # The readers take file paths and generated-signal specs alike.
-    meta = simwave.info(text, **opts)
+    # The readers take file paths and generated-signal specs alike. The metadata come
+    # from a one-sample first block, so a CSV file or a generated signal is not read
+    # through twice; the length (for the progress bar only) comes from the header where
+    # the format has one.
+    first_blocks = simwave.blocks(text, 1, **opts)
+    try:
+        head = next(first_blocks, None)
+    finally:
+        first_blocks.close()
+    if head is None:
+        raise SimwaveError(f"{text}: the input holds no samples")
+    from simwave.signals.spec import is_signal_spec
+
+    is_file = not is_signal_spec(text)
+    n_samples = _cheap_length(text, opts) if is_file else _spec_length(text, head.rate)
+    attrs = dict(head.attrs) if is_file else {"generated": text}
 
     def make_blocks(size: int) -> Iterator[np.ndarray]:
         for piece in simwave.blocks(text, size, **opts):
             yield piece.data
 
-    is_file = meta.format != "generated"
-    attrs = dict(meta.attrs or {})
-    if not is_file:
-        attrs = {"generated": text}
     return Source(
-        float(meta.rate), list(meta.channels), list(meta.units), float(meta.t0),
-        int(meta.n_samples) if meta.n_samples is not None else None,
+        head.rate, list(head.channels), list(head.units), head.t0, n_samples,
         attrs, text, text if is_file else None, make_blocks,
     )
+
+
+def _cheap_length(path: str, opts: dict[str, Any]) -> int | None:
+    """Samples in a file when its header says so (audio, HDF5); None for CSV."""
+    from simwave.signals.formats import resolve_format
+
+    family, _ = resolve_format(path, opts.get("format"))
+    if family == "csv":
+        return None
+    n = simwave.info(path, **opts).n_samples
+    return int(n) if n is not None else None
+
+
+def _spec_length(spec: str, rate: float) -> int | None:
+    from simwave.signals.spec import parse_signal_spec
+
+    duration = parse_signal_spec(spec)[2]
+    return int(round(float(duration) * rate)) if duration is not None else None
 
 
 # --------------------------------------------------------------------------- result
