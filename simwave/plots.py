@@ -194,8 +194,6 @@ def _as_waveform(source: Any, read_options: Mapping[str, Any] | None, what: str)
 
     if isinstance(source, Waveform):
         return source
-    if hasattr(source, "waveform") and isinstance(source.waveform, Waveform):
-        return source.waveform  # a RunReport that kept its waveform
     if isinstance(source, (str, os.PathLike)):
         import simwave
 

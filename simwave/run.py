@@ -152,7 +152,6 @@ class RunReport:
     oversample: dict[str, Any] | None = None
     write: dict[str, Any] | None = None
     rate_check: dict[str, Any] | None = None
-    waveform: Waveform | None = field(default=None, repr=False)
 
     @property
     def duration(self) -> float:
@@ -346,7 +345,7 @@ def simulate(
     Waveform or RunReport
         The output waveform, ``(n_samples, n_channels)`` float64, with the
         run's provenance and report in ``attrs``; a RunReport when ``output``
-        is given (its ``waveform`` is None).
+        is given.
     """
     started = time.perf_counter()
     sys_ = _as_system(system)
@@ -458,37 +457,31 @@ def simulate(
         raise
     done = sink.done
 
-    report = RunReport(
-        n_samples=done,
-        rate=src.rate,
-        channels=list(src.channels),
-        units=list(src.units),
-        method=method,
-        initial=provenance["initial"],
-        peak=[float(v) for v in meter.peak],
-        peak_time_s=[float(src.t0 + i / src.rate) for i in meter.peak_index],
-        rms=[float(v) for v in meter.rms()],
-        elapsed_s=time.perf_counter() - started,
-        accuracy=accuracy,
-        rate_check=check,
-        warnings=caught,
-        provenance=provenance,
-        output=os.fspath(output) if output is not None else None,
-        oversample=over_info,
-        write=_write_dict(sink.write_result),
-    )
     if output is not None:
-        return report
-    if len(pieces) == 1:
-        data = pieces[0]
-    else:
-        data = np.concatenate(pieces) if pieces else np.empty((0, src.n_channels))
-    wave = Waveform(
+        return RunReport(
+            n_samples=done,
+            rate=src.rate,
+            channels=list(src.channels),
+            units=list(src.units),
+            method=method,
+            initial=provenance["initial"],
+            peak=[float(v) for v in meter.peak],
+            peak_time_s=[float(src.t0 + i / src.rate) for i in meter.peak_index],
+            rms=[float(v) for v in meter.rms()],
+            elapsed_s=time.perf_counter() - started,
+            accuracy=accuracy,
+            rate_check=check,
+            warnings=caught,
+            provenance=provenance,
+            output=os.fspath(output),
+            oversample=over_info,
+            write=_write_dict(sink.write_result),
+        )
+    data = pieces[0] if len(pieces) == 1 else np.concatenate(pieces)  # never empty: n_in > 0
+    return Waveform(
         data, src.rate, src.t0, list(src.channels), list(src.units),
         {**provenance, "rate_check": check, "warnings": caught},
     )
-    report.waveform = wave
-    return wave
 
 
 def _written_time() -> str:

@@ -102,6 +102,20 @@ def check_lsim(resp: RampTrainResponse, b, a, t_end: float) -> None:
     assert np.max(np.abs(ys - ref)) < 1e-6 * max(abs(e[2]) for e in resp.edges)
 
 
+def measure_train(resp: RampTrainResponse, b, a, t_end: float, fs: float,
+                  band_pct: float) -> dict:
+    """The exact response (checked against lsim) sampled at fs, measured against its input;
+    returns the channel's dict after checking the transitions alternate rising/falling."""
+    check_lsim(resp, b, a, t_end)
+    t = np.arange(int(t_end * fs)) / fs
+    d = measure(
+        Waveform(resp.y(t), fs), Waveform(resp.input(t), fs), settling_band_pct=band_pct
+    ).to_dict()
+    ch = d["channels"][0]
+    assert [r["direction"] for r in ch["transitions"]] == ["rising", "falling"] * 3
+    return ch
+
+
 def test_butterworth_pulse_train_settles_before_its_own_next_edge():
     # The weigh-station geometry of the demo without hum and noise: a 4th-order Butterworth
     # low-pass at 15 Hz (scipy.signal.butter, analog), 2 kg parcels on 0.35 kg for 0.22 s
@@ -114,14 +128,8 @@ def test_butterworth_pulse_train_settles_before_its_own_next_edge():
     edges = pulse_edges(0.1, 0.22, 0.4, 3, 0.015, 2.0)
     resp = RampTrainResponse(b, a, 0.35, edges)
     t_end = 1.6
-    check_lsim(resp, b, a, t_end)
-    t = np.arange(int(t_end * fs)) / fs
-    d = measure(
-        Waveform(resp.y(t), fs), Waveform(resp.input(t), fs), settling_band_pct=band_pct
-    ).to_dict()
-    ch = d["channels"][0]
+    ch = measure_train(resp, b, a, t_end, fs, band_pct)
     tr = ch["transitions"]
-    assert [r["direction"] for r in tr] == ["rising", "falling"] * 3
     assert ch["state_levels"]["basis"] == "input-aligned"
     # the output leaves its rest level by a tenth of the band ~4 ms after the input starts
     # to move (its ramp response grows as t^5 at first: order 4 plus the ramp)
@@ -174,14 +182,8 @@ def test_dead_time_output_settles_after_the_next_input_edge(tau1, band_pct):
     edges = pulse_edges(0.05, 0.05, 0.1, 3, 0.001, 1.0)
     resp = RampTrainResponse(b, a, 0.0, edges, dead=tau)
     t_end = 0.45
-    check_lsim(resp, b, a, t_end)
-    t = np.arange(int(t_end * fs)) / fs
-    d = measure(
-        Waveform(resp.y(t), fs), Waveform(resp.input(t), fs), settling_band_pct=band_pct
-    ).to_dict()
-    ch = d["channels"][0]
+    ch = measure_train(resp, b, a, t_end, fs, band_pct)
     tr = ch["transitions"]
-    assert [r["direction"] for r in tr] == ["rising", "falling"] * 3
     # the dead time, to the sample grid (the segments end this long after the input moves)
     assert ch["state_levels"]["response_onset_delay_s"] == pytest.approx(tau, abs=2.0 / fs)
     for k, row in enumerate(tr):
