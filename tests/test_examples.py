@@ -86,4 +86,7 @@ def test_waveforms_are_what_the_script_makes(tmp_path):
         a = simwave.read(os.path.join(WAVEFORMS, name))
         b = simwave.read(str(tmp_path / name))
         assert a.rate == b.rate and a.channels == b.channels
-        np.testing.assert_array_equal(a.data, b.data)
+        # The script's arithmetic (sin, exp, random draws) may differ in the last bit between
+        # numpy builds; the committed files must match the script to round-off, not bit for bit.
+        scale = max(float(np.max(np.abs(a.data))), 1e-300)
+        np.testing.assert_allclose(a.data, b.data, rtol=0, atol=1e-12 * scale)
