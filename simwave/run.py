@@ -628,6 +628,10 @@ def execute(job: RunJob, progress: Callable[[int, int | None], None] | None = No
     The metrics file is written atomically after the output, so its presence
     (newer than the output) marks a finished job.
     """
+    from simwave.signals.atomic import guard_outputs
+
+    guard_outputs({"the output": job.output, "the metrics file": job.metrics},
+                  {"the input": job.source if os.path.exists(job.source) else None})
     system = _as_system(job.system)
     report = simulate(
         system, job.source, job.method, job.rate, job.initial,
@@ -640,7 +644,8 @@ def execute(job: RunJob, progress: Callable[[int, int | None], None] | None = No
     if job.metrics is not None:
         metrics = measure_run(job, system, len(report.channels)).to_dict()
         result["metrics"] = metrics
-        write_json(job.metrics, {"run": result["run"], "metrics": metrics}, protect=[job.source])
+        write_json(job.metrics, {"run": result["run"], "metrics": metrics},
+                   protect=[job.source, job.output])
     return result
 
 

@@ -23,6 +23,7 @@ from __future__ import annotations
 import glob
 import json
 import os
+import stat
 import time
 from dataclasses import dataclass, field
 from typing import Any, Callable
@@ -33,6 +34,7 @@ from simwave.batch.summary import (
     columns, compare_systems, pair_rows, rows_csv, write_text_atomic,
 )
 from simwave.batch.tasks import PairTask
+from simwave.errors import BatchError
 
 #: Exit codes of ``simwave batch``.
 EXIT_OK, EXIT_FAILED, EXIT_INTERRUPTED = 0, 1, 130
@@ -208,7 +210,7 @@ def run_batch(
         by_index = {p.index: p for p in plan.pairs}
         tasks = (PairTask(p.index, p.system.definition, plan.job_fields(p)) for p in todo)
         done = failed = 0
-        with open(plan.journal_path, "a", encoding="utf-8") as journal:
+        with open_journal(plan.journal_path) as journal:
             try:
                 for task, result in eng.results(tasks):
                     pair = by_index[task.index]
@@ -296,6 +298,26 @@ def _json_safe(value: Any) -> Any:
     if isinstance(value, (str, int, bool)) or value is None:
         return value
     return str(value)
+
+
+def open_journal(path: str):
+    """Open the resume journal for appending, never through a symbolic link.
+
+    A journal that is a link would send every appended line to the link's target
+    (some other file); it is refused, as is anything but a regular file.
+    """
+    flags = os.O_WRONLY | os.O_APPEND | os.O_CREAT | getattr(os, "O_NOFOLLOW", 0)
+    if os.path.islink(path):
+        raise BatchError(f"{path}: the batch journal is a symbolic link; refusing to write "
+                         "through it (remove the link, or choose another output directory)")
+    try:
+        fd = os.open(path, flags, 0o666)
+    except OSError as exc:
+        raise BatchError(f"{path}: cannot open the batch journal ({exc.strerror})") from None
+    if not stat.S_ISREG(os.fstat(fd).st_mode):
+        os.close(fd)
+        raise BatchError(f"{path}: the batch journal is not a regular file")
+    return os.fdopen(fd, "a", encoding="utf-8")
 
 
 def _compact_journal(plan: BatchPlan) -> None:

@@ -277,7 +277,9 @@ def inspect_command(system_spec, at_hz: str | None, rate: str | None, method: st
         click.echo(f"Warning: {w.message}", err=True)
     if plot_path is not None:
         from simwave.plots import check_plot_path
+        from simwave.signals.atomic import guard_outputs
 
+        guard_outputs({"--plot": plot_path}, {"the system file": system_spec.file})
         check_plot_path(plot_path)  # before any work: a bad name fails at once
     freqs = parse_number_list(at_hz, "--at-hz") if at_hz is not None else None
     if freqs is not None:

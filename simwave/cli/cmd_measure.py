@@ -109,10 +109,11 @@ def measure_cmd(file, system_spec, reference_file, input_channel, levels, band, 
 
         rate = simwave.info(file, **ropts).to_dict()["rate"]
         opts["discrete"] = discretize(system, rate, method)
-    if out_path is not None:
-        from simwave.signals.atomic import check_output_path
+    from simwave.signals.atomic import guard_outputs
 
-        check_output_path(out_path, protect=[file, reference_file])
+    guard_outputs({"-o/--output": out_path, "--plot": plot_path},
+                  {"the measured file": file, "the reference": reference_file,
+                   "the system file": system_spec.file})
     if plot_path is not None:
         from simwave.plots import check_plot_path
 

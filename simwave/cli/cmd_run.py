@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import os
 import sys
 import time
 import warnings
@@ -164,6 +165,13 @@ def run_command(source, system_spec, output, method, prewarp, match_frequency, i
     INPUT is a waveform file (WAV, FLAC, CSV, HDF5, ...) or a generated
     signal, e.g. 'step:rate=10k,duration=50m,time=5m'.
     """
+    from simwave.signals.atomic import guard_outputs
+
+    # Every path this command writes, checked together before any work: none is an
+    # input (waveform or system file), no two are the same file.
+    guard_outputs({"-o/--output": output, "--metrics": metrics, "--plot": plot_path},
+                  {"the input": source if os.path.exists(source) else None,
+                   "the system file": system_spec.file})
     system = resolve_system(system_spec)
     reader = read_options(reader_kwargs)
     if plot_path is not None:

@@ -72,6 +72,12 @@ class SystemSpec:
         """True when no system option was given at all."""
         return all(getattr(self, f.name) is None for f in fields(self))
 
+    @property
+    def file(self) -> str | None:
+        """The TOML system file named by -s/--system, if any (an input no output may replace)."""
+        text = (self.system or "").strip()
+        return text if text.lower().endswith(".toml") else None
+
 
 _OPTIONS: list[tuple[tuple[str, ...], str, str]] = [
     (("-s", "--system"), "TEXT|FILE.toml",
@@ -215,8 +221,8 @@ def resolve_system(spec: SystemSpec, *, required: bool = True) -> System | None:
     form = given[0]
     if form == "-s/--system":
         text = spec.system or ""
-        if text.strip().lower().endswith(".toml"):
-            system = load_system_file(text.strip())
+        if spec.file is not None:
+            system = load_system_file(spec.file)
         else:
             system = System.parse(text)
     elif form == "--numerator/--denominator":

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import os
 import tempfile
-from typing import Iterable
+from typing import Iterable, Mapping
 
 from simwave.errors import WaveformError
 
@@ -54,6 +54,44 @@ def check_output_path(path: str, protect: Iterable[str] | None = None) -> str:
     if not os.path.isdir(directory):
         raise WaveformError(f"{path}: directory {directory} does not exist")
     return path
+
+
+def guard_outputs(outputs: Mapping[str, str | os.PathLike[str] | None],
+                  inputs: Mapping[str, str | os.PathLike[str] | None] | None = None) -> None:
+    """Check every path a command will write, together, before any work is done.
+
+    One guard for all of a command's targets (waveform output, metrics JSON,
+    plots, reports, summaries, journals): none may be one of the command's
+    inputs (waveform, reference, system file, batch description), no two may be
+    the same file, and each must name a file in an existing folder.
+
+    Parameters
+    ----------
+    outputs : mapping of str to path or None
+        Label (the option that names it, e.g. ``"--metrics"``) -> target path.
+        ``None`` entries (options not given) are skipped.
+    inputs : mapping of str to path or None, optional
+        Label (e.g. ``"the system file"``) -> a path the command reads.
+
+    Raises
+    ------
+    WaveformError
+        One line naming the path, the options involved and the problem.
+    """
+    given = [(label, os.fspath(p)) for label, p in outputs.items() if p is not None]
+    read = [(label, os.fspath(p)) for label, p in (inputs or {}).items() if p is not None]
+    for i, (label, path) in enumerate(given):
+        for in_label, in_path in read:
+            if _same_path(path, in_path):
+                raise WaveformError(
+                    f"{path} ({label}): is {in_label}; refusing to write over an input, "
+                    f"choose another name")
+        for other_label, other in given[:i]:
+            if _same_path(path, other):
+                raise WaveformError(
+                    f"{path}: named by both {other_label} and {label}; one would replace the "
+                    f"other, give each its own file name")
+        check_output_path(path)
 
 
 class AtomicTarget:

@@ -35,6 +35,9 @@ from simwave.signals.stream import Rows, sample_places
 PCM_BITS = {"PCM_S8": 8, "PCM_U8": 8, "PCM_16": 16, "PCM_24": 24, "PCM_32": 32}
 #: Subtypes that hold values beyond full scale unharmed.
 FLOAT_SUBTYPES = {"FLOAT", "DOUBLE"}
+#: Largest magnitude a FLOAT (IEEE 754 binary32) sample holds; beyond it the value is stored
+#: as infinite (IEEE Std 754-2019, binary32 format: (2 - 2**-23) * 2**127).
+FLOAT32_MAX = float(np.finfo(np.float32).max)
 #: libsndfile keeps string chunks up to about 2 kB (observed); stay below.
 _META_LIMIT = 2000
 _META_KEY = "simwave"
@@ -204,6 +207,10 @@ class AudioSink:
             raise WaveformError(f"on_clip must be 'error', 'clip' or 'normalize', got {on_clip!r}")
         self.on_clip = on_clip
         self.bounded = self.subtype not in FLOAT_SUBTYPES
+        # The largest sample magnitude the subtype holds: full scale for integer codes, the
+        # binary32 range for FLOAT (beyond it a value would be written as infinite).
+        self.limit = (1.0 if self.bounded
+                      else FLOAT32_MAX if self.subtype == "FLOAT" else math.inf)
         n = len(channels)
         self.n_channels = n
         fs = 1.0 if full_scale is None else full_scale
@@ -218,7 +225,7 @@ class AudioSink:
         self.gain = 1.0
         self.spool = None
         self.f = None
-        if self.bounded and on_clip == "normalize":
+        if math.isfinite(self.limit) and on_clip == "normalize":
             if peak_hint is None:
                 # peak unknown until the end: keep float64 samples in a spool file beside
                 # the target, scale and encode them in a second pass on close
@@ -226,7 +233,7 @@ class AudioSink:
                     prefix=".spool.", suffix=".f64", dir=os.path.dirname(os.path.abspath(tmp)))
                 self.spool = os.fdopen(fd, "wb")
             else:
-                self.gain = 1.0 / peak_hint if peak_hint > 0 else 1.0
+                self.gain = self._normalizing_gain(peak_hint)
         if self.spool is None:
             self._open()
 
@@ -278,22 +285,41 @@ class AudioSink:
         self._encode(x)
         self.count += x.shape[0]
 
-    def _encode(self, x: np.ndarray) -> None:
+    def _normalizing_gain(self, peak: float) -> float:
+        """Gain of ``on_clip='normalize'``: peak to full scale (integer codes), or into the
+        binary32 range when the peak is beyond it (FLOAT; otherwise unchanged)."""
+        if not peak > 0:
+            return 1.0
         if self.bounded:
+            return 1.0 / peak
+        return min(1.0, self.limit / peak)
+
+    def _encode(self, x: np.ndarray) -> None:
+        if math.isfinite(self.limit):
             if self.gain != 1.0:
                 x = x * self.gain
-            over = np.abs(x) > 1.0
+            over = np.abs(x) > self.limit
             if over.any():
                 if self.on_clip == "error":
                     i, c = np.argwhere(over)[0]
+                    n = self.count + int(i)
+                    at = (f"sample {n} (t = {self.t0 + n / self.rate:.6g} s), "
+                          f"channel {self.channels[c]!r}")
+                    if self.bounded:
+                        raise WaveformError(
+                            f"{self.where}: {at} exceeds full scale (peak so far "
+                            f"{dbfs(self.peak):+.2f} dBFS) for {self.subtype}; choose "
+                            f"on_clip='clip' or 'normalize' (--on-clip), a float subtype, "
+                            f"or a larger full_scale"
+                        )
                     raise WaveformError(
-                        f"{self.where}: sample {self.count + i}, channel {self.channels[c]!r} "
-                        f"exceeds full scale (peak so far {dbfs(self.peak):+.2f} dBFS) for "
-                        f"{self.subtype}; choose on_clip='clip' or 'normalize' (--on-clip), "
-                        f"a float subtype, or a larger full_scale"
+                        f"{self.where}: {at} is {x[i, c]:.6g}, beyond the range of 32-bit "
+                        f"float samples (FLOAT, largest {self.limit:.4g}); it would be stored "
+                        f"as infinite. Write 64-bit samples (--subtype DOUBLE) or another "
+                        f"format (.h5, .csv), or scale it (--on-clip normalize or clip)"
                     )
                 self.clipped += int(np.count_nonzero(over))
-                x = np.clip(x, -1.0, 1.0)
+                x = np.clip(x, -self.limit, self.limit)
         bits = PCM_BITS.get(self.subtype)
         if bits:
             top = 2.0 ** (bits - 1)
@@ -313,7 +339,7 @@ class AudioSink:
     def close(self) -> WriteResult:
         if self.spool is not None:
             self.spool.close()
-            self.gain = 1.0 / self.peak if self.peak > 0 else 1.0
+            self.gain = self._normalizing_gain(self.peak)
             self._open()
             count, self.count = self.count, 0
             step = READ_CHUNK * 4

@@ -27,6 +27,7 @@ Attributes written: ``rate``, ``t0``, ``channels``, ``units``, ``attrs_json``,
 from __future__ import annotations
 
 import json
+import math
 import shutil
 from typing import Any, Iterator
 
@@ -321,6 +322,9 @@ class Hdf5Sink:
         self.datasets: dict[str, h5py.Dataset] = {}
         self.buffers: dict[str, list[np.ndarray]] = {}
         self.main = next(iter(streams))
+        self.rate, self.t0 = float(rate), float(t0)
+        # float32 datasets: a value beyond the binary32 range would be stored as infinite
+        self.limit = float(np.finfo(np.float32).max) if dtype == "float32" else math.inf
         self.count = 0
         self.peak = 0.0
         try:
@@ -357,6 +361,8 @@ class Hdf5Sink:
             if block.shape[0] == 0:
                 continue
             if name == self.main:
+                if math.isfinite(self.limit):
+                    self._check_range(block)
                 self.count += block.shape[0]
                 self.peak = max(self.peak, float(np.nanmax(np.abs(block))))
             buf = self.buffers[name]
@@ -364,6 +370,16 @@ class Hdf5Sink:
             ds = self.datasets[name]
             if sum(b.shape[0] for b in buf) >= ds.chunks[0]:
                 self._flush(name)
+
+    def _check_range(self, block: np.ndarray) -> None:
+        over = np.abs(block) > self.limit
+        if over.any():
+            i, c = (int(v) for v in np.argwhere(over)[0])
+            n = self.count + i
+            raise WaveformError(
+                f"{self.where}: sample {n} (t = {self.t0 + n / self.rate:.6g} s), channel {c} "
+                f"is {block[i, c]:.6g}, beyond the range of float32 samples (largest "
+                f"{self.limit:.4g}); it would be stored as infinite. Write float64 samples")
 
     def _flush(self, name: str) -> None:
         buf = self.buffers[name]
