@@ -44,7 +44,8 @@ Description file (TOML; paths are relative to the file)::
     [[inputs]]
     files = ["recordings/*.csv", "extra/run7.csv"]   # paths and globs (** allowed)
     rate = "10k"                 # reader options: rate channels dataset format time_column
-                                 # resample fill_gaps delimiter decimal full_scale offset units
+                                 # resample fill_gaps delimiter decimal header_line
+                                 # skip_lines full_scale offset units
 
     [[inputs]]
     signal = "step:rate=10k,duration=50m,time=5m"   # generated signals (text or list)
@@ -86,7 +87,7 @@ RUN_KEYS = ("method", "initial", "prewarp_hz", "match_hz", "output_ics", "oversa
 SYSTEM_EXTRA_KEYS = RUN_KEYS + ("file", "limits")
 #: Reader options an input entry may carry (rate and channels go to the run itself).
 READ_KEYS = ("rate", "channels", "dataset", "format", "time_column", "resample", "fill_gaps",
-             "delimiter", "decimal", "full_scale", "offset", "units")
+             "delimiter", "decimal", "header_line", "skip_lines", "full_scale", "offset", "units")
 INPUT_KEYS = ("files", "signal", "name") + READ_KEYS
 #: Measurement options a description may set (the rest are internal to simwave.measure).
 MEASURE_KEYS = ("reference_levels_pct", "settling_band_pct", "harmonics", "sine_hz",

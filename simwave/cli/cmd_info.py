@@ -37,8 +37,13 @@ def format_info(d: dict) -> str:
     widths = [max(len(r[j]) for r in [header] + rows) for j in range(len(header))]
     for r in [header] + rows:
         lines.append("  " + "  ".join(c.ljust(w) for c, w in zip(r, widths, strict=True)).rstrip())
-    if d.get("attrs"):
-        text = dumps(d["attrs"])
+    attrs = dict(d.get("attrs") or {})
+    metadata = attrs.pop("metadata", None)
+    if isinstance(metadata, dict):
+        for i, (key, value) in enumerate(metadata.items()):
+            lines.append(f"{'metadata' if i == 0 else '':<10} {key}: {value}".rstrip())
+    if attrs:
+        text = dumps(attrs)
         lines.append(f"attrs      {text if len(text) <= 200 else text[:197] + '...'}")
     for note in d.get("notes") or []:
         lines.append(f"note       {note}")

@@ -27,6 +27,10 @@ _OPTION_NAMES = {
     "full_scale": "full_scale",
     "input_offset": "offset",
     "input_format": "format",
+    "delimiter": "delimiter",
+    "decimal": "decimal",
+    "header_line": "header_line",
+    "skip_lines": "skip_lines",
 }
 
 _DECORATORS = [
@@ -40,6 +44,17 @@ _DECORATORS = [
                       "vin,vout)."),
     click.option("--time-column", metavar="NAME|INDEX|none", default=None,
                  help="CSV: the time column (default: found by name: time, t, seconds, ...)."),
+    click.option("--header-line", metavar="N", type=click.IntRange(min=0), default=None,
+                 help="CSV: line number of the column names (1 = first line; 0 = none); "
+                      "a non-numeric line after it holds the units; lines above it are "
+                      "kept as metadata (default: detected)."),
+    click.option("--skip-lines", metavar="N", type=click.IntRange(min=0), default=None,
+                 help="CSV: lines at the top to keep as metadata without looking for names "
+                      "in them (default: detected)."),
+    click.option("--delimiter", metavar="CHAR", default=None,
+                 help="CSV: field separator (',', ';', 'tab' or 'space'; default: detected)."),
+    click.option("--decimal", type=click.Choice([".", ","]), default=None,
+                 help="CSV: decimal mark (default: detected)."),
     click.option("--resample", is_flag=True, default=False,
                  help="CSV/HDF5 time axis: interpolate irregular rows onto a uniform grid "
                       "(linear) instead of refusing them."),
@@ -77,4 +92,7 @@ def read_options(kwargs: dict[str, Any], pop: bool = True) -> dict[str, Any]:
         opts[name] = value
     if "time_column" in opts and str(opts["time_column"]).lower() == "none":
         opts["time_column"] = False
+    if "delimiter" in opts:
+        opts["delimiter"] = {"tab": "\t", "space": " "}.get(opts["delimiter"].lower(),
+                                                            opts["delimiter"])
     return opts

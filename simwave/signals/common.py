@@ -12,6 +12,15 @@ import numpy as np
 
 from simwave.errors import WaveformError
 
+#: Names (any case; spaces and hyphens read as ``_``) under which a file states its
+#: sample rate in Hz, its sample interval in seconds, or its start time in seconds:
+#: HDF5 attributes and the metadata lines of an instrument's CSV export.
+RATE_ATTRS = ("rate", "sample_rate", "sampling_rate", "samplerate", "sample_rate_hz",
+              "sampling_frequency", "fs")
+INTERVAL_ATTRS = ("dt", "sample_interval", "sampling_interval", "time_step", "interval",
+                  "sample_period", "sampling_period")
+T0_ATTRS = ("t0", "start_time", "time_offset")
+
 
 @dataclass
 class WriteResult:

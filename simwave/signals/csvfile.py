@@ -32,16 +32,17 @@ import numpy as np
 
 from simwave import __version__
 from simwave.errors import WaveformError
-from simwave.signals.common import WriteResult, dumps, snap_rate
+from simwave.signals.common import (INTERVAL_ATTRS, RATE_ATTRS, T0_ATTRS, WriteResult, dumps,
+                                    snap_rate)
 from simwave.signals.stream import JITTER_TOLERANCE, Rows, TimeAxis
 
 TIME_NAMES = {"time", "t", "seconds", "sec", "s", "time_s", "timestamp", "elapsed"}
 #: Time-column unit -> seconds.
 TIME_UNITS = {"": 1.0, "s": 1.0, "sec": 1.0, "ms": 1e-3, "us": 1e-6, "µs": 1e-6, "μs": 1e-6,
               "ns": 1e-9, "min": 60.0, "h": 3600.0}
+_RATE_UNITS = {"": 1.0, "Hz": 1.0, "kHz": 1e3, "MHz": 1e6, "GHz": 1e9}
 CHUNK_BYTES = 1 << 20  # ~16k lines a chunk: bounded memory, loadtxt still efficient
 _NAME_UNIT = re.compile(r"^(.*?)\s*[\[(]\s*([^\])]*?)\s*[\])]\s*$")
-_DECIMAL_COMMA = re.compile(r"^\s*[+-]?\d*,\d+(?:[eE][+-]?\d+)?\s*$")
 _META = re.compile(r"^\s*#\s*simwave:\s*(\{.*\})\s*$")
 
 
@@ -70,6 +71,129 @@ def _to_float(text: str, decimal: str) -> float:
     return float(t)
 
 
+#: Lines looked at to find where the numbers start.
+_WINDOW = 100
+#: (delimiter, decimal mark) pairs tried, in order of preference on a tie.
+_LAYOUTS = ((",", "."), (";", ","), (";", "."), ("\t", "."), ("\t", ","), (None, "."),
+            (None, ","))
+_UNIT = re.compile(
+    r"^(?:[pnuµμmkMG]?(?:V|A|s|Hz|Pa|bar|N|g|W|Ω|Ohm|ohm|K|°C|degC|°F|m|S|J|dB|dBV|dBm|FS|"
+    r"rpm|sec|min|h)(?:/[A-Za-z]+(?:\^?-?\d|²)?)?|%|-|--)$")
+
+
+def _fields(line: str, delimiter: str | None) -> list[str]:
+    return [f.strip().strip('"').strip("'").strip() for f in _split(line.strip(), delimiter)]
+
+
+def _numeric_width(line: str, delimiter: str | None, decimal: str) -> int:
+    """Number of fields when every field is a number or empty (at least one number), else 0."""
+    text = line.split("#", 1)[0]
+    fields = _split(text.strip() if delimiter is None else text.rstrip("\r"), delimiter)
+    seen = False
+    for f in fields:
+        f = f.strip().strip('"').strip()
+        if not f:
+            continue
+        if decimal == "," and "." in f:
+            return 0  # "1.5" is not a number where the decimal mark is a comma
+        try:
+            _to_float(f, decimal)
+        except ValueError:
+            return 0
+        seen = True
+    return len(fields) if seen else 0
+
+
+def _find_layout(body: list[tuple[int, str]], delimiter: str | None,
+                 decimal: str | None) -> tuple[str | None, str, int, int] | None:
+    """(delimiter, decimal mark, fields per row, index of the first data line), or None.
+
+    For each (delimiter, decimal mark) pair, the rows made only of numbers are
+    counted; the pair that reads most rows wins (then the one with more fields).
+    The row width is the commonest among those rows, and the data start at the
+    first row of that width: everything above it is metadata, names or units.
+    """
+    if delimiter is not None:
+        delimiter = None if delimiter.strip(" ") == "" else delimiter  # " ": runs of spaces
+        pairs = [(delimiter, d) for d in ((decimal,) if decimal else (".", ","))]
+    else:
+        pairs = [p for p in _LAYOUTS if decimal is None or p[1] == decimal]
+    best = None
+    for order, (delim, dec) in enumerate(pairs):
+        if delim == dec:
+            continue
+        widths = [(i, _numeric_width(t, delim, dec)) for i, t in body]
+        numeric = [w for _, w in widths if w]
+        if not numeric:
+            continue
+        counts: dict[int, int] = {}
+        for w in numeric:
+            counts[w] = counts.get(w, 0) + 1
+        width = max(counts, key=lambda w: counts[w])  # ties: the first seen
+        first = next(i for i, w in widths if w == width)
+        score = (len(numeric), width, -order)
+        if best is None or score > best[0]:
+            best = (score, (delim, dec, width, first))
+    return None if best is None else best[1]
+
+
+def _is_units_row(fields: list[str]) -> bool:
+    """True when every non-empty field reads as a unit symbol (``V``, ``ms``, ``[mA]``)."""
+    filled = [f for f in fields if f]
+    if not filled:
+        return False
+    for f in filled:
+        bracketed = len(f) >= 2 and f[0] + f[-1] in ("[]", "()")
+        if not (bracketed and len(f) <= 14 or _UNIT.match(f) or f in TIME_UNITS):
+            return False
+    return True
+
+
+def _metadata(lines: list[tuple[int, str]], delimiter: str | None) -> dict[str, str]:
+    """Leading metadata lines as {key: value}: ``Model;XB-20``, ``Date: 2026-01-05``."""
+    out: dict[str, str] = {}
+    for lineno, line in lines:
+        fields = [f for f in _fields(line, delimiter) if f]
+        if len(fields) >= 2:
+            key, value = fields[0].rstrip(":= ").strip(), ", ".join(fields[1:])
+        else:
+            text = fields[0] if fields else line.strip()
+            m = re.match(r"^([^:=]{1,60}?)\s*[:=]\s*(.*)$", text)
+            key, value = (m.group(1), m.group(2)) if m else (f"line {lineno}", text)
+        key = key or f"line {lineno}"
+        if key in out:
+            key = f"{key} (line {lineno})"
+        out[key] = value
+    return out
+
+
+def _metadata_number(metadata: dict[str, str], names: tuple[str, ...], decimal: str,
+                     unit_scale: dict[str, float]) -> tuple[str, float] | None:
+    """(key, value) of the first metadata entry named like ``names``, converted by
+    its unit (in the key, ``Sample interval (us)``, or after the number, ``10 us``)."""
+    for key, value in metadata.items():
+        name, unit = split_name_unit(key)
+        norm = re.sub(r"[\s\-]+", "_", name.strip().lower())
+        if norm not in names:
+            continue
+        parts = [x.strip() for x in value.split(", ")]
+        text = parts[0]
+        if len(parts) > 1 and re.fullmatch(r"[A-Za-zµμ/]+", parts[1]):
+            text += " " + parts[1]  # "Sample interval,10,us"
+        m = re.match(r"^([+-]?(?:\d+(?:[.,]\d*)?|[.,]\d+)(?:[eE][+-]?\d+)?)\s*(\S*)\s*$", text)
+        if not m:
+            continue
+        try:
+            number = _to_float(m.group(1), decimal)
+        except ValueError:
+            continue
+        u = (m.group(2) or unit).replace("S/s", "Hz").replace("Sa/s", "Hz")
+        if u not in unit_scale:
+            continue
+        return key, number * unit_scale[u]
+    return None
+
+
 class CsvSource:
     """Streaming reader of one delimited text file.
 
@@ -89,13 +213,21 @@ class CsvSource:
         Override the detected delimiter (``","``, ``";"``, ``"\\t"``, ``" "`` for whitespace).
     decimal : str, optional
         ``"."`` or ``","``; default detected.
+    header_line : int, optional
+        Line number (1 = first line of the file) of the column names; the line
+        after it holds units when it is not numbers; 0 for no names line.
+        Lines above it are metadata. Default: detected.
+    skip_lines : int
+        Lines at the top kept as metadata and not searched for the names
+        (default 0; the metadata lines are detected anyway).
     """
 
     family = "csv"
 
     def __init__(self, path: str, *, rate: float | None = None, time_column: Any = None,
                  resample: bool = False, delimiter: str | None = None,
-                 decimal: str | None = None, chunk_bytes: int | None = None) -> None:
+                 decimal: str | None = None, header_line: int | None = None,
+                 skip_lines: int = 0, chunk_bytes: int | None = None) -> None:
         self.path = path
         self.chunk_bytes = int(chunk_bytes or CHUNK_BYTES)
         self.fh = open(path, "rb")
@@ -112,7 +244,10 @@ class CsvSource:
             if exc.start < len(first) - 4:  # not just a character cut at the chunk end
                 self.encoding = "latin-1"
         self._line_iter = self._lines(first)
-        self._preamble(delimiter, decimal)
+        if decimal not in (None, ".", ","):
+            raise WaveformError(f"{path}: decimal mark must be '.' or ',', got {decimal!r}")
+        self._preamble(delimiter, decimal, header_line, skip_lines)
+        self._usecols = None if self.n_cols == self.n_fields else range(self.n_cols)
         self._columns(time_column)
         self._first_rows = self._parse_next()
         if self._first_rows is None or len(self._first_rows[0]) == 0:
@@ -142,51 +277,91 @@ class CsvSource:
                 lineno += len(lines)
             block = self.fh.read(self.chunk_bytes)
 
-    def _preamble(self, delimiter: str | None, decimal: str | None) -> None:
-        """Comments, header, delimiter and decimal mark from the first chunk."""
+    def _preamble(self, delimiter: str | None, decimal: str | None,
+                  header_line: int | None, skip_lines: int) -> None:
+        """Metadata lines, names (and units) line, delimiter and decimal mark."""
         try:
             lineno, lines = next(self._line_iter)
         except StopIteration:
             raise WaveformError(f"{self.path}: empty file") from None
+        if lineno != 1:  # pragma: no cover - the first chunk always starts the file
+            raise AssertionError(lineno)
         meta: dict[str, Any] = {}
-        idx = 0
-        while idx < len(lines) and not _is_data_line(lines[idx]):
-            m = _META.match(lines[idx])
+        for line in lines[:max(skip_lines, 0) + _WINDOW]:
+            m = _META.match(line)
             if m:
                 try:
                     meta = json.loads(m.group(1))
                 except ValueError:
                     meta = {}
-            idx += 1
-        if idx == len(lines):
-            raise WaveformError(f"{self.path}: no numeric rows (only comments or blank lines)")
+                break
         self.meta = meta if isinstance(meta, dict) else {}
-        sample = [s for s in lines[idx:idx + 60] if _is_data_line(s)]
-        body = sample[1:] or sample
-        if delimiter is not None:
-            self.delimiter = None if delimiter.strip() == "" else delimiter
+        if header_line is not None:
+            if not 0 <= header_line <= len(lines):
+                raise WaveformError(f"{self.path}: header line {header_line} is beyond the "
+                                    f"first {len(lines)} lines")
+            skip_lines = max(skip_lines, header_line)
+        if skip_lines > len(lines):
+            raise WaveformError(f"{self.path}: cannot skip {skip_lines} lines; the file's first "
+                                f"part has {len(lines)}")
+        # candidate lines: (index into lines, text) after the skipped ones
+        body = [(i, lines[i]) for i in range(skip_lines, len(lines)) if _is_data_line(lines[i])]
+        if not body and not any(_is_data_line(x) for x in lines[:skip_lines]):
+            raise WaveformError(f"{self.path}: no numeric rows (only comments or blank lines)")
+        layout = _find_layout(body[:_WINDOW], delimiter, decimal)
+        if layout is None:
+            seps = "the given separator" if delimiter is not None else "tab, ';', ',' or spaces"
+            raise WaveformError(
+                f"{self.path}: no numeric rows found in the first {min(len(body), _WINDOW)} "
+                f"lines after line {skip_lines} (fields separated by {seps}, decimal mark '.' "
+                f"or ','); give --header-line N (the line holding the column names) or "
+                f"--skip-lines N (lines before the names), and --delimiter/--decimal if the "
+                f"separator or decimal mark is unusual"
+            )
+        self.delimiter, self.decimal, n_fields, first = layout
+        pre = [(i, t) for i, t in body if i < first]
+        names_at = units_at = None
+        if header_line is not None:
+            names_at = header_line - 1 if header_line > 0 else None
+            meta_idx = [i for i in range(names_at if names_at is not None else skip_lines)
+                        if _is_data_line(lines[i])]
+            if names_at is not None and pre:
+                units_at = pre[0][0]  # a non-numeric line between the names and the data
         else:
-            self.delimiter = self._detect_delimiter(body)
-        fields = [f for line in body for f in _split(line, self.delimiter)]
-        if decimal is not None:
-            self.decimal = decimal
-        elif self.delimiter != "," and any(_DECIMAL_COMMA.match(f) for f in fields):
-            self.decimal = ","
-        else:
-            self.decimal = "."
-        head = [f.strip() for f in _split(sample[0], self.delimiter)]
-        try:
-            [_to_float(f, self.decimal) for f in head if f]
-            numeric_head = True
-        except ValueError:
-            numeric_head = False
-        self.header_line = None if numeric_head else lineno + idx
-        self.n_cols = len(head)
-        if numeric_head:
+            meta_idx = [i for i in range(skip_lines) if _is_data_line(lines[i])]
+            if pre:
+                last = pre[-1]
+                width = len(_split(last[1], self.delimiter))
+                if width == n_fields or n_fields == 1:
+                    above = pre[-2] if len(pre) >= 2 else None
+                    if (above is not None and _is_units_row(_fields(last[1], self.delimiter))
+                            and len(_split(above[1], self.delimiter)) == n_fields
+                            and not _is_units_row(_fields(above[1], self.delimiter))):
+                        names_at, units_at = above[0], last[0]
+                    else:
+                        names_at = last[0]
+                elif width > 1:
+                    raise WaveformError(
+                        f"{self.path}, line {first + 1}: {n_fields} fields, expected {width} "
+                        f"(header on line {last[0] + 1}: {last[1].strip()}); if the column "
+                        f"names are on another line give --header-line N"
+                    )
+            meta_idx += [i for i, _ in pre if i not in (names_at, units_at)]
+        self.header_line = None if names_at is None else names_at + 1
+        self.units_line = None if units_at is None else units_at + 1
+        head = _fields(lines[names_at], self.delimiter) if names_at is not None else []
+        unit_row = _fields(lines[units_at], self.delimiter) if units_at is not None else []
+        self.n_fields = n_fields
+        rows = [t for i, t in body[:_WINDOW] if i >= first]
+        trailing = n_fields > 1 and all(
+            not _split(t.split("#", 1)[0].rstrip("\r"), self.delimiter)[-1].strip()
+            for t in rows if _numeric_width(t, self.delimiter, self.decimal) == n_fields)
+        self.n_cols = n_fields - 1 if trailing else n_fields  # "0;1;" ends every row
+        if names_at is None:
             self.names = [f"col{i}" for i in range(self.n_cols)]
             self.col_units = [""] * self.n_cols
-            self._pending = (lineno + idx, lines[idx:])
         else:
+            head = (head + [""] * n_fields)[:self.n_cols]
             pairs = [split_name_unit(h) for h in head]
             names = [p[0] or f"col{i}" for i, p in enumerate(pairs)]
             seen: dict[str, int] = {}
@@ -198,17 +373,20 @@ class CsvSource:
                     seen[n] = 0
             self.names = names
             self.col_units = [p[1] for p in pairs]
-            self._pending = (lineno + idx + 1, lines[idx + 1:])
-
-    @staticmethod
-    def _detect_delimiter(lines: list[str]) -> str | None:
-        for d in ("\t", ";", ",", None):
-            counts = {len(_split(line, d)) for line in lines}
-            if len(counts) == 1 and counts.pop() > 1:
-                return d
-        # nothing consistent: the widest split of the first line; parsing will name the ragged row
-        best = max(("\t", ";", ",", None), key=lambda d: len(_split(lines[0], d)))
-        return best if len(_split(lines[0], best)) > 1 else ","
+            for i, u in enumerate(unit_row[:self.n_cols]):
+                u = u.strip("[]() ")
+                if u and u not in ("-", "--"):
+                    self.col_units[i] = u
+        self.metadata = _metadata(
+            [(i + 1, lines[i]) for i in sorted(meta_idx) if not lines[i].lstrip().startswith("#")],
+            self.delimiter)
+        if self.metadata:
+            self.attrs["metadata"] = self.metadata
+        start = first if header_line is None or names_at is None else \
+            max(units_at if units_at is not None else names_at, names_at) + 1
+        if header_line == 0:
+            start = skip_lines
+        self._pending = (start + 1, lines[start:])
 
     def _columns(self, time_column: Any) -> None:
         self.time_index: int | None = None
@@ -282,7 +460,7 @@ class CsvSource:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")  # "input contained no data" for comment-only chunks
                 arr = np.loadtxt(src, delimiter=self.delimiter, comments="#", dtype=np.float64,
-                                 ndmin=2, quotechar='"')
+                                 ndmin=2, quotechar='"', usecols=self._usecols)
             if arr.shape[0] and arr.shape[1] != self.n_cols:
                 arr = None
         except ValueError:
@@ -302,12 +480,13 @@ class CsvSource:
                 continue
             fields = _split(text.strip() if self.delimiter is None else text.rstrip("\r\n"),
                             self.delimiter)
-            if len(fields) != self.n_cols:
+            if len(fields) != self.n_fields:
                 raise WaveformError(
                     f"{self.path}, line {lineno + k}: {len(fields)} fields, expected "
-                    f"{self.n_cols} ({'header' if self.header_line else 'first row'}: "
+                    f"{self.n_fields} ({'header' if self.header_line else 'first row'}: "
                     f"{', '.join(self.names)})"
                 )
+            fields = fields[:self.n_cols]
             row = []
             for j, f in enumerate(fields):
                 if not f.strip().strip('"').strip():
@@ -316,9 +495,13 @@ class CsvSource:
                 try:
                     row.append(_to_float(f, self.decimal))
                 except ValueError:
+                    hint = ""
+                    if not _numeric_width(text, self.delimiter, self.decimal):
+                        hint = (f"; if this line holds the column names give --header-line "
+                                f"{lineno + k}")
                     raise WaveformError(
                         f"{self.path}, line {lineno + k}, column {j + 1} ({self.names[j]!r}): "
-                        f"{f.strip()!r} is not a number"
+                        f"{f.strip()!r} is not a number{hint}"
                     ) from None
             out.append(row)
         return np.array(out, dtype=np.float64).reshape(-1, self.n_cols)
@@ -332,11 +515,15 @@ class CsvSource:
             self.attrs.update(self.meta["attrs"])
         self.time_axis = None
         if self.time_index is None:
+            stated = self._stated_rate() if meta_rate is None else None
+            if stated is not None:
+                meta_rate = stated
             chosen = rate if rate is not None else meta_rate
             if chosen is None:
                 raise WaveformError(
                     f"{self.path}: no time column and no sample rate; give the rate "
-                    f"(rate= / --rate HZ) or name the time column (time_column= / --time-column)"
+                    f"(--rate HZ), name the time column (--time-column NAME) or add a metadata "
+                    f"line such as 'Sample interval;1e-5' or 'Sample rate;100000'"
                 )
             self.rate = float(chosen)
             self.file_rate = None if meta_rate is None else float(meta_rate)
@@ -372,6 +559,22 @@ class CsvSource:
             )
         self.time_axis = TimeAxis(self.path, 1.0 / self.rate, self.t0, resample=resample,
                                   check=rate is None or resample)
+
+    def _stated_rate(self) -> float | None:
+        """Rate (and start time) stated by the metadata lines, for a file without a time column."""
+        md = getattr(self, "metadata", {})
+        if not md:
+            return None
+        interval = _metadata_number(md, INTERVAL_ATTRS, self.decimal, TIME_UNITS)
+        rate = _metadata_number(md, RATE_ATTRS, self.decimal, _RATE_UNITS)
+        start = _metadata_number(md, T0_ATTRS, self.decimal, TIME_UNITS)
+        if start is not None:
+            self.t0 = start[1]
+        if interval is not None and interval[1] > 0:
+            return snap_rate(1.0 / interval[1])
+        if rate is not None and rate[1] > 0:
+            return rate[1]
+        return None
 
     def rows(self, select: list[int]) -> Iterator[Rows]:
         cols = [self.data_index[i] for i in select]

@@ -9,7 +9,8 @@ matched without regard to case:
 * rate in Hz: ``rate``, ``sample_rate``, ``sampling_rate``, ``samplerate``,
   ``sample_rate_hz``, ``sampling_frequency``, ``fs``;
 * or the interval in seconds: ``dt``, ``sample_interval``,
-  ``sampling_interval``, ``time_step``, ``interval``;
+  ``sampling_interval``, ``time_step``, ``interval``, ``sample_period``,
+  ``sampling_period``;
 * start time in seconds: ``t0``, ``start_time``, ``time_offset``;
 * channel names: ``channels``, ``channel_names``, ``names``;
 * units: ``units``, ``unit`` (one string or one per channel);
@@ -36,13 +37,10 @@ import numpy as np
 
 from simwave import __version__
 from simwave.errors import WaveformError
-from simwave.signals.common import WriteResult, dumps, snap_rate, to_jsonable
+from simwave.signals.common import (INTERVAL_ATTRS, RATE_ATTRS, T0_ATTRS, WriteResult, dumps,
+                                    snap_rate, to_jsonable)
 from simwave.signals.stream import JITTER_TOLERANCE, Rows, TimeAxis, sample_places
 
-RATE_ATTRS = ("rate", "sample_rate", "sampling_rate", "samplerate", "sample_rate_hz",
-              "sampling_frequency", "fs")
-INTERVAL_ATTRS = ("dt", "sample_interval", "sampling_interval", "time_step", "interval")
-T0_ATTRS = ("t0", "start_time", "time_offset")
 CHANNEL_ATTRS = ("channels", "channel_names", "names")
 UNIT_ATTRS = ("units", "unit")
 TIME_DATASETS = ("time", "t", "time_s")

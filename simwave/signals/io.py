@@ -24,6 +24,10 @@ fill_gaps : int
 time_column : str, int or False, optional (CSV)
 resample : bool (CSV time column, HDF5 time dataset)
 delimiter, decimal : str, optional (CSV)
+    Field separator and decimal mark (``"."`` or ``","``); default detected.
+header_line, skip_lines : int, optional (CSV)
+    Line number of the column names (0: none) and lines to skip at the top;
+    default detected. Lines above the names are kept as ``attrs["metadata"]``.
 full_scale, offset : float or list, optional (audio)
     Physical value = full_scale * sample + offset, per channel.
 units : str, optional (audio)
@@ -58,7 +62,22 @@ class WaveformWarning(UserWarning):
 
 
 _READER_KEYS = {"format", "rate", "dataset", "channels", "fill_gaps", "time_column", "resample",
-                "delimiter", "decimal", "full_scale", "offset", "units"}
+                "delimiter", "decimal", "header_line", "skip_lines", "full_scale", "offset",
+                "units"}
+_CSV_KEYS = ("time_column", "delimiter", "decimal", "header_line", "skip_lines")
+
+
+def _line_count(value: Any, name: str, where: str) -> int | None:
+    if value is None:
+        return None
+    try:
+        n = int(str(value).strip())
+    except ValueError:
+        raise WaveformError(f"{where}: {name} must be a whole number of lines, got {value!r}") \
+            from None
+    if n < 0:
+        raise WaveformError(f"{where}: {name} must be >= 0, got {n}")
+    return n
 
 
 def _positive_rate(rate: Any, where: str) -> float | None:
@@ -88,7 +107,7 @@ def _open_source(path: Any, opts: dict[str, Any]) -> Any:
         from simwave.signals.audio import AudioSource
 
         only(("dataset",), "HDF5")
-        only(("time_column", "delimiter", "decimal"), "CSV")
+        only(_CSV_KEYS, "CSV")
         src = AudioSource(path, full_scale=opts.get("full_scale"), offset=opts.get("offset"),
                           units=opts.get("units"))
         if rate is not None and abs(rate - src.rate) > 1e-9 * rate:
@@ -102,10 +121,12 @@ def _open_source(path: Any, opts: dict[str, Any]) -> Any:
         only(("dataset",), "HDF5")
         return CsvSource(path, rate=rate, time_column=opts.get("time_column"),
                          resample=bool(opts.get("resample")), delimiter=opts.get("delimiter"),
-                         decimal=opts.get("decimal"))
+                         decimal=opts.get("decimal"),
+                         header_line=_line_count(opts.get("header_line"), "header_line", path),
+                         skip_lines=_line_count(opts.get("skip_lines"), "skip_lines", path) or 0)
     from simwave.signals.hdf5file import Hdf5Source
 
-    only(("time_column", "delimiter", "decimal"), "CSV")
+    only(_CSV_KEYS, "CSV")
     return Hdf5Source(path, dataset=opts.get("dataset"), rate=rate,
                       resample=bool(opts.get("resample")))
 
@@ -267,7 +288,8 @@ def read(path: Any, **opts: Any) -> Waveform:
     **opts
         Reader options (see the module docs): ``format``, ``rate``,
         ``dataset``, ``channels``, ``fill_gaps``, ``time_column``,
-        ``resample``, ``delimiter``, ``decimal``, ``full_scale``, ``offset``, ``units``.
+        ``resample``, ``delimiter``, ``decimal``, ``header_line``, ``skip_lines``,
+        ``full_scale``, ``offset``, ``units``.
 
     Returns
     -------
