@@ -20,7 +20,7 @@ from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wai
 from concurrent.futures.process import BrokenProcessPool
 from typing import Any, Iterable, Iterator
 
-from simwave.batch.tasks import PairTask, WorkerStop, run_pair, worker_init
+from simwave.batch.tasks import PairTask, WorkerStop, run_task, worker_init
 from simwave.errors import BatchError
 
 #: A pair whose worker died this many times is recorded as failed (not retried again).
@@ -57,7 +57,7 @@ class InlineEngine:
     def results(self, tasks: Iterable[PairTask]) -> Iterator[tuple[PairTask, dict]]:
         for task in tasks:
             self._current = task
-            result = run_pair(task)
+            result = run_task(task)
             self._current = None
             yield task, result
 
@@ -159,7 +159,7 @@ class PoolEngine:
                 if task is None:
                     return
                 try:
-                    self._pending[self._executor.submit(run_pair, task)] = task
+                    self._pending[self._executor.submit(run_task, task)] = task
                 except BrokenProcessPool:
                     state["broken"] = True
                     retry.append(task)
@@ -311,7 +311,7 @@ class DaskEngine:
         ac = as_completed(loop=self.client.loop)
 
         def submit(task: PairTask) -> None:
-            fut = self.client.submit(run_pair, task, False, pure=False, retries=1,
+            fut = self.client.submit(run_task, task, False, pure=False, retries=1,
                                      key=f"simwave-pair-{self._token}-{task.index}")
             self._pending[fut.key] = (fut, task)
             ac.add(fut)

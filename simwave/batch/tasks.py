@@ -131,6 +131,26 @@ def run_pair(task: PairTask, capture_warnings: bool = True) -> dict[str, Any]:
     return out
 
 
+def run_task(task: Any, capture_warnings: bool = True) -> dict[str, Any]:
+    """Run any engine task: a :class:`PairTask` through :func:`run_pair`, or another task.
+
+    Other tasks (e.g. a chunk of tolerance-study builds) are picklable objects with an
+    ``index`` and a ``run(capture_warnings)`` method that returns a small result
+    dictionary with ``index`` and ``status`` and isolates its own failures. They run
+    under the same one-at-a-time lock and stop handling as pairs.
+    """
+    if isinstance(task, PairTask):
+        return run_pair(task, capture_warnings)
+    if _state["stopping"]:
+        raise WorkerStop()
+    with _EXECUTE_LOCK:
+        _state["busy"] = True
+        try:
+            return task.run(capture_warnings)
+        finally:
+            _state["busy"] = False
+
+
 def summarize_result(result: dict, index: int, elapsed_s: float,
                      extra_warnings: list[str] | None = None) -> dict[str, Any]:
     """The small result of a successful :func:`simwave.run.execute` call (see :func:`run_pair`)."""

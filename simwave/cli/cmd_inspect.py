@@ -163,6 +163,19 @@ def _table(header: Sequence[str], rows: Sequence[Sequence[str]]) -> list[str]:
     return [line(header), *(line(r) for r in rows)]
 
 
+def _parameter_text(prm: dict[str, Any]) -> str:
+    """'10000 (as written: 10k ±1%; band 9900 to 10100, uniform)'."""
+    text = fmt(prm["nominal"])
+    tol = prm.get("tolerance")
+    if prm.get("text") and prm["text"] != repr(prm["nominal"]):
+        text += f"   (as given: {prm['text']})"
+    if tol:
+        dist = tol["distribution"] + (f", limits at {fmt(tol['sigmas'])} sigma"
+                                      if tol["distribution"] == "normal" else "")
+        text += f"   band {fmt(tol['low'])} to {fmt(tol['high'])}, {dist}"
+    return text
+
+
 # ----------------------------------------------------------------------------- sections
 def format_system(d: dict[str, Any]) -> list[str]:
     """The ``system`` section: key facts, then one row per pole mode, then the zeros."""
@@ -171,6 +184,8 @@ def format_system(d: dict[str, Any]) -> list[str]:
         pairs.append(("name", d["name"]))
     if d.get("text"):
         pairs.append(("entered as", " ".join(str(d["text"]).split())))
+    for prm in d.get("parameters") or []:
+        pairs.append((f"parameter {prm['name']}", _parameter_text(prm)))
     num, den = fmt_poly(d["numerator"]), fmt_poly(d["denominator"])
     num = f"({num})" if " " in num else num
     den = f"({den})" if " " in den else den

@@ -17,6 +17,17 @@ System file (TOML), exactly one form plus optional name, notes and dead time::
     # or: [zpk]          zeros = []  poles = ["-1+2j", "-1-2j"]  gain = 5
     # or: [design]       family = "butterworth"  kind = "lowpass"  order = 4
     #                    cutoff_hz = "1k"  (a pair for band kinds)  ripple_db  attenuation_db
+
+Expression and ODE text may use parameter names, with their values (and optional
+tolerances, see :mod:`simwave.model.params`) in a ``[parameters]`` table::
+
+    expression = "1/(R*C*s + 1)"
+    [parameters]
+    R = "10k ±1%"
+    C = "100n ±5%"
+
+``--set R=12k`` (repeatable) gives or overrides a value on the command line; an
+override without a tolerance keeps the file's tolerance for that parameter.
 """
 
 from __future__ import annotations
@@ -24,7 +35,7 @@ from __future__ import annotations
 import functools
 import math
 import os
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, fields
 from typing import Any
 
@@ -33,6 +44,7 @@ import click
 from simwave.errors import InvalidSystemError, ParseError, SimwaveError
 from simwave.tomlfile import read_toml
 from simwave.model.designs import design
+from simwave.model.params import parse_assignment
 from simwave.model.parse import parse_complex, parse_number
 from simwave.model.system import System
 
@@ -40,7 +52,7 @@ from simwave.model.system import System
 #: The forms a system table may take (exactly one per table).
 FORMS = ("expression", "ode", "coefficients", "zpk", "design")
 #: Other keys a system table may have.
-EXTRA_KEYS = ("name", "notes", "dead_time_s")
+EXTRA_KEYS = ("name", "notes", "dead_time_s", "parameters")
 #: Keys inside each sub-table form.
 FORM_KEYS = {
     "ode": ("a", "b"),
@@ -66,11 +78,13 @@ class SystemSpec:
     gain: str | None = None
     design: str | None = None
     dead_time: str | None = None
+    settings: tuple[str, ...] = ()
 
     @property
     def is_empty(self) -> bool:
         """True when no system option was given at all."""
-        return all(getattr(self, f.name) is None for f in fields(self))
+        return not self.settings and all(
+            getattr(self, f.name) is None for f in fields(self) if f.name != "settings")
 
     @property
     def file(self) -> str | None:
@@ -94,6 +108,9 @@ _OPTIONS: list[tuple[tuple[str, ...], str, str]] = [
      ("Analog prototype, e.g. 'butterworth lowpass order=4 cutoff=1k' or "
      "'elliptic bandpass order=3 cutoff=300,3k ripple=0.5 attenuation=60'.")),
     (("--dead-time",), "SECONDS", "Extra dead time (transport delay) in seconds, e.g. '2m'."),
+    (("--set", "settings"), "NAME=VALUE",
+     ("Value of a parameter named in the system text, e.g. --set R=12k or "
+      "--set 'C=100n ±5%' (repeatable; overrides a system file's [parameters]).")),
 ]
 
 
@@ -108,12 +125,28 @@ def system_options(func: Callable[..., Any]) -> Callable[..., Any]:
 
     @functools.wraps(func)
     def wrapper(*args: Any, **kwargs: Any) -> Any:
-        spec = SystemSpec(**{n: kwargs.pop(n, None) for n in names})
+        values = {n: kwargs.pop(n, None) for n in names}
+        values["settings"] = tuple(values["settings"] or ())
+        spec = SystemSpec(**values)
         return func(*args, system_spec=spec, **kwargs)
 
     for decls, metavar, help_text in reversed(_OPTIONS):
-        wrapper = click.option(*decls, metavar=metavar, default=None, help=help_text)(wrapper)
+        multiple = decls[-1] == "settings"
+        wrapper = click.option(*decls, metavar=metavar, default=None, help=help_text,
+                               multiple=multiple)(wrapper)
     return wrapper
+
+
+def parse_settings(settings: Sequence[str], what: str = "--set") -> dict[str, str]:
+    """``("R=12k", "C=100n ±5%")`` -> ``{"R": "12k", "C": "100n ±5%"}``; a name set twice
+    is an error."""
+    out: dict[str, str] = {}
+    for item in settings:
+        name, value = parse_assignment(item, what)
+        if name in out:
+            raise InvalidSystemError(f"{what}: {name} is given twice")
+        out[name] = value
+    return out
 
 
 # ----------------------------------------------------------------------------- lists and numbers
@@ -219,12 +252,16 @@ def resolve_system(spec: SystemSpec, *, required: bool = True) -> System | None:
     if len(given) > 1:
         raise InvalidSystemError(f"give the system in one form only, not {' and '.join(given)}")
     form = given[0]
+    settings = parse_settings(spec.settings)
+    if settings and form != "-s/--system":
+        raise InvalidSystemError(
+            f"--set gives values to parameter names in H(s) or ODE text; {form} has none")
     if form == "-s/--system":
         text = spec.system or ""
         if spec.file is not None:
-            system = load_system_file(spec.file)
+            system = load_system_file(spec.file, settings=settings)
         else:
-            system = System.parse(text)
+            system = System.parse(text, parameters=settings)
     elif form == "--numerator/--denominator":
         if spec.numerator is None or spec.denominator is None:
             raise InvalidSystemError("--numerator and --denominator go together; give both")
@@ -265,10 +302,12 @@ def _seconds(value: float, what: str) -> float:
 
 
 # ----------------------------------------------------------------------------- files and tables
-def load_system_file(path: str | os.PathLike[str]) -> System:
+def load_system_file(path: str | os.PathLike[str],
+                     settings: Mapping[str, Any] | None = None) -> System:
     """Read a TOML system file (see the module docstring for its keys).
 
-    The system's name defaults to the file name without extension.
+    The system's name defaults to the file name without extension. ``settings``
+    (``{name: value}``, from ``--set``) give or override parameter values.
 
     Raises
     ------
@@ -277,7 +316,7 @@ def load_system_file(path: str | os.PathLike[str]) -> System:
     """
     p = os.fspath(path)
     data, _ = read_toml(p, "system file", InvalidSystemError)
-    system = system_from_mapping(data, where=p)
+    system = system_from_mapping(data, where=p, settings=settings)
     if system.name is None:
         system.name = os.path.splitext(os.path.basename(p))[0]
     return system
@@ -334,7 +373,8 @@ def _required(table: Mapping[str, Any], key: str, form: str) -> Any:
     return table[key]
 
 
-def system_from_mapping(data: Mapping[str, Any], where: str = "system table") -> System:
+def system_from_mapping(data: Mapping[str, Any], where: str = "system table",
+                        settings: Mapping[str, Any] | None = None) -> System:
     """A System from a table with one of the forms (the TOML system-file schema).
 
     Parameters
@@ -344,6 +384,9 @@ def system_from_mapping(data: Mapping[str, Any], where: str = "system table") ->
         ``expression``, ``ode``, ``coefficients``, ``zpk``, ``design``.
     where : str
         Where the table came from, for error messages (a file name, a table name).
+    settings : mapping, optional
+        Parameter values that override (or add to) the table's ``parameters``;
+        an override without a tolerance keeps the table's tolerance.
 
     Raises
     ------
@@ -371,7 +414,14 @@ def system_from_mapping(data: Mapping[str, Any], where: str = "system table") ->
     if notes is not None and not isinstance(notes, str):
         raise InvalidSystemError(f"{where}: notes must be text, got {notes!r}")
     try:
-        system = _build_form(data[form], form)
+        table = merged_parameters(data.get("parameters"), settings)
+    except SimwaveError as exc:
+        raise _located(where, "parameters", exc) from None
+    if table and not (form == "expression" or (form == "ode" and isinstance(data[form], str))):
+        raise InvalidSystemError(f"{where}: parameters apply to expression or ODE text, "
+                                 f"not to the {form} form")
+    try:
+        system = _build_form(data[form], form, table)
     except SimwaveError as exc:
         raise _located(where, form, exc) from None
     if "dead_time_s" in data:
@@ -385,13 +435,27 @@ def system_from_mapping(data: Mapping[str, Any], where: str = "system table") ->
     return system
 
 
-def _build_form(value: Any, form: str) -> System:
+def merged_parameters(table: Any, settings: Mapping[str, Any] | None = None
+                      ) -> dict[str, Any]:
+    """A system table's ``parameters`` with ``settings`` applied (``{name: Parameter}``)."""
+    from simwave.model.params import parameter_table
+
+    params = parameter_table(table)
+    for name, value in parameter_table(settings).items():
+        old = params.get(name)
+        if value.tolerance is None and old is not None and old.tolerance is not None:
+            value = type(value)(name, value.nominal, old.tolerance, value.text)
+        params[name] = value
+    return params
+
+
+def _build_form(value: Any, form: str, parameters: Mapping[str, Any] | None = None) -> System:
     if form == "expression":
         if not isinstance(value, str):
             raise InvalidSystemError(f"must be text, got {value!r}")
-        return System.parse(value, expect="expression")
+        return System.parse(value, expect="expression", parameters=parameters)
     if form == "ode" and isinstance(value, str):
-        return System.parse(value, expect="ode")
+        return System.parse(value, expect="ode", parameters=parameters)
     if form == "ode":
         t = _table(value, form)
         a = _list(_required(t, "a", form), "a", _number)

@@ -15,6 +15,11 @@ Grammar (``=`` only in ODE text; juxtaposition is implicit multiplication)::
     primed    := atom { "'" }
     atom      := NUMBER | NAME | FUNC '(' sum ')' | '(' sum ')'
 
+A NAME other than ``s``, ``pi``, the functions and (in ODE text) ``y`` and ``x`` is a
+parameter: its value comes from the ``values`` mapping given to the evaluator
+(a system file's ``[parameters]`` table, ``--set R=12k``); a name without a value
+is an error naming it.
+
 Juxtaposition binds tighter than ``*`` and ``/``, the way products are written
 on paper: ``1/2s`` is 1/(2s) and ``1/(s+1)(s+2)`` is 1/((s+1)(s+2)).
 
@@ -38,6 +43,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Any, Mapping
 
 import numpy as np
 
@@ -350,8 +356,7 @@ class _Parser:
                     raise self.unexpected("')'")
                 self.advance()
                 return Call(t.text, arg, t.pos)
-            if t.text not in EXPRESSION_NAMES + ODE_NAMES:
-                raise _fail(self.text, t.pos, _unknown_name_message(self.text, t))
+            # Any other name is a parameter: its value is looked up when evaluating.
             return Name(t.text, t.pos)
         if self.at("("):
             self.advance()
@@ -365,15 +370,43 @@ class _Parser:
         raise self.unexpected("a number, a name or '('")
 
 
-def _unknown_name_message(text: str, t: Token) -> str:
+def _unknown_name_message(text: str, name: str, pos: int) -> str:
     msg = (
-        f"unknown name {t.text!r} (known: {', '.join(EXPRESSION_NAMES)}; "
-        f"in ODE text also y (output) and x (input))"
+        f"unknown name {name!r}: no parameter of that name has a value (give it under "
+        f"[parameters] in a system file or with --set {name}=VALUE; "
+        f"known: {', '.join(EXPRESSION_NAMES)}; in ODE text also y (output) and x (input))"
     )
     # A name glued to a number that starts with a suffix letter: 1ms, 2ks.
-    if t.pos > 0 and text[t.pos - 1] in _DIGITS and t.text[0] in SUFFIXES:
-        msg += f"; to scale by {t.text[0]!r} and multiply, write e.g. 1{t.text[0]}*{t.text[1:]}"
+    if pos > 0 and text[pos - 1] in _DIGITS and name[0] in SUFFIXES:
+        msg += f"; to scale by {name[0]!r} and multiply, write e.g. 1{name[0]}*{name[1:]}"
     return msg
+
+
+def parameter_names(tree: Node | Equation) -> list[str]:
+    """Names in a syntax tree that are parameters (not s, pi, x, y or a function), in order
+    of first appearance."""
+    found: list[str] = []
+
+    def walk(node: Any) -> None:
+        if isinstance(node, Name):
+            if node.name not in EXPRESSION_NAMES + ODE_NAMES and node.name not in found:
+                found.append(node.name)
+        elif isinstance(node, Equation):
+            walk(node.lhs)
+            walk(node.rhs)
+        elif isinstance(node, (Neg, Primed)):
+            walk(node.operand)
+        elif isinstance(node, Chain):
+            for _, item, _ in node.items:
+                walk(item)
+        elif isinstance(node, Pow):
+            walk(node.base)
+            walk(node.exponent)
+        elif isinstance(node, Call):
+            walk(node.arg)
+
+    walk(tree)
+    return found
 
 
 def parse_tree(text: str) -> Node | Equation:
@@ -430,8 +463,9 @@ def _const(v: float) -> _Rat:
 class _RationalEvaluator:
     """Evaluate a syntax tree as a rational function of s (no cancellation)."""
 
-    def __init__(self, text: str):
+    def __init__(self, text: str, values: Mapping[str, float] | None = None):
         self.text = text
+        self.values = values or {}
 
     def fail(self, pos: int, problem: str) -> ParseError:
         return _fail(self.text, max(pos, 0), problem)
@@ -453,11 +487,13 @@ class _RationalEvaluator:
                 return _Rat(np.array([1.0, 0.0]), np.ones(1))
             if node.name == "pi":
                 return _const(math.pi)
-            raise self.fail(
-                node.pos,
-                f"{node.name!r} belongs in ODE text, which needs '=' "
-                "(e.g. y'' + 3y' + 2y = 2x' + x)",
-            )
+            if node.name in ODE_NAMES:
+                raise self.fail(
+                    node.pos,
+                    f"{node.name!r} belongs in ODE text, which needs '=' "
+                    "(e.g. y'' + 3y' + 2y = 2x' + x)",
+                )
+            return _const(self.parameter(node))
         if isinstance(node, Neg):
             r = self.eval(node.operand)
             return _Rat(-r.num, r.den, r.delay)
@@ -481,6 +517,15 @@ class _RationalEvaluator:
         if isinstance(node, Primed):
             raise self.fail(node.pos, "a prime (') marks a derivative, which only ODE text uses")
         raise self.fail(0, "unsupported construct")  # pragma: no cover - grammar is closed
+
+    def parameter(self, node: Name) -> float:
+        """The value of a parameter name (a one-line error naming it when it has none)."""
+        if node.name not in self.values:
+            raise self.fail(node.pos, _unknown_name_message(self.text, node.name, node.pos))
+        v = float(self.values[node.name])
+        if not math.isfinite(v):
+            raise self.fail(node.pos, f"parameter {node.name} is NaN or infinite")
+        return v
 
     def add(self, a: _Rat, b: _Rat, pos: int) -> _Rat:
         if a.delay or b.delay:
@@ -611,9 +656,9 @@ def _lscale(a: _Lin, k: float) -> _Lin:
 class _ODEEvaluator:
     """Evaluate each side of ODE text as a linear form in y, x and their derivatives."""
 
-    def __init__(self, text: str):
+    def __init__(self, text: str, values: Mapping[str, float] | None = None):
         self.text = text
-        self.numbers = _RationalEvaluator(text)
+        self.numbers = _RationalEvaluator(text, values)
 
     def fail(self, pos: int, problem: str) -> ParseError:
         return _fail(self.text, max(pos, 0), problem)
@@ -626,10 +671,12 @@ class _ODEEvaluator:
                 return self.derivative(node.name, 0)
             if node.name == "pi":
                 return _lconst(math.pi)
-            raise self.fail(
-                node.pos,
-                "s does not belong in ODE text: write derivatives as y', y'' or y^(3)",
-            )
+            if node.name == "s":
+                raise self.fail(
+                    node.pos,
+                    "s does not belong in ODE text: write derivatives as y', y'' or y^(3)",
+                )
+            return _lconst(self.numbers.parameter(node))
         if isinstance(node, Neg):
             return _lscale(self.eval(node.operand), -1.0)
         if isinstance(node, Primed):
@@ -749,7 +796,8 @@ class ParsedSystem:
     kind: str
 
 
-def parse_system_text(text: str, expect: str | None = None) -> ParsedSystem:
+def parse_system_text(text: str, expect: str | None = None,
+                      values: Mapping[str, float] | None = None) -> ParsedSystem:
     """Read an H(s) expression or ODE text into polynomial coefficients.
 
     Parameters
@@ -759,6 +807,10 @@ def parse_system_text(text: str, expect: str | None = None) -> ParsedSystem:
         ``"y'' + 3y' + 2y = 2x' + x"``.
     expect : {"expression", "ode", None}
         Require one kind of text; None accepts both (ODE text has ``=``).
+    values : mapping of str to float, optional
+        Values of the parameter names the text uses, e.g. ``{"R": 10e3, "C": 100e-9}``
+        for ``"1/(R*C*s + 1)"``. ``s``, ``pi``, ``exp``, ``sqrt`` (and ``x``, ``y`` in
+        ODE text) keep their meaning and cannot be parameters.
 
     Returns
     -------
@@ -779,7 +831,7 @@ def parse_system_text(text: str, expect: str | None = None) -> ParsedSystem:
     if isinstance(tree, Equation):
         if expect == "expression":
             raise _fail(text, tree.pos, "'=' in an H(s) expression (ODE text goes under 'ode')")
-        return _ode_result(text, tree)
+        return _ode_result(text, tree, values)
     if expect == "ode":
         raise ParseError(
             f"ODE text needs '=' between the output side and the input side, "
@@ -791,7 +843,7 @@ def parse_system_text(text: str, expect: str | None = None) -> ParsedSystem:
             f"{name!r} appears but there is no '=': ODE text needs the form "
             f"a_n y^(n) + ... + a_0 y = b_m x^(m) + ... + b_0 x (in \"{_quote(text)}\")"
         )
-    r = _RationalEvaluator(text).eval(tree)
+    r = _RationalEvaluator(text, values).eval(tree)
     if _is_zero(r.num):
         raise ParseError(f'H(s) is identically zero; it passes nothing (in "{_quote(text)}")')
     return ParsedSystem(r.num.astype(np.float64), r.den.astype(np.float64), r.delay, None,
@@ -820,8 +872,8 @@ def _mentions(node: Node, names: tuple[str, ...]) -> bool:
     return False
 
 
-def _ode_result(text: str, eq: Equation) -> ParsedSystem:
-    ev = _ODEEvaluator(text)
+def _ode_result(text: str, eq: Equation, values: Mapping[str, float] | None) -> ParsedSystem:
+    ev = _ODEEvaluator(text, values)
     lhs, rhs = ev.eval(eq.lhs), ev.eval(eq.rhs)
     if not (_mentions(eq.lhs, ("y",)) or _mentions(eq.rhs, ("y",))):
         raise ParseError(
@@ -853,7 +905,8 @@ def _ode_result(text: str, eq: Equation) -> ParsedSystem:
     return ParsedSystem(b.copy(), a.copy(), 0.0, (a.copy(), b.copy()), "ode")
 
 
-def parse_number(text: str, what: str = "number") -> float:
+def parse_number(text: str, what: str = "number",
+                 values: Mapping[str, float] | None = None) -> float:
     """A real constant: a number with optional engineering suffix, or a constant expression.
 
     ``parse_number("4.7k")`` is 4700.0; ``parse_number("2*pi*50")`` is 314.159...
@@ -867,7 +920,7 @@ def parse_number(text: str, what: str = "number") -> float:
         tree = parse_tree(text)
         if isinstance(tree, Equation) or _mentions(tree, ODE_NAMES):
             raise ParseError(f"'{_quote(text)}' is not a constant")
-        r = _RationalEvaluator(text).eval(tree)
+        r = _RationalEvaluator(text, values).eval(tree)
     except ParseError as exc:
         raise ParseError(f"{what}: {exc}") from None
     if not r.is_const:

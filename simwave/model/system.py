@@ -14,7 +14,7 @@ from __future__ import annotations
 import math
 import os
 import warnings
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
@@ -212,6 +212,8 @@ class System:
         self.text = text
         self.name = name
         self.ode = ode
+        #: Named parameters the system text was evaluated with (name -> Parameter).
+        self.parameters: dict[str, Any] = {}
         for zero, pole in self.near_cancellations:
             warnings.warn(
                 f"zero {_fmt_c(zero)} and pole {_fmt_c(pole)} (nearly) cancel; simwave keeps "
@@ -302,26 +304,53 @@ class System:
         return cls.from_coeffs(bb, aa, **kw)
 
     @classmethod
-    def parse(cls, text: str, *, name: str | None = None, expect: str | None = None) -> System:
+    def parse(cls, text: str, *, name: str | None = None, expect: str | None = None,
+              parameters: Mapping[str, Any] | None = None) -> System:
         """System from text: an H(s) expression or ODE text in prime notation.
 
         Examples: ``"2*pi*1k/(s + 2*pi*1k)"``, ``"exp(-2m*s) * 10/(s+10)"``,
-        ``"y'' + 3y' + 2y = 2x' + x"``. See :mod:`simwave.model.parse` for the
-        grammar. ``expect`` may be ``"expression"`` or ``"ode"`` to require one kind.
+        ``"y'' + 3y' + 2y = 2x' + x"``, ``"1/(R*C*s + 1)"`` with
+        ``parameters={"R": "10k", "C": "100n ±5%"}``. See :mod:`simwave.model.parse`
+        for the grammar. ``expect`` may be ``"expression"`` or ``"ode"`` to require one kind.
+
+        Parameters
+        ----------
+        parameters : mapping, optional
+            Values of the names the text uses: numbers, texts with engineering
+            suffixes and optional tolerances (:mod:`simwave.model.params`), or
+            :class:`~simwave.model.params.Parameter` objects. The nominal values
+            are used; the table is kept on :attr:`parameters`. A parameter the
+            text does not use is an error (a misspelt name would otherwise be
+            silently ignored).
 
         Raises
         ------
         ParseError
-            Unreadable text (the message gives the column).
+            Unreadable text (the message gives the column), a name without a value.
         InvalidSystemError
-            Improper H(s), order above 60, and the like.
+            Improper H(s), order above 60, an unused parameter, and the like.
         """
-        from simwave.model.parse import parse_system_text
+        from simwave.model.params import parameter_table
+        from simwave.model.parse import parameter_names, parse_system_text, parse_tree
 
-        parsed = parse_system_text(text, expect=expect)
+        table = parameter_table(parameters)
+        if table:
+            used = parameter_names(parse_tree(text))
+            unused = [n for n in table if n not in used]
+            if unused:
+                raise InvalidSystemError(
+                    f"parameter{'s' if len(unused) > 1 else ''} {', '.join(unused)} "
+                    f"not used in the system text (it uses: {', '.join(used) or 'none'})"
+                )
+        values = {n: p.nominal for n, p in table.items()}
+        parsed = parse_system_text(text, expect=expect, values=values)
         if parsed.ode is not None:
-            return cls.from_ode(parsed.ode[0], parsed.ode[1], text=text, name=name)
-        return cls.from_coeffs(parsed.num, parsed.den, delay_s=parsed.delay_s, text=text, name=name)
+            system = cls.from_ode(parsed.ode[0], parsed.ode[1], text=text, name=name)
+        else:
+            system = cls.from_coeffs(parsed.num, parsed.den, delay_s=parsed.delay_s, text=text,
+                                     name=name)
+        system.parameters = table
+        return system
 
     @classmethod
     def from_file(cls, path: str | os.PathLike[str]) -> "System":
@@ -707,8 +736,10 @@ class System:
         text = self.text
         if text is not None and extra:
             text = f"({text}) * exp(-{extra!r}*s)"
-        return System(self.zeros, self.poles, self.gain, delay_s=self.delay_s + extra,
-                      text=text, name=self.name, ode=self.ode)
+        out = System(self.zeros, self.poles, self.gain, delay_s=self.delay_s + extra,
+                     text=text, name=self.name, ode=self.ode)
+        out.parameters = dict(self.parameters)
+        return out
 
     def __mul__(self, other: Any) -> System:
         if isinstance(other, (System, int, float)):
@@ -768,6 +799,7 @@ class System:
             "denominator": [float(c) for c in self.den],
             "ode": None if self.ode is None else {
                 "a": [float(c) for c in self.ode[0]], "b": [float(c) for c in self.ode[1]]},
+            "parameters": [p.to_dict() for p in self.parameters.values()],
             "dead_time_s": self.delay_s,
             "dc_gain": _json_number(h0),
             "dc_gain_db": _json_number(h0_db),
