@@ -23,6 +23,7 @@ import csv
 import json
 import math
 import os
+import textwrap
 from collections.abc import Mapping, Sequence
 from typing import Any
 
@@ -466,11 +467,32 @@ def _handles(ax, ax_in):
     return handles, labels
 
 
+def _num_or(value: Any, default: float) -> float:
+    return float(value) if isinstance(value, (int, float)) else float(default)
+
+
+def _instant(row: Mapping[str, Any], key: str) -> float:
+    """A transition instant, falling back to its 50 % instant (and the others) when the
+    measurement gives none (null with a reason)."""
+    for k in (key, "crossing_50_s", "start_s", "end_s", "time_origin_s"):
+        if isinstance(row.get(k), (int, float)):
+            return float(row[k])
+    return 0.0
+
+
+def _value_text(row: Mapping[str, Any], key: str, text) -> str:
+    """``text(value)`` marked as a bound, or ``n/a`` when the value is missing."""
+    from simwave.measure.result import marked, row_bound
+
+    v = row.get(key)
+    return marked(v, row_bound(dict(row), key), text(v) if v is not None else "")
+
+
 def _zoom_window(row: Mapping[str, Any], t: np.ndarray, limit: float):
     """(start, end) in seconds around one transition: origin, peak and settling included,
     not past ``limit`` (the next transition's start, or the end of the record)."""
-    start, end = float(row["start_s"]), float(row["end_s"])
-    origin = float(row.get("time_origin_s", start))
+    start, end = _instant(row, "start_s"), _instant(row, "end_s")
+    origin = _num_or(row.get("time_origin_s"), start)
     dur = max(end - start, 1e-12)
     lo = min(origin, start) - max(dur, 0.15 * (end - min(origin, start)))
     hi = end + 2.0 * dur
@@ -486,7 +508,7 @@ def _draw_transition(ax, ax_settle, out, inp, ch, ci, row, index, window, limit)
     t = out.time
     lo_s, hi_s = window
     factor, unit = time_scale(hi_s - lo_s)
-    origin = float(row.get("time_origin_s", row["start_s"]))
+    origin = _num_or(row.get("time_origin_s"), _instant(row, "start_s"))
     sel = (t >= lo_s) & (t <= hi_s)
     tt = (t[sel] - origin) * factor
     y = _column(out, ch.get("name"), ci)
@@ -522,8 +544,8 @@ def _draw_transition(ax, ax_settle, out, inp, ch, ci, row, index, window, limit)
                         textcoords="offset points", ha="left", va="bottom", fontsize=7,
                         color=LEVEL_COLOR)
     # rise / fall time span: from the start to the end instant of the transition
-    start = (float(row["start_s"]) - origin) * factor
-    end = (float(row["end_s"]) - origin) * factor
+    start = (_instant(row, "start_s") - origin) * factor
+    end = (_instant(row, "end_s") - origin) * factor
     y_mid = refs.get("mid", 0.5 * (levels.get("low", 0.0) + levels.get("high", 1.0)))
     ax.plot([start, end], [y_mid, y_mid], color=RISE_COLOR, lw=2.4, solid_capstyle="butt",
             marker="|", markersize=10, gid="rise-time-span", label=dur_word)
@@ -531,20 +553,23 @@ def _draw_transition(ax, ax_settle, out, inp, ch, ci, row, index, window, limit)
         first, last = (refs["low"], refs["high"]) if is_rise else (refs["high"], refs["low"])
         ax.plot([start, start], [first, y_mid], color=RISE_COLOR, lw=0.8, ls="-")
         ax.plot([end, end], [y_mid, last], color=RISE_COLOR, lw=0.8, ls="-")
-    ax.annotate(f"{dur_word} {format_seconds(row.get(dur_key))}", xy=(end, y_mid),
+    ax.annotate(f"{dur_word} {_value_text(row, dur_key, format_seconds)}", xy=(end, y_mid),
                 xytext=(6, -10 if is_rise else 4), textcoords="offset points", fontsize=8,
                 color="#8a5d00", gid="rise-time-text")
     # time origin of peak and settling times
     ax.axvline(0.0, color=LEVEL_COLOR, lw=0.6, ls="-.", gid="time-origin")
     # overshoot peak (peak_time_s counts from the time origin)
+    over = f"overshoot {_value_text(row, 'overshoot_pct', lambda v: f'{v:.3g} %')}"
     if row.get("peak_time_s") is not None and row.get("peak_value") is not None:
         tp = float(row["peak_time_s"]) * factor
         ax.plot([tp], [row["peak_value"]], ls="none", marker="v" if is_rise else "^",
                 color=PEAK_COLOR, markersize=7, gid="overshoot-peak", label="peak")
-        ax.annotate(f"overshoot {row.get('overshoot_pct', 0.0):.3g} %",
-                    xy=(tp, row["peak_value"]), xytext=(8, 6 if is_rise else -12),
+        ax.annotate(over, xy=(tp, row["peak_value"]), xytext=(8, 6 if is_rise else -12),
                     textcoords="offset points", fontsize=8, color=PEAK_COLOR,
                     gid="overshoot-text")
+    else:
+        ax.text(0.02, 0.95, over, transform=ax.transAxes, va="top", fontsize=8,
+                color=PEAK_COLOR, gid="overshoot-text")
     ax.set_xlim(tt[0] if tt.size else None, tt[-1] if tt.size else None)
     ax.set_xlabel(f"time from the {row.get('time_origin', 'time origin')} ({unit})", fontsize=8)
     ax.set_ylabel(_with_unit(str(name), vunit))
@@ -564,10 +589,14 @@ def _draw_settling(ax, out, ch, ci, row, origin, factor, unit, levels, limit) ->
     amplitude = levels.get("amplitude")
     settled = row.get("settled_at_s")
     if final is None or band_pct is None or amplitude is None:
+        why = (row.get("null_reasons") or {}).get("settling_time_s") or "no final level"
+        ax.text(0.02, 0.95, "settling time n/a: " + textwrap.fill(str(why), 48),
+                transform=ax.transAxes, va="top", fontsize=7, color=PEAK_COLOR,
+                gid="settling-text")
         ax.set_axis_off()
         return
     band = band_pct / 100.0 * amplitude  # the band as simwave.measure defines it
-    t_from = float(row["end_s"])
+    t_from = _instant(row, "end_s")
     t_to = float(settled) if settled is not None else limit
     t_to = min(limit, t_to + 0.3 * max(t_to - t_from, 0.0))
     sel = (t >= t_from) & (t <= t_to)
@@ -580,11 +609,15 @@ def _draw_settling(ax, out, ch, ci, row, origin, factor, unit, levels, limit) ->
     if settled is not None:
         ts = (float(settled) - origin) * factor
         ax.axvline(ts, color=SETTLE_COLOR, lw=1.6, gid="settling-instant")
-        ax.annotate(f"settled {format_seconds(row.get('settling_time_s'))}", xy=(ts, final + span),
+        ax.annotate(f"settled {_value_text(row, 'settling_time_s', format_seconds)}",
+                    xy=(ts, final + span),
                     xytext=(-4, -12), textcoords="offset points", ha="right", fontsize=8,
                     color="#006b4f", gid="settling-text")
     else:
-        ax.text(0.02, 0.95, f"never settles within \u00b1{band_pct:g} %", transform=ax.transAxes,
+        text = f"settling time n/a: not settled within \u00b1{band_pct:g} %"
+        if row.get("settling_time_s") is not None:  # a bound, without a settling instant
+            text = f"settling time {_value_text(row, 'settling_time_s', format_seconds)}"
+        ax.text(0.02, 0.95, text, transform=ax.transAxes,
                 va="top", fontsize=8, color=PEAK_COLOR, gid="settling-text")
     if sel.any():
         ax.set_xlim((t_from - origin) * factor, (t_to - origin) * factor)

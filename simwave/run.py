@@ -675,10 +675,13 @@ def measure_run(job: RunJob, system: System, n_channels: int):
     """Measure a finished job's output file against its input (both read in blocks)."""
     from simwave.measure import measure
 
+    opts = dict(job.measure_options)
+    # the at-rest convention holds only for runs that start at rest
+    opts.setdefault("rest_before_record", job.initial == "rest" and job.output_ics is None)
     return measure(
         job.output, reference=job.source, system=system,
         read_options=output_read_options(job, n_channels),
-        reference_read_options=input_read_options(job), **job.measure_options,
+        reference_read_options=input_read_options(job), **opts,
     )
 
 

@@ -280,7 +280,11 @@ def test_constant_input_gain_and_ramp_kind():
     fs = 1000.0
     t = np.arange(2000) / fs
     out = 0.5 + 0.01 * np.sin(300 * t)
-    ch = measure(Waveform(out, fs), Waveform(np.ones_like(t), fs)).to_dict()["channels"][0]
+    # a record that does not start from rest (the output is at 0.5 from its first sample):
+    # the at-rest convention (a step at the first sample) is turned off
+    ch = measure(
+        Waveform(out, fs), Waveform(np.ones_like(t), fs), rest_before_record=False
+    ).to_dict()["channels"][0]
     assert ch["kind"] == "constant"
     assert ch["steady_state"]["steady_state_gain"] == pytest.approx(np.mean(out[-500:]), rel=1e-12)
     assert measure(Waveform(t, fs)).to_dict()["channels"][0]["kind"] == "ramp"

@@ -44,6 +44,17 @@ def _write_json(path: str, text: str, protect: list[str]) -> None:
                    "origin for delay/peak/settling, steady-state gain and error, gain and phase.")
 @click.option("--input-channel", metavar="NAME|INDEX", default=None,
               help="Take the input from this channel of FILE and measure the other channels.")
+@click.option("--reference-dataset", metavar="PATH", default=None,
+              help="HDF5: the reference's dataset, e.g. /input (written by run --with-input); "
+                   "without --reference it is read from FILE itself.")
+@click.option("--reference-channels", metavar="LIST", default=None,
+              help="Channels of the reference to use, names or indices, comma-separated; "
+                   "without --reference they are read from FILE itself.")
+@click.option("--before-record", type=click.Choice(["rest", "unknown"]), default="rest",
+              show_default=True,
+              help="rest: input and output were 0 before the record (how simwave runs start), "
+                   "so an input whose first sample is not 0 steps there; unknown: assume "
+                   "nothing before the first sample.")
 @click.option("--levels", metavar="LOW,MID,HIGH", default="10,50,90", show_default=True,
               help="Reference levels in percent of the amplitude (IEEE Std 181).")
 @click.option("--band", metavar="PCT", default="2", show_default=True,
@@ -71,9 +82,10 @@ def _write_json(path: str, text: str, protect: list[str]) -> None:
 @click.option("--plot", "plot_path", metavar="FILE", default=None,
               help="Also draw the input and output with the first transition's levels, rise "
                    "time, overshoot and settling band to FILE (.png or .svg).")
-def measure_cmd(file, system_spec, reference_file, input_channel, levels, band, harmonics,
-                sine_hz, tones, steady_fraction, state_levels, kind, method, as_json,
-                out_path, plot_path, **kwargs):
+def measure_cmd(file, system_spec, reference_file, input_channel, reference_dataset,
+                reference_channels, before_record, levels, band, harmonics, sine_hz, tones,
+                steady_fraction, state_levels, kind, method, as_json, out_path, plot_path,
+                **kwargs):
     """Measure FILE: transitions (rise/fall time, overshoot, undershoot, preshoot, peak,
     settling; per pulse for pulse trains), steady state (final value, gain, error, mean,
     RMS, ripple), sine and multi-tone gain and phase, THD and SINAD; and, with a system,
@@ -94,6 +106,7 @@ def measure_cmd(file, system_spec, reference_file, input_channel, levels, band, 
         "state_level_method": state_levels,
         "signal_kind": kind,
         "read_options": ropts,
+        "rest_before_record": before_record == "rest",
     }
     if sine_hz is not None:
         opts["sine_hz"] = parse_number(sine_hz, "--sine-hz")
@@ -101,6 +114,21 @@ def measure_cmd(file, system_spec, reference_file, input_channel, levels, band, 
         opts["tones_hz"] = _numbers(tones, "--tones")
     if input_channel is not None:
         opts["reference_channel"] = input_channel
+    ref_ropts = ropts
+    if reference_dataset is not None or reference_channels is not None:
+        if input_channel is not None:
+            raise MeasurementError(
+                "--input-channel takes the input from FILE's own channels; use it without "
+                "--reference-dataset/--reference-channels"
+            )
+        if reference_file is None:
+            reference_file = file
+        ref_ropts = dict(ropts)
+        if reference_dataset is not None:
+            ref_ropts["dataset"] = reference_dataset
+        if reference_channels is not None:
+            ref_ropts["channels"] = [p.strip() for p in reference_channels.split(",")]
+    opts["reference_read_options"] = ref_ropts
     if method is not None:
         if system is None:
             raise MeasurementError("--method needs a system (-s/--system or another system option)")
@@ -130,7 +158,7 @@ def measure_cmd(file, system_spec, reference_file, input_channel, levels, band, 
         from simwave.plots import plot_run
 
         plot_run(file, reference_file, result, plot_path, read_options=ropts,
-                 input_read_options=ropts)
+                 input_read_options=ref_ropts)
         click.echo(f"plot written to {plot_path}", err=True)
 
 

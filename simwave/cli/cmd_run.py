@@ -115,15 +115,28 @@ def _format_summary(result: dict) -> str:
         )
     if result.get("metrics"):
         from simwave.measure import key_metrics
+        from simwave.measure.result import key_bounds, key_missing, marked
 
         for name, values in key_metrics(result["metrics"]).items():
-            shown = [
-                f"{label} {values[key]:.4g}{(' ' + unit) if unit else ''}"
-                for key, label, unit in SUMMARY_METRICS
-                if isinstance(values.get(key), (int, float))
-            ]
+            bounds, missing = key_bounds(values), key_missing(values)
+            shown = []
+            for key, label, unit in SUMMARY_METRICS:
+                v = values.get(key)
+                if isinstance(v, (int, float)):
+                    text = marked(v, bounds.get(key), f"{v:.4g}{(' ' + unit) if unit else ''}")
+                    shown.append(f"{label} {text}")
+                elif key in missing:
+                    shown.append(f"{label} n/a")
             if shown:
                 lines.append(f"metrics    {name}: " + ", ".join(shown))
+            for key, why in missing.items():
+                label = next((lb for k, lb, _ in SUMMARY_METRICS if k == key), key)
+                lines.append(f"           {name} {label} n/a: {why}")
+            if bounds:
+                lines.append(
+                    f"           {name}: \u2265 marks a lower bound, \u2264 an upper bound "
+                    "(see the metrics file for why)"
+                )
     lines.append(f"time       {run['elapsed_s']:.3f} s")
     return "\n".join(lines)
 

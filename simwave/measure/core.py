@@ -67,7 +67,7 @@ FIRST_ROUND_SEGMENTS = 64
 
 def _established(*methods: str | None) -> bool:
     """Levels found settled or extrapolated from ringing: the record establishes them."""
-    return all(m in (seg.METHOD_END, seg.METHOD_EXTRAPOLATED) for m in methods)
+    return all(m in (seg.METHOD_END, seg.METHOD_EXTRAPOLATED, seg.METHOD_REST) for m in methods)
 
 
 def _turns_inside_band(after: seg.Segment, r: EdgeRegions, allowance: float) -> bool:
@@ -120,6 +120,7 @@ class MeasureOptions:
     max_window_samples: int = 1_000_000
     read_options: dict = field(default_factory=dict)
     reference_read_options: dict | None = None
+    rest_before_record: bool = True
 
     @classmethod
     def from_kwargs(cls, opts: dict) -> "MeasureOptions":
@@ -209,6 +210,7 @@ class MeasureOptions:
             "phase_tolerance_deg": self.phase_tolerance_deg,
             "overshoot_tolerance_pct": self.overshoot_tolerance_pct,
             "time_tolerance_pct": self.time_tolerance_pct,
+            "rest_before_record": bool(self.rest_before_record),
         }
 
 
@@ -370,7 +372,16 @@ def measure(
         o.read_options,
         o.reference_read_options,
     )
-    return _Measurement(src, system, o).run()
+    m = _Measurement(src, system, o)
+    if o.rest_before_record and src.prepend_rest_sample():
+        m.rest_sample = True
+        m.t0 = src.t0
+        m.notes.append(
+            "at-rest convention: the input and output are 0 before the record, and the input's "
+            "first sample is not, so the input steps at the first sample; one sample of 0 is "
+            "counted before the record (rest_before_record=False to drop the convention)"
+        )
+    return m.run()
 
 
 class _Measurement:
@@ -378,6 +389,7 @@ class _Measurement:
         self.src, self.system, self.o = src, system, o
         self.rate, self.t0 = src.rate, src.t0
         self.notes: list[str] = []
+        self.rest_sample = False  # one sample of 0 put before the record (at-rest convention)
 
     # ------------------------------------------------------------------ helpers
     def t(self, idx: float) -> float:
@@ -509,6 +521,11 @@ class _Measurement:
             other = i - 1 if i > 0 else i + 1
             away = int(np.sign(meds[i] - meds[other])) if 0 <= other < len(segs) else 0
             s.decide(max(amps + [floor]), self.o.settling_band_pct, away)
+            if self.rest_sample and s.start == 0 and s.length < seg.MIN_END_WINDOW:
+                # the segment before a step at the first sample: only the sample of 0 put
+                # before the record (and the output's first answer-free samples); its level
+                # is the at-rest convention's 0
+                s.level, s.method, s.settled, s.note = 0.0, seg.METHOD_REST, True, None
 
     def _levels_from_output_intervals(self) -> None:
         """Without a reference input: the state levels from the ends of the output's own
@@ -837,7 +854,7 @@ class _Measurement:
             rows = []
             for i, e in matched.items():
                 before, after = segs[i], segs[i + 1]
-                if not (before.settled and before.method == seg.METHOD_END):
+                if not (before.settled and before.method in (seg.METHOD_END, seg.METHOD_REST)):
                     continue
                 # up to the output's own transition start (and the run that may begin there)
                 lo = before.end + 1
@@ -1034,10 +1051,11 @@ class _Measurement:
             },
             "record": {
                 "rate_hz": self.rate,
-                "t0_s": self.t0,
-                "n_samples": self.n,
-                "duration_s": self.n / self.rate,
+                "t0_s": self.t0 + (1.0 / self.rate if self.rest_sample else 0.0),
+                "n_samples": self.n - int(self.rest_sample),
+                "duration_s": (self.n - int(self.rest_sample)) / self.rate,
                 "n_channels": len(self.outs),
+                "rest_sample_before": self.rest_sample,
             },
             "options": o.to_dict(),
             "steady_window_s": [self.t(self.w_start), self.t(self.n - 1)],

@@ -82,10 +82,91 @@ class MeasurementResult:
         return f"MeasurementResult({kinds})"
 
 
+# ----------------------------------------------------------------------------- marks
+#: How a bound is written before its value: a lower bound is "at least" (>=), an upper
+#: bound "at most" (<=).
+BOUND_MARKS = {"lower": "\u2265", "upper": "\u2264", "lower and upper": "~"}
+
+
+def marked(value: Any, bound: str | None, text: str) -> str:
+    """``text`` (the value already formatted) with its bound mark, or ``n/a`` for None."""
+    if value is None:
+        return "n/a"
+    mark = BOUND_MARKS.get(bound or "", "")
+    return f"{mark}{text}"
+
+
+def row_bound(row: dict, key: str) -> str | None:
+    """"lower"/"upper" when ``row[key]`` is a bound, else None (``row["bounds"]``)."""
+    return (row.get("bounds") or {}).get(key)
+
+
 # ----------------------------------------------------------------------------- key metrics
 def _stat(ch: dict, section: str, key: str, what: str) -> Any:
     v = (ch.get(section) or {}).get(key) or {}
     return v.get(what) if isinstance(v, dict) else None
+
+
+#: Key metric -> the transition-row key it summarizes.
+_KEY_SOURCES = {
+    "rise_time_s_mean": "rise_time_s",
+    "fall_time_s_mean": "fall_time_s",
+    "overshoot_pct_worst": "overshoot_pct",
+    "undershoot_pct_worst": "undershoot_pct",
+    "preshoot_pct_worst": "preshoot_pct",
+    "settling_time_s_longest": "settling_time_s",
+    "delay_s_mean": "delay_s",
+}
+
+
+def _key_marks(ch: dict, m: dict) -> tuple[str, str]:
+    """The ``bounds`` and ``missing`` texts of one channel's key metrics: which are bounds,
+    and why a transition metric is missing (the first reason found)."""
+    summ = ch.get("transition_summary") or {}
+    bounds, missing = [], []
+    for key, src in _KEY_SOURCES.items():
+        b = (summ.get(src) or {}).get("bound")
+        if b and m.get(key) is not None:
+            bounds.append(f"{key} {b}")
+        if m.get(key) is None and (summ.get(src) or {}).get("missing"):
+            why = next(
+                (
+                    (t.get("null_reasons") or {}).get(src)
+                    for t in ch.get("transitions") or []
+                    if (t.get("null_reasons") or {}).get(src)
+                ),
+                None,
+            )
+            if why:
+                missing.append(f"{key}: {why}")
+    for key, section in (("final_value", "steady_state"), ("steady_state_gain", "steady_state"),
+                         ("gain_db", "sine"), ("thd_pct", "sine")):
+        why = ((ch.get(section) or {}).get("null_reasons") or {}).get(key)
+        if m.get(key) is None and why:
+            missing.append(f"{key}: {why}")
+    if m.get("transitions") == 0 and (ch.get("null_reasons") or {}).get("transitions"):
+        missing.append(f"transitions: {ch['null_reasons']['transitions']}")
+    return "; ".join(bounds), "; ".join(missing)
+
+
+def key_bounds(m: dict) -> dict:
+    """``{key metric: "lower" | "upper"}`` from a key-metrics row's ``bounds`` text."""
+    out = {}
+    for part in (m.get("bounds") or "").split(";"):
+        key, _, side = part.strip().partition(" ")
+        if key:
+            out[key] = side
+    return out
+
+
+def key_missing(m: dict) -> dict:
+    """``{key metric: reason}`` from a key-metrics row's ``missing`` text."""
+    out = {}
+    for part in (m.get("missing") or "").split("; "):
+        key, sep, why = part.partition(": ")
+        if sep:
+            out[key.strip()] = why
+    return out
 
 
 def key_metrics(result: dict | MeasurementResult) -> dict:
@@ -108,7 +189,9 @@ def key_metrics(result: dict | MeasurementResult) -> dict:
         ``rms``, ``ripple_pp``, ``frequency_hz``, ``gain_db``, ``phase_deg``,
         ``predicted_gain_db``, ``predicted_phase_deg``, ``thd_pct``, ``sinad_db``,
         ``tone_gain_error_db_worst``, ``flags`` (number of measured-vs-predicted
-        differences beyond tolerance).
+        differences beyond tolerance), ``bounds`` (text: which of these are bounds,
+        e.g. ``"settling_time_s_longest lower"``; empty when none), ``missing`` (text:
+        why a missing transition or steady-state metric is missing; empty when none).
     """
     data = result.to_dict() if isinstance(result, MeasurementResult) else result
     pred = data.get("predicted") or {}
@@ -157,6 +240,7 @@ def key_metrics(result: dict | MeasurementResult) -> dict:
             "tone_gain_error_db_worst": max(tone_errs) if tone_errs else None,
             "flags": sum(1 for r in ch.get("comparison") or [] if r.get("flag")),
         }
+        m["bounds"], m["missing"] = _key_marks(ch, m)
         out[ch["name"]] = m
     return out
 
@@ -174,6 +258,12 @@ def _num(v: Any, unit: str = "") -> str:
             return _eng_time(v)
         return f"{v:.5g}{unit}"
     return str(v)
+
+
+def _mk(row: dict, key: str, unit: str = "") -> str:
+    """A row's value as table text: ``n/a`` when missing, marked when a bound."""
+    v = row.get(key)
+    return marked(v, row_bound(row, key), _num(v, unit))
 
 
 def _eng_time(v: float) -> str:
@@ -249,14 +339,15 @@ def format_result(data: dict) -> str:
                     [
                         str(t["index"]),
                         t["direction"],
-                        _num(t["crossing_50_s"], " s"),
-                        _num(t["transition_duration_s"], " s"),
-                        _num(t.get("delay_s"), " s"),
-                        _num(t.get("overshoot_pct")),
-                        _num(t.get("undershoot_pct")),
-                        _num(t.get("preshoot_pct")),
-                        _num(t.get("peak_time_s"), " s"),
-                        _num(t.get("settling_time_s"), " s"),
+                        _mk(t, "crossing_50_s", " s"),
+                        _mk(t, "transition_duration_s", " s"),
+                        _mk(t, "delay_s", " s"),
+                        _mk(t, "overshoot_pct"),
+                        _mk(t, "undershoot_pct"),
+                        _mk(t, "preshoot_pct"),
+                        _mk(t, "peak_time_s", " s"),
+                        _mk(t, "settling_time_s", " s"),
+                        _mk(t, "disturbance_rms"),
                     ]
                 )
             lines.append("  transitions:")
@@ -273,18 +364,29 @@ def format_result(data: dict) -> str:
                         "pre %",
                         "peak time",
                         "settling",
+                        "disturb.",
                     ],
                     rows[:50],
                 )
             )
             if len(rows) > 50:
                 lines.append(f"  ... {len(rows) - 50} more (see --json)")
+            lines.append(
+                "  (\u2265 lower bound, \u2264 upper bound; settling: last entry into the "
+                "band around the final level, from the time origin; disturb.: RMS of noise "
+                "and hum about the levels)"
+            )
             for t in trans[:50]:
                 if t.get("levels_note"):
                     lines.append(f"  #{t['index']} levels: {t['levels_note']}")
                 for k, why in (t.get("null_reasons") or {}).items():
                     if k != "delay_s":
                         lines.append(f"  #{t['index']} {k}: n/a - {why}")
+                for k, b in (t.get("bounds") or {}).items():
+                    why = (t.get("bound_reasons") or {}).get(k, "")
+                    lines.append(f"  #{t['index']} {k}: {b} bound" + (f" - {why}" if why else ""))
+                for k, why in (t.get("cautions") or {}).items():
+                    lines.append(f"  #{t['index']} {k}: caution - {why}")
         for u in (ch.get("unmatched_input_transitions") or [])[:50]:
             lines.append(
                 f"  input transition #{u['input_transition']} at "

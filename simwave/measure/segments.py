@@ -86,6 +86,9 @@ METHOD_END = "segment end"
 METHOD_EXTRAPOLATED = "turning-point extrapolation"
 METHOD_APPROACHING = "segment end, still approaching"
 METHOD_UNSETTLED = "segment end, not settled"
+#: The segment before a step at the first sample: the at-rest convention (input and output
+#: 0 before the record), not a measurement.
+METHOD_REST = "at rest before the record (convention)"
 
 
 @dataclass
@@ -549,7 +552,9 @@ class DepartureSearch:
 
 
 #: Level methods from the most to the least trustworthy.
-QUALITY = (METHOD_END, METHOD_EXTRAPOLATED, METHOD_APPROACHING, METHOD_UNSETTLED)
+QUALITY = (
+    METHOD_END, METHOD_REST, METHOD_EXTRAPOLATED, METHOD_APPROACHING, METHOD_UNSETTLED
+)
 
 
 def pooled_level(segs: list[Segment], state: int) -> tuple[float | None, str | None, bool]:
@@ -562,4 +567,4 @@ def pooled_level(segs: list[Segment], state: int) -> tuple[float | None, str | N
         return None, None, False
     best = min(QUALITY.index(s.method) for s in mine)
     use = [s for s in mine if QUALITY.index(s.method) == best]
-    return float(np.median([s.level for s in use])), QUALITY[best], best == 0
+    return float(np.median([s.level for s in use])), QUALITY[best], best <= 1

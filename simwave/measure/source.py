@@ -84,11 +84,17 @@ class _Stream:
         self.info = StreamInfo(
             label, first.rate, first.t0, list(first.channels), list(first.units), path
         )
+        data = np.asarray(first.data, dtype=np.float64)
+        self.first_row = (
+            data.reshape(data.shape[0], -1)[0] if data.size else np.zeros(len(first.channels))
+        )
+        self.rest_sample = False  # yield one sample of 0 before the record (at-rest convention)
 
     def select(self, columns: list[int]) -> "_Stream":
         s = _Stream.__new__(_Stream)
         s.__dict__.update(self.__dict__)
         s.columns = columns
+        s.first_row = self.first_row[columns]
         s.info = StreamInfo(
             self.info.label,
             self.info.rate,
@@ -100,6 +106,8 @@ class _Stream:
         return s
 
     def arrays(self) -> Iterator[np.ndarray]:
+        if self.rest_sample:
+            yield np.zeros((1, len(self.info.channels)))
         if isinstance(self.obj, Waveform):
             data = self.obj.data
             for a in range(0, data.shape[0], self.block_size):
@@ -199,6 +207,7 @@ class MeasureSource:
             out = out.select(rest)
         elif reference is not None:
             ref_opts = read_options if reference_read_options is None else reference_read_options
+            _refuse_self_reference(waveform, reference, read_options, ref_opts)
             ref = _Stream(reference, "reference waveform", block_size, ref_opts)
             if ref.info.rate != out.info.rate:
                 raise MeasurementError(
@@ -208,6 +217,19 @@ class MeasureSource:
         self.out, self.ref = out, ref
         self.rate = out.info.rate
         self.t0 = out.info.t0
+        self.rest_sample = False
+
+    def prepend_rest_sample(self) -> bool:
+        """At-rest convention: the system was at rest, its input and output 0, before the
+        record, so a reference whose first sample is not 0 steps there at the first sample.
+        One sample of 0 is put before both streams (at t0 - 1/rate), so that step is found
+        like any other. Returns whether it was (only with a reference that does not start
+        at 0)."""
+        if self.ref is None or not np.any(self.ref.first_row != 0):
+            return False
+        self.out.rest_sample = self.ref.rest_sample = self.rest_sample = True
+        self.t0 = self.out.info.t0 - 1.0 / self.rate
+        return True
 
     def blocks(self) -> Iterator[tuple[int, np.ndarray, np.ndarray | None]]:
         """Yield ``(start_index, output_block, reference_block_or_None)``; blocks are
@@ -217,6 +239,33 @@ class MeasureSource:
         for a, b in _aligned(self.out.arrays(), ref_arrays):
             yield start, a, b
             start += a.shape[0]
+
+
+def _same_file(a: Any, b: Any) -> bool:
+    if not (isinstance(a, PathLike) and isinstance(b, PathLike)):
+        return a is b
+    try:
+        return os.path.samefile(os.fspath(a), os.fspath(b))
+    except OSError:
+        return os.path.realpath(os.fspath(a)) == os.path.realpath(os.fspath(b))
+
+
+def _refuse_self_reference(waveform: Any, reference: Any, out_opts: dict, ref_opts: dict) -> None:
+    """A reference that is the measured record itself (the same file read the same way, or
+    the same Waveform) would measure the output against itself: delays of zero, gains of
+    one. Refused, with how to pick the input inside the same file."""
+    if not _same_file(waveform, reference):
+        return
+    keys = ("dataset", "channels")
+    if any((out_opts or {}).get(k) != (ref_opts or {}).get(k) for k in keys):
+        return
+    what = os.fspath(waveform) if isinstance(waveform, PathLike) else "the output waveform"
+    raise MeasurementError(
+        f"{what}: the reference is the measured record itself (same file, same dataset and "
+        "channels), which would measure the output against itself; pick the input inside the "
+        "file (a reference dataset such as /input, written by run --with-input, or a "
+        "reference channel)"
+    )
 
 
 def _channel_index(names: list[str], channel: Any, label: str) -> int:

@@ -353,5 +353,10 @@ def summarize(rows: list[dict], keys: tuple[str, ...], worst: bool) -> dict:
                 entry["std"] = float(arr.std())
         if missing:
             entry["missing"] = missing
+        marks = {(r.get("bounds") or {}).get(key) for r in rows if r.get(key) is not None}
+        marks.discard(None)
+        if marks:
+            # a statistic over bounds is itself a bound (of the same side)
+            entry["bound"] = marks.pop() if len(marks) == 1 else "lower and upper"
         out[key] = entry
     return out

@@ -1,0 +1,127 @@
+"""Measuring cost on long records: `simwave.measure` on 10-minute 48 kHz files (a sine, a step
+train of 1,000 transitions, white noise), each beside one plain whole-file pass over the same
+data (``soundfile.read`` of the file, then one ``numpy`` reduction: the ``np.load``-style
+baseline). Time and peak memory are printed, and their ratios.
+
+Each step runs in its own Python process, so its peak resident set size (``ru_maxrss``) is that
+step's own high-water mark (the import of simwave alone is printed first: every step pays it).
+
+Target: every record measured in <= 3 s and <= 200 MB peak on a 2-core machine.
+
+Usage: python benchmarks/bench_measure.py [--minutes 10] [--keep] [--dir DIR] [--only sine,...]
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import shutil
+import subprocess
+import sys
+import tempfile
+import textwrap
+
+RATE = 48000
+
+MAKE = """
+import numpy as np, soundfile as sf
+rate, n = {rate}, int({minutes} * 60 * {rate})
+kind, path = {kind!r}, {path!r}
+block = 1 << 20
+rng = np.random.default_rng(7)
+with sf.SoundFile(path, "w", rate, 1, subtype="FLOAT") as fh:
+    for s in range(0, n, block):
+        k = np.arange(s, min(s + block, n))
+        t = k / rate
+        if kind == "sine":
+            y = 0.5 * np.sin(2 * np.pi * 1000.0 * t)
+        elif kind == "steps":
+            # 1,000 transitions: a square wave of 500 periods through a first-order lag
+            period = n / 500
+            ph = (k % period) / period
+            up = ph < 0.5
+            tau = 0.002 * rate
+            since = np.where(up, k % period, k % period - period / 2)
+            y = np.where(up, 1 - np.exp(-since / tau), np.exp(-since / tau))
+        else:
+            y = 0.1 * rng.standard_normal(k.size)
+        fh.write(y.astype(np.float32))
+"""
+
+PRELUDE = """
+import json, resource, sys, time
+t0 = time.perf_counter()
+def done(**extra):
+    dt = time.perf_counter() - t0
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+    print(json.dumps(dict(seconds=dt, peak_mb=peak, **extra)))
+"""
+
+STEPS = {
+    "import only": "import simwave\ndone()",
+    "one whole-file pass (soundfile.read + sum, baseline)": """
+import numpy as np, soundfile as sf
+y, rate = sf.read(P, dtype="float64", always_2d=True)
+s = float(np.sum(y))
+done(samples=int(y.shape[0]))
+""",
+    "simwave.measure": """
+import simwave
+r = simwave.measure(P).to_dict()
+ch = r["channels"][0]
+done(kind=ch["kind"], transitions=len(ch.get("transitions") or []))
+""",
+}
+
+
+def _run(code: str, path: str) -> dict:
+    prog = PRELUDE + f"P = {path!r}\n" + textwrap.dedent(code)
+    res = subprocess.run([sys.executable, "-c", prog], capture_output=True, text=True)
+    if res.returncode != 0:
+        return {"error": (res.stderr.strip().splitlines() or ["?"])[-1]}
+    return json.loads(res.stdout.strip().splitlines()[-1])
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--minutes", type=float, default=10.0)
+    ap.add_argument("--keep", action="store_true")
+    ap.add_argument("--dir", default=None)
+    ap.add_argument("--only", default="sine,steps,noise")
+    a = ap.parse_args()
+    d = a.dir or tempfile.mkdtemp(prefix="simwave-bench-measure-")
+    os.makedirs(d, exist_ok=True)
+    try:
+        imp = _run(STEPS["import only"], "")
+        print(f"import simwave alone: {imp.get('seconds', 0):.2f} s, "
+              f"{imp.get('peak_mb', 0):.0f} MB")
+        for kind in a.only.split(","):
+            path = os.path.join(d, f"{kind}-{a.minutes:g}min.wav")
+            if not os.path.exists(path):
+                code = MAKE.format(rate=RATE, minutes=a.minutes, kind=kind, path=path)
+                subprocess.run([sys.executable, "-c", code], check=True)
+            base = _run(STEPS["one whole-file pass (soundfile.read + sum, baseline)"], path)
+            meas = _run(STEPS["simwave.measure"], path)
+            size = os.path.getsize(path) / 1e6
+            print(f"\n{kind}: {a.minutes:g} min at {RATE} Hz ({size:.0f} MB)")
+            for name, r in (("baseline: one whole-file pass", base), ("simwave.measure", meas)):
+                if "error" in r:
+                    print(f"  {name:32s} failed: {r['error']}")
+                    continue
+                extra = {k: v for k, v in r.items() if k not in ("seconds", "peak_mb")}
+                print(f"  {name:32s} {r['seconds']:7.2f} s  {r['peak_mb']:6.0f} MB  {extra or ''}")
+            if "error" not in base and "error" not in meas:
+                met = meas["seconds"] <= 3 and meas["peak_mb"] <= 200
+                print(
+                    f"  ratio measure / baseline: time {meas['seconds'] / base['seconds']:.2f}x, "
+                    f"peak memory {meas['peak_mb'] / base['peak_mb']:.2f}x; target <= 3 s and "
+                    f"<= 200 MB: {'met' if met else 'NOT met'}"
+                )
+    finally:
+        if not a.keep and a.dir is None:
+            shutil.rmtree(d, ignore_errors=True)
+
+
+if __name__ == "__main__":
+    main()
