@@ -25,7 +25,7 @@ from simwave.errors import SimwaveError
 from simwave.model.system import System
 from simwave.oversample import Decimator, Upsampler
 from simwave.pipeline import WriteBehind, read_ahead
-from simwave.signals.waveform import Waveform
+from simwave.signals.waveform import Waveform, as_waveform
 
 #: Samples per block: large enough that per-block overhead is negligible,
 #: small enough that a few blocks in flight stay well under 100 MB.
@@ -77,6 +77,7 @@ def open_source(
 ) -> Source:
     """Resolve a Waveform, a file path or a generated-signal spec into a :class:`Source`."""
     opts = dict(read_options or {})
+    source = as_waveform(source, rate, "input")
     if isinstance(source, Waveform):
         wave = source.select(list(channels)) if channels else source
         return _waveform_source(wave, wave.attrs.get("source", "waveform in memory"))
@@ -156,6 +157,16 @@ class RunReport:
     @property
     def duration(self) -> float:
         return self.n_samples / self.rate
+
+    def __repr__(self) -> str:
+        where = f"{self.output}: " if self.output else ""
+        return (f"RunReport({where}{self.n_samples} samples x {len(self.channels)} channel(s) "
+                f"at {self.rate:g} Hz, {self.method}, {len(self.warnings)} warning(s))")
+
+    def _repr_html_(self) -> str:
+        from simwave.notebook import run_report_html
+
+        return run_report_html(self)
 
     def to_dict(self) -> dict[str, Any]:
         return {
@@ -315,14 +326,15 @@ def simulate(
     ----------
     system : System or str
         The analog system, or any text :meth:`System.parse` accepts.
-    source : Waveform, path or generated-signal spec
+    source : Waveform, numpy array, path or generated-signal spec
         The input. A path is streamed block by block; a spec such as
-        ``"step:rate=10k,duration=0.1"`` is generated block by block.
+        ``"step:rate=10k,duration=0.1"`` is generated block by block. A plain
+        numpy array (1-D: one channel; 2-D: rows are samples) needs ``rate``.
     method : str
         Discretization method (see :func:`simwave.discrete.discretize`);
         ``ramp-invariant`` by default: exact for inputs linear between samples.
     rate : float, optional
-        Sample rate in Hz for inputs that carry none (headerless CSV).
+        Sample rate in Hz for inputs that carry none (a numpy array, headerless CSV).
     initial : {"rest", "settled"}
         Initial state: at rest before the first sample, or settled at the
         first sample's value. ``output_ics`` gives y(0), y'(0), ... for

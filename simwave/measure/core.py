@@ -298,10 +298,12 @@ def measure(
 
     Parameters
     ----------
-    waveform : Waveform or path
+    waveform : Waveform, numpy array or path
         The record to measure, usually a system's output. A path is read block by block
-        with :func:`simwave.blocks` (``read_options`` are passed on).
-    reference : Waveform or path, optional
+        with :func:`simwave.blocks` (``read_options`` are passed on). A plain numpy array
+        (1-D: one channel; 2-D: rows are samples) needs ``rate=`` (Hz), which also
+        applies to a numpy array ``reference``.
+    reference : Waveform, numpy array or path, optional
         The input that produced it: same rate and length; one channel (used for every
         output channel) or one per output channel. Input transitions give the time origin
         for delay, peak and settling times; input levels give steady-state gain and error;
@@ -354,6 +356,11 @@ def measure(
     IEEE Std 1057-2017 (sine fits, THD, SINAD); K. Ogata, *Modern Control Engineering*,
     5th ed., sec. 5-3 (second-order step response: overshoot and peak time).
     """
+    from simwave.signals.waveform import as_waveform
+
+    rate = opts.pop("rate", None)
+    waveform = as_waveform(waveform, rate, "waveform")
+    reference = as_waveform(reference, rate, "reference")
     o = MeasureOptions.from_kwargs(opts)
     if isinstance(system, str):
         from simwave.model.system import System

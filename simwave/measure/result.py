@@ -81,6 +81,11 @@ class MeasurementResult:
         kinds = ", ".join(f"{c['name']}: {c['kind']}" for c in self._data["channels"])
         return f"MeasurementResult({kinds})"
 
+    def _repr_html_(self) -> str:
+        from simwave.notebook import measurement_html
+
+        return measurement_html(self.key_metrics())
+
 
 # ----------------------------------------------------------------------------- marks
 #: How a bound is written before its value: a lower bound is "at least" (>=), an upper

@@ -827,6 +827,74 @@ class System:
         )
         return f"System({label})"
 
+    def _repr_html_(self) -> str:
+        from simwave.notebook import system_html
+
+        return system_html(self)
+
+    # ----------------------------------------------------------------- scipy.signal
+    @classmethod
+    def from_scipy(cls, lti: Any, **kw: Any) -> System:
+        """System from one of scipy.signal's continuous-time LTI objects.
+
+        Parameters
+        ----------
+        lti : scipy.signal.ZerosPolesGain, TransferFunction, StateSpace or lti
+            Single input, single output, continuous time (``dt`` None).
+        **kw
+            ``name``, ``text``, ``delay_s``.
+
+        Raises
+        ------
+        InvalidSystemError
+            A discrete-time object, several inputs or outputs, or another type.
+        """
+        from scipy import signal
+
+        if not isinstance(lti, (signal.lti, signal.dlti)):
+            raise InvalidSystemError(
+                f"expected a scipy.signal ZerosPolesGain, TransferFunction or StateSpace, "
+                f"got {type(lti).__name__}")
+        if getattr(lti, "dt", None) is not None:
+            raise InvalidSystemError(
+                f"a discrete-time {type(lti).__name__} (dt={lti.dt}); simwave takes the "
+                f"continuous-time H(s) and discretizes it itself")
+        if lti.inputs != 1 or lti.outputs != 1:
+            raise InvalidSystemError(
+                f"{lti.inputs} input(s) and {lti.outputs} output(s); only single-input, "
+                f"single-output systems are supported")
+        kw.setdefault("text", f"scipy.signal.{type(lti).__name__}")
+        if isinstance(lti, signal.TransferFunction):
+            return cls.from_coeffs(np.ravel(lti.num), np.ravel(lti.den), **kw)
+        if isinstance(lti, signal.ZerosPolesGain):
+            return cls.from_zpk(np.ravel(lti.zeros), np.ravel(lti.poles), float(lti.gain), **kw)
+        return cls.from_zpk(*_state_space_zpk(lti.A, lti.B, lti.C, lti.D), **kw)
+
+    def to_scipy(self, form: str = "zpk") -> Any:
+        """This H(s) as a scipy.signal LTI object: ``"zpk"`` (ZerosPolesGain, exact copy of
+        the zeros, poles and gain), ``"tf"`` (TransferFunction, coefficients in descending
+        powers of s) or ``"ss"`` (StateSpace, the section-wise realization of
+        :attr:`state_space`).
+
+        Raises
+        ------
+        InvalidSystemError
+            An unknown form, or a system with dead time (scipy's LTI objects hold none).
+        """
+        from scipy import signal
+
+        if self.delay_s:
+            raise InvalidSystemError(
+                f"dead time {self.delay_s:g} s cannot be carried by scipy.signal's LTI "
+                f"objects; build the system without it for the export")
+        if form == "zpk":
+            return signal.ZerosPolesGain(self.zeros, self.poles, self.gain)
+        if form == "tf":
+            return signal.TransferFunction(self.num, self.den)
+        if form == "ss":
+            return signal.StateSpace(*self.state_space)
+        raise InvalidSystemError(f"form must be 'zpk', 'tf' or 'ss', got {form!r}")
+
 
 def _pair_sections(zeros: np.ndarray, poles: np.ndarray, gain: float) -> np.ndarray:
     """Zeros, poles and gain as second-order sections (see :attr:`System.sections`)."""
@@ -865,6 +933,39 @@ def _pair_sections(zeros: np.ndarray, poles: np.ndarray, gain: float) -> np.ndar
     out = np.array(rows, dtype=np.float64)
     out[0, :3] *= gain
     return out
+
+
+def _state_space_zpk(A: Any, B: Any, C: Any, D: Any) -> tuple[np.ndarray, np.ndarray, float]:
+    """Zeros, poles and gain of a single-input single-output state-space model.
+
+    Poles are the eigenvalues of A; zeros the finite generalized eigenvalues of the
+    system matrix pencil ([[A, B], [C, D]], [[I, 0], [0, 0]]) (A. Emami-Naeini and
+    P. Van Dooren, "Computation of zeros of linear multivariable systems",
+    Automatica 18(4), 1982), which avoids the badly conditioned polynomial
+    coefficients of going through a transfer function; the gain follows from
+    H(s0) = C (s0 I - A)^-1 B + D at one real point away from every root.
+    """
+    from scipy.linalg import eigvals
+
+    A, B, C, D = (np.atleast_2d(np.asarray(m, dtype=np.float64)) for m in (A, B, C, D))
+    n = A.shape[0]
+    poles = np.linalg.eigvals(A) if n else np.array([])
+    if n:
+        pencil = np.block([[A, B], [C, D]])
+        mass = np.zeros_like(pencil)
+        mass[:n, :n] = np.eye(n)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            cand = eigvals(pencil, mass)
+        scale = 1.0 + float(np.max(np.abs(A)))
+        zeros = cand[np.isfinite(cand) & (np.abs(cand) < 1e8 * scale)]
+    else:
+        zeros = np.array([])
+    roots = np.abs(np.concatenate([poles, zeros, [1.0]]))
+    s0 = 1.7 * (1.0 + float(np.max(roots)))
+    h0 = float(np.real((C @ np.linalg.solve(s0 * np.eye(n) - A, B) + D)[0, 0])) if n \
+        else float(D[0, 0])
+    gain = h0 * float(np.real(np.prod(s0 - poles) / np.prod(s0 - zeros)))
+    return zeros, poles, gain
 
 
 def _as_system(x: Any) -> System:

@@ -148,3 +148,21 @@ class Waveform:
             f"Waveform({self.n_samples} samples x {self.n_channels} channel(s) at "
             f"{self.rate:g} Hz, t0={self.t0:g} s, channels={self.channels})"
         )
+
+    def _repr_html_(self) -> str:
+        from simwave.notebook import waveform_html
+
+        return waveform_html(self)
+
+
+def as_waveform(data: Any, rate: Any, what: str = "input") -> Any:
+    """A plain numpy array (1-D: one channel; 2-D: rows are samples) with ``rate`` in Hz
+    as a :class:`Waveform`; anything else is returned unchanged."""
+    if not isinstance(data, np.ndarray):
+        return data
+    if rate is None:
+        raise WaveformError(f"{what}: a numpy array carries no sample rate; give rate= (Hz)")
+    from simwave.signals.quantity import parse_quantity
+
+    return Waveform(data, parse_quantity(rate, "rate"),
+                    attrs={"source": f"numpy array {'x'.join(map(str, data.shape))}"})
