@@ -14,5 +14,6 @@ from simwave.cli import cmd_info  # noqa: F401,E402
 from simwave.cli import cmd_measure  # noqa: F401,E402
 from simwave.cli import cmd_demo  # noqa: F401,E402
 from simwave.cli import cmd_batch  # noqa: F401,E402
+from simwave.cli import cmd_tolerance  # noqa: F401,E402
 
 __all__ = ["main"]
