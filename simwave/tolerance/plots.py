@@ -20,7 +20,7 @@ from simwave.tolerance.summary import ANALYSIS_ROLES, MODEL_INPUT, metric_value,
 LIMIT_COLOR = OKABE_ITO["vermillion"]
 NOMINAL_COLOR = OKABE_ITO["black"]
 #: Most panels in one figure.
-MAX_PANELS = 12
+MAX_PANELS = 9
 
 
 def plot_files(study: Any) -> dict[str, str]:
@@ -72,8 +72,13 @@ def plot_distributions(study, builds, results, doc, path: str | None = None):
     for ax, row in zip(axes, panels, strict=False):
         vals = _values(study, builds, results, row)
         if vals:
-            bins = min(40, max(5, int(math.sqrt(len(vals)))))
-            ax.hist(vals, bins=bins, color=SERIES[0], alpha=0.75, label="builds")
+            lo, hi = min(vals), max(vals)
+            # values that differ only in their last digits: one bar (numpy cannot split
+            # such a range into finite-sized bins)
+            narrow = not (hi - lo) > 1e-9 * max(abs(hi), abs(lo))
+            bins = 1 if narrow else min(40, max(5, int(math.sqrt(len(vals)))))
+            ax.hist(vals, bins=bins, color=SERIES[0], alpha=0.75, label="builds",
+                    range=(lo - 0.5, hi + 0.5) if narrow and lo == hi else None)
         if row["nominal"] is not None:
             ax.axvline(row["nominal"], color=NOMINAL_COLOR, ls="--", lw=1.2, label="nominal")
         for key, ls in (("limit_min", ":"), ("limit_max", "-.")):

@@ -101,17 +101,29 @@ def secant_sensitivity(m_minus: float | None, m_plus: float | None, m_nominal: f
 
 
 def transfer_sensitivity(template: Any, values: dict[str, float], name: str,
-                         f_hz: Sequence[float], rel_step: float = 1e-6) -> np.ndarray:
+                         f_hz: Sequence[float], rel_step: float = 1e-3) -> np.ndarray:
     """Bode's sensitivity of H(j2πf) to one parameter [3]_, S = (dH/H)/(dx/x).
 
-    Computed by a central finite difference of H in the parameter (relative step
-    ``rel_step``, truncation error O(rel_step²)); complex, one value per frequency.
+    Computed numerically, not symbolically: central differences of H in the parameter
+    at relative steps h and h/2 combined by Richardson extrapolation,
+    S = (4 D(h/2) - D(h)) / 3, whose truncation error is O(h^4) (about 1e-12 for the
+    default h = 1e-3) and whose round-off stays near 1e-13 of |S| + 1. Complex, one
+    value per frequency.
+
+    References
+    ----------
+    .. [4] L. F. Richardson, "The deferred approach to the limit", Phil. Trans. R.
+           Soc. A 226, 1927 (extrapolation of a difference quotient).
     """
     x = values[name]
     f = np.asarray(f_hz, dtype=np.float64)
-    lo, hi = dict(values), dict(values)
-    lo[name], hi[name] = x * (1 - rel_step), x * (1 + rel_step)
     h0 = template.build(values).frequency_response(f)
-    hm = template.build(lo).frequency_response(f)
-    hp = template.build(hi).frequency_response(f)
-    return (hp - hm) / (2 * rel_step * h0)
+
+    def quotient(h: float) -> np.ndarray:
+        lo, hi = dict(values), dict(values)
+        lo[name], hi[name] = x * (1 - h), x * (1 + h)
+        hm = template.build(lo).frequency_response(f)
+        hp = template.build(hi).frequency_response(f)
+        return (hp - hm) / (2 * h * h0)
+
+    return (4 * quotient(rel_step / 2) - quotient(rel_step)) / 3
