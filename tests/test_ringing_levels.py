@@ -399,4 +399,9 @@ def test_first_order_top_still_approaching():
     assert "lower bound" in rise["levels_note"]
     expected = tau * math.log((1 - 0.1 * top) / (1 - 0.9 * top))
     assert rise["rise_time_s"] == pytest.approx(expected, rel=1e-3)
-    assert rise["settling_time_s"] is None
+    # not settled when its segment ends: the settling time is at least the time to there
+    # (a lower bound, marked), the overshoot unknown
+    assert rise["bounds"]["settling_time_s"] == "lower"
+    assert rise["bounds"]["rise_time_s"] == "lower"
+    assert rise["settling_time_s"] == pytest.approx(0.01, abs=2.0 / fs)
+    assert rise["overshoot_pct"] is None and "approaching" in rise["null_reasons"]["overshoot_pct"]

@@ -129,9 +129,12 @@ def _format_summary(result: dict) -> str:
                     shown.append(f"{label} n/a")
             if shown:
                 lines.append(f"metrics    {name}: " + ", ".join(shown))
+            by_reason: dict[str, list[str]] = {}
             for key, why in missing.items():
                 label = next((lb for k, lb, _ in SUMMARY_METRICS if k == key), key)
-                lines.append(f"           {name} {label} n/a: {why}")
+                by_reason.setdefault(why, []).append(label)
+            for why, labels in by_reason.items():
+                lines.append(f"           {name} {', '.join(labels)} n/a: {why}")
             if bounds:
                 lines.append(
                     f"           {name}: \u2265 marks a lower bound, \u2264 an upper bound "

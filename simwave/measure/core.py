@@ -25,6 +25,8 @@ import numpy as np
 
 from simwave.errors import MeasurementError
 from simwave.measure import levels as lv
+from simwave.measure import plateaus as pl
+from simwave.measure import quality
 from simwave.measure import segments as seg
 from simwave.measure import steady as st
 from simwave.measure.predict import Predictions, compare_rows, predictions_for
@@ -285,6 +287,14 @@ class _Chan:
     onset_delay: int | None = None
     # the most of the response to the next transition such a segment's end may hold
     onset_allowance: float = 0.0
+    # window summary and plateaus (multi-level transitions); multilevel: its transitions are
+    # found between plateaus, each with its own levels
+    windows: pl.WindowStats | None = None
+    staircase: pl.Staircase | None = None
+    multilevel: bool = False
+    # span (peak to peak) of noise and hum where the channel is quiet (the first quartile
+    # of its window spans)
+    disturbance_pp: float = 0.0
 
     @property
     def constant(self) -> bool:
@@ -465,9 +475,14 @@ class _Measurement:
         hist = lv.LevelHistogram(np.array([c.lo for c in chans]), np.array([c.hi for c in chans]))
         parts: list[list[np.ndarray]] = [[] for _ in chans]
         n_out = len(self.outs)
+        wsize = pl.window_size(self.n, self.rate)
+        for ch in chans:
+            ch.windows = pl.WindowStats(wsize)
         for start, a, b in self.src.blocks():
             blk = a if b is None else np.concatenate([a, b], axis=1)
             hist.add(blk)
+            for i, ch in enumerate(chans):
+                ch.windows.feed(blk[:, i])
             end = start + blk.shape[0]
             if end > self.w_start:
                 lo = max(self.w_start - start, 0)
@@ -482,8 +497,34 @@ class _Measurement:
             half = 0.1 * ch.levels.amplitude
             ch.two_state_fraction = hist.fraction_near(c, (ch.levels.low, ch.levels.high), half)
             ch.refs = lv.reference_values(ch.levels, self.o.reference_levels_pct)
+            ch.disturbance_pp = pl.quiet_span(ch.windows)
+            if c >= n_out and self.o.state_level_method != "minmax":
+                self._staircase(ch)
         self.hist = hist
         self._n_out = n_out
+
+    def _staircase(self, ch: _Chan) -> None:
+        """A reference of more than two levels, or of two with hum or noise that keeps its
+        samples away from them, is measured transition by transition between its plateaus."""
+        sc = pl.find_plateaus(ch.windows, self.n, rest_first=self.rest_sample)
+        ch.staircase = sc
+        if not sc.usable():
+            return
+        if ch.two_state_fraction >= TWO_STATE_FRACTION and sc.n_levels <= 2:
+            return  # two clean states: the histogram's levels serve every transition
+        ch.multilevel = True
+        lo = min(p.level for p in sc.plateaus)
+        hi = max(p.level for p in sc.plateaus)
+        ch.levels = lv.StateLevels(
+            lo,
+            hi,
+            "window plateaus (multi-level)",
+            note=(
+                f"{sc.n_levels} levels: each transition has its own initial and final level "
+                "(the plateaus before and after it)"
+            ),
+        )
+        ch.refs = lv.reference_values(ch.levels, self.o.reference_levels_pct)
 
     # ------------------------------------------------------------------ segment levels
     def _collect(self, segs_by_c: dict[int, list]) -> None:
@@ -629,7 +670,7 @@ class _Measurement:
     def _auto_kind(self, ch: _Chan, is_reference: bool) -> str:
         if ch.constant:
             return "constant"
-        if ch.two_state_fraction >= TWO_STATE_FRACTION or ch.established:
+        if ch.two_state_fraction >= TWO_STATE_FRACTION or ch.established or ch.multilevel:
             return "transitions"
         y = ch.window
         if y.size >= MIN_WINDOW and np.ptp(y) > 0:
@@ -717,14 +758,33 @@ class _Measurement:
         ]
         if not active:
             return
+        gaps: dict[int, list] = {}
         for i in active:
-            chans[i].finder = EdgeFinder(*chans[i].refs)
+            if chans[i].multilevel:
+                gaps[i] = pl.gap_finders(chans[i].staircase, self.o.reference_levels_pct)
+            else:
+                chans[i].finder = EdgeFinder(*chans[i].refs)
+        spans = {
+            i: (np.array([g[0] for g in gs]), np.array([g[1] for g in gs]))
+            for i, gs in gaps.items()
+        }
         for start, a, b in self.src.blocks():
             blk = a if b is None else np.concatenate([a, b], axis=1)
+            last = start + blk.shape[0] - 1
             for i in active:
-                chans[i].finder.feed(blk[:, i], start)
+                if i in gaps:
+                    lo, hi = spans[i]
+                    for g in np.flatnonzero((lo <= last) & (hi >= start)):
+                        glo, ghi, finder = gaps[i][g][:3]
+                        s0, s1 = max(glo, start), min(ghi, last)
+                        finder.feed(blk[s0 - start : s1 - start + 1, i], s0)
+                else:
+                    chans[i].finder.feed(blk[:, i], start)
         for i in active:
-            chans[i].edges = chans[i].finder.edges
+            if i in gaps:
+                chans[i].edges = pl.edges_from_gaps(gaps[i])
+            else:
+                chans[i].edges = chans[i].finder.edges
 
     # ------------------------------------------------------------------ input-aligned levels
     def _input_aligned_levels(self) -> None:
@@ -928,6 +988,17 @@ class _Measurement:
 
     def _aligned_channel_levels(self, c: int, ch: _Chan, segs: list) -> None:
         """The channel's two state levels: the segments' levels pooled by input state."""
+        if self.refs[self.ref_for(c)].multilevel:
+            lvls = [s.level for s in segs if math.isfinite(s.level)]
+            if len(lvls) >= 2:
+                ch.levels = lv.StateLevels(
+                    min(lvls),
+                    max(lvls),
+                    "segment ends (input-aligned, multi-level)",
+                    note="each transition has its own initial and final level",
+                )
+                ch.refs = lv.reference_values(ch.levels, self.o.reference_levels_pct)
+            return
         g0, m0, _ = seg.pooled_level(segs, 0)
         g1, m1, _ = seg.pooled_level(segs, 1)
         if g0 is None or g1 is None or not abs(g1 - g0) > self._min_change(ch):
@@ -1106,9 +1177,13 @@ class _Measurement:
                     "crossing_50_s": self.t(e.mid),
                     "end_s": self.t(e.end),
                     "transition_duration_s": (e.end - e.start) / self.rate,
+                    "initial_level": e.initial_level,
+                    "final_level": e.final_level,
                 }
                 for i, e in enumerate(r.edges)
             ]
+            if r.multilevel:
+                d["disturbance_pp"] = r.staircase.disturbance_pp
         if r.null_reasons:
             d["null_reasons"] = dict(r.null_reasons)
         return d
@@ -1194,7 +1269,8 @@ class _Measurement:
                     f"({ch.refs[0]:.6g}) to the other ({ch.refs[2]:.6g})"
                 )
         d["transition_summary"] = summarize(rows, WORST_IS_MAX + ("peak_time_s",), worst=True)
-        pulses = pulse_table(ch.edges, self.rate, self.t0)
+        multilevel = ref is not None and ref.multilevel
+        pulses = [] if multilevel else pulse_table(ch.edges, self.rate, self.t0)
         if pulses:
             d["pulses"] = pulses
             d["pulse_summary"] = summarize(
@@ -1286,8 +1362,11 @@ class _Measurement:
                 )
         if ch.edge_info and ref is not None:
             in_lv = ref.levels
-            in_dir = ref.edges[ch.edge_info[index]["match"]].direction
-            dx = (in_lv.high - in_lv.low) * in_dir
+            in_edge = ref.edges[ch.edge_info[index]["match"]]
+            if in_edge.initial_level is not None:
+                dx = in_edge.final_level - in_edge.initial_level
+            else:
+                dx = (in_lv.high - in_lv.low) * in_edge.direction
             if dx:
                 row["level_change_gain"] = (r.final - r.initial) / dx
         m = getattr(r, "match", None)
@@ -1359,7 +1438,10 @@ class _Measurement:
                 "to extrapolate (the record gives it too little time); the instants are found "
                 "on the median of the segment's end as a provisional level"
             )
-            why = f"{which} level not established (see levels_note)"
+            why = (
+                f"{which} level not established: its segment neither settles nor rings enough "
+                "to extrapolate (see levels_note)"
+            )
             for k in (
                 dur_key,
                 "transition_duration_s",
@@ -1411,6 +1493,13 @@ class _Measurement:
             row["settled_at_s"] = self.t(si)
         if reasons:
             row["null_reasons"] = reasons
+        before = ch.edge_info[index]["before"] if ch.edge_info else None
+        after = ch.edge_info[index]["after"] if ch.edge_info else self._segment_after(ch, index, e)
+        fallback = pl.disturbance_rms_from_pp(ch.disturbance_pp, ch.windows.size)
+        end_s = self.t(after.end if after is not None else r.post_end)
+        quality.annotate(
+            row, amp, self.o.settling_band_pct, rate, before, after, fallback, end_s
+        )
         return row
 
     # ------------------------------------------------------------------ steady state
@@ -1483,6 +1572,8 @@ class _Measurement:
         if ref.edges and ref.levels is not None and c in self.pre_step_value:
             last_in = ref.edges[-1]
             x_init = ref.levels.low if last_in.direction > 0 else ref.levels.high
+            if last_in.initial_level is not None:
+                x_init = last_in.initial_level
             y_init = self.pre_step_value[c]
             if ch.level_mode == "input-aligned" and len(ch.segments) >= 2:
                 # the settled end of the segment before the last input transition

@@ -79,6 +79,20 @@ NOISE_HYSTERESIS = 4.0
 #: before is not a swing of the ringing (our choice; the swings of a damped response are
 #: equally long).
 SHORT_SWING = 0.5
+#: A segment end holding the segment's extreme is settled only when the segment has stayed
+#: near its end level for at least this part of its length: as long as it took to get there.
+#: A response at a turning point of slow ringing looks flat over a short end window but has
+#: been near that value only briefly (our choice; it refuses records cut short near a peak).
+DWELL_FRACTION = 0.5
+#: A channel's quiet-window span is allowed for as a disturbance only up to this fraction of
+#: the transition amplitude (a step of 10 noise RMS has windows spanning some 0.7 of it; a
+#: sine's quiet-window span is the whole sine; our choice).
+DISTURBANCE_MAX = 0.75
+#: ... when its end window turns by more than this fraction of the band's half-width (beyond
+#: what noise explains; our choice).
+TURN_FRACTION = 0.02
+#: Points kept of a segment's deviation-from-the-end profile.
+BACK_POINTS = 256
 #: Samples of a segment held at once (the last ones of a longer segment).
 DEFAULT_CAP = 1_000_000
 
@@ -113,6 +127,13 @@ class Segment:
     allowance: float = 0.0  # part of that span the window's noise explains
     noise: float = 0.0  # robust noise standard deviation in the end window
     scatter: float = 0.0  # robust deviation of the end window about its median (noise, hum)
+    rms_dev: float = 0.0  # RMS deviation of the end window about its median
+    peak_dev: float = 0.0  # largest deviation of the end window from its median
+    disturbance: float = 0.0  # the channel's disturbance span allowed for in the settled test
+    # largest deviation from the end median over the last k samples, at a few k (increasing):
+    # how long the segment has stayed near its end level
+    back_k: tuple = ()
+    back_dev: tuple = ()
     extrapolated: float | None = None
     residual: float | None = None  # size of the last turning point used (abs)
     turning_points: int = 0
@@ -127,23 +148,32 @@ class Segment:
     def length(self) -> int:
         return self.end - self.start + 1
 
-    def decide(self, amplitude: float, band_pct: float, away: int = 0) -> None:
+    def decide(
+        self, amplitude: float, band_pct: float, away: int = 0, disturbance: float = 0.0
+    ) -> None:
         """Choose the level: settled end median, else turning-point extrapolation, else the
         last value of a steady approach, else the end median flagged not settled.
 
         ``amplitude``: the size of the transition(s) next to this segment, which scales
         the settling band; ``away``: +1 or -1, the direction away from the neighbouring
-        level (0: unknown), in which a still-approaching end moves.
+        level (0: unknown), in which a still-approaching end moves; ``disturbance``: the
+        span (peak to peak) that noise and hum give the channel where it is quiet: the
+        quarters of a settled end may differ by that much (hum over a quarter shorter than
+        its period) on top of the band.
         """
         tol = band_pct / 100.0 * abs(amplitude)
         self.note = None
+        if disturbance > DISTURBANCE_MAX * abs(amplitude):
+            disturbance = 0.0  # that large it is the signal itself (a sine), no disturbance
+        self.disturbance = disturbance
         if self.length < MIN_END_WINDOW:
             self.level, self.method, self.settled = self.median, METHOD_UNSETTLED, False
             self.note = (
                 f"segment of only {self.length} samples: too short to tell whether it settled"
             )
             return
-        if self.drift <= tol + self.allowance:
+        near = tol + self.allowance + disturbance
+        if self.drift <= near and not self._at_turning_point(near, away, tol):
             self.level, self.method, self.settled = self.median, METHOD_END, True
             return
         self.settled = False
@@ -171,6 +201,34 @@ class Segment:
             f"of the amplitude, outside the ±{band_pct:g} % band"
             + (f"; no extrapolation ({self.tp_reason})" if self.tp_reason else "")
         )
+
+    def _at_turning_point(self, near: float, away: int, tol: float = 0.0) -> bool:
+        """The end window turns (an inner quarter's median lies beyond both outer ones by
+        more than their noise allows, in the direction the segment travelled) and the segment
+        has been near its end level for less than ``DWELL_FRACTION`` of its length: the record
+        ends at a turning point of slow ringing (flat for a moment, then swinging back), not
+        at a settled level."""
+        if len(self.quarters) != 4 or self.dwell(near) >= DWELL_FRACTION * self.length:
+            return False
+        q = np.asarray(self.quarters)
+        signs = [away] if away else [1, -1]
+        for sgn in signs:
+            v = sgn * q
+            k = int(np.argmax(v))
+            # an inner quarter beyond both outer ones by more than their noise allows
+            if k in (1, 2) and v[k] - max(v[0], v[3]) > self.allowance + TURN_FRACTION * tol:
+                return True
+        return False
+
+    def dwell(self, within: float) -> int:
+        """How many samples, at the end of the segment, lie within ``within`` of its end
+        median (from the few points kept; the segment's held part only)."""
+        if not self.back_k:
+            return self.length
+        i = int(np.searchsorted(np.asarray(self.back_dev), within, side="right"))
+        if i >= len(self.back_k):
+            return self.length if self.back_k[-1] >= self.length else self.back_k[-1]
+        return self.back_k[i - 1] if i > 0 else 0
 
     def detail(self, rate: float, t0: float, amplitude: float) -> dict:
         """Dictionary for the result: how this level was found."""
@@ -343,6 +401,13 @@ def analyse_segment(seg: Segment, y: np.ndarray, first: int, fraction: float) ->
     # 1.4826 MAD: the standard deviation of normal noise (common practice, as above); unlike
     # the second differences it also counts slow noise and hum
     seg.scatter = float(1.4826 * np.median(np.abs(w - seg.median))) if w.size else 0.0
+    dev = w - seg.median
+    seg.rms_dev = float(np.sqrt(np.mean(dev * dev))) if w.size else 0.0
+    seg.peak_dev = float(np.max(np.abs(dev))) if w.size else 0.0
+    if y.size:
+        back = np.maximum.accumulate(np.abs(y[::-1] - seg.median))
+        k = np.unique(np.linspace(0, y.size - 1, min(y.size, BACK_POINTS)).astype(np.int64))
+        seg.back_k, seg.back_dev = tuple(int(i) + 1 for i in k), tuple(float(v) for v in back[k])
     if w_len >= MIN_END_WINDOW:
         m = w_len // 4
         meds = [float(np.median(w[i * m : (i + 1) * m])) for i in range(3)]

@@ -85,9 +85,9 @@ class _Stream:
             label, first.rate, first.t0, list(first.channels), list(first.units), path
         )
         data = np.asarray(first.data, dtype=np.float64)
-        self.first_row = (
-            data.reshape(data.shape[0], -1)[0] if data.size else np.zeros(len(first.channels))
-        )
+        data = data.reshape(data.shape[0], -1) if data.size else np.zeros((1, len(first.channels)))
+        self.first_row = data[0]
+        self.first_rows = data[:8].copy()
         self.rest_sample = False  # yield one sample of 0 before the record (at-rest convention)
 
     def select(self, columns: list[int]) -> "_Stream":
@@ -95,6 +95,7 @@ class _Stream:
         s.__dict__.update(self.__dict__)
         s.columns = columns
         s.first_row = self.first_row[columns]
+        s.first_rows = self.first_rows[:, columns]
         s.info = StreamInfo(
             self.info.label,
             self.info.rate,
@@ -226,6 +227,11 @@ class MeasureSource:
         like any other. Returns whether it was (only with a reference that does not start
         at 0)."""
         if self.ref is None or not np.any(self.ref.first_row != 0):
+            return False
+        y = self.out.first_rows
+        if y.shape[0] >= 8 and np.all(y[0] != 0) and np.all(np.ptp(y, axis=0) <= 1e-9 * np.abs(y[0])):
+            # the output holds a level other than 0 from its first samples: the record did
+            # not start from rest, whatever the input does
             return False
         self.out.rest_sample = self.ref.rest_sample = self.rest_sample = True
         self.t0 = self.out.info.t0 - 1.0 / self.rate

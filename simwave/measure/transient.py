@@ -67,6 +67,9 @@ class Edge:
     # this transition's own reference levels (low, mid, high) when its state levels are
     # its own (input-aligned segments); None: the channel's
     refs: tuple | None = None
+    # the levels before and after it when it has its own (a multi-level record), else None
+    initial_level: float | None = None
+    final_level: float | None = None
 
     @property
     def name(self) -> str:
