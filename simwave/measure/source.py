@@ -229,7 +229,8 @@ class MeasureSource:
         if self.ref is None or not np.any(self.ref.first_row != 0):
             return False
         y = self.out.first_rows
-        if y.shape[0] >= 8 and np.all(y[0] != 0) and np.all(np.ptp(y, axis=0) <= 1e-9 * np.abs(y[0])):
+        steady = np.all(np.ptp(y, axis=0) <= 1e-9 * np.abs(y[0]))
+        if y.shape[0] >= 8 and np.all(y[0] != 0) and steady:
             # the output holds a level other than 0 from its first samples: the record did
             # not start from rest, whatever the input does
             return False
