@@ -20,7 +20,7 @@ EXAMPLES = os.path.join(ROOT, "examples")
 WAVEFORMS = os.path.join(ROOT, "waveforms")
 SYSTEM_FILES = sorted(
     p for p in glob.glob(os.path.join(EXAMPLES, "**", "*.toml"), recursive=True)
-    if os.path.basename(p) != "batch.toml"
+    if os.path.basename(p) != "batch.toml" and not p.endswith("_study.toml")  # study files
 )
 
 

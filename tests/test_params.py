@@ -170,3 +170,17 @@ def test_cli_set_errors_are_one_line(tmp_path):
                    '[parameters]\nR = 1\n', encoding="utf-8")
     r = CliRunner().invoke(main, ["inspect", "-s", str(bad)])
     assert r.exit_code == 2 and "not to the design form" in r.output
+
+
+@pytest.mark.parametrize("text, decimal", [
+    ("6.8n", "6.8e-9"), ("4.7u", "4.7e-6"), ("8.2n", "8.2e-9"), ("0.1m", "0.1e-3"),
+    ("2.2M", "2.2e6"), ("3.3p", "3.3e-12"), ("1.1k", "1.1e3"), ("12e-3k", "12e-3e3"),
+])
+def test_suffixed_numbers_are_the_nearest_double(text, decimal):
+    # Python's float() of the decimal text is correctly rounded (IEEE 754-2008, sec. 5.12):
+    # a suffixed number must be that same double, not mantissa * 10^k rounded twice.
+    from decimal import Decimal
+
+    mant, _, exp = decimal.rpartition("e")
+    expect = float(Decimal(mant) * Decimal(10) ** int(exp)) if "e" in mant else float(decimal)
+    assert parse_number(text) == expect

@@ -426,3 +426,33 @@ def test_cli_prints_the_summary_and_writes_the_files(tmp_path):
     assert doc["schema"] == 1 and doc["analysis"] == "corners"
     r = CliRunner().invoke(main, ["tolerance", str(tmp_path / "missing.toml")])
     assert r.exit_code == 2 and r.output.startswith("Error: ") and "not found" in r.output
+
+
+# ----------------------------------------------------------------------------- the example
+def test_example_study_runs_as_written(tmp_path):
+    root = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+    study = os.path.join(root, "examples", "strain_front_end_study.toml")
+    r = CliRunner().invoke(main, ["tolerance", study, "-o", str(tmp_path / "mc"),
+                                  "--draws", "12", "-j", "1"])
+    assert r.exit_code == 0, r.output
+    doc = json.loads((tmp_path / "mc" / "tolerance-summary.json").read_text())
+    assert doc["counts"]["analysis_builds"] == 12 and doc["seed"] == 2026
+    rows = {r["metric"]: r for r in doc["model"]}
+    # Unity-gain Sallen-Key: wn = 1/sqrt(R1 R2 C1 C2), zeta = C2 (R1 + R2) / (2 sqrt(R1 R2
+    # C1 C2)) (coefficients of the denominator; Ogata sec. 5-3 for wn and zeta).
+    wn = 1 / math.sqrt(10e3 * 10e3 * 22e-9 * 10e-9)
+    assert rows["natural_frequency_hz_dominant"]["nominal"] == pytest.approx(
+        wn / (2 * math.pi), rel=1e-12)
+    assert rows["damping_ratio_dominant"]["nominal"] == pytest.approx(
+        10e-9 * 20e3 / 2 * wn, rel=1e-12)
+    assert rows["dc_gain"]["nominal"] == pytest.approx(100.0, rel=1e-14)
+    # C2 (the wider band) decides the damping, hence the overshoot
+    over = next(m for m in doc["metrics"] if m["metric"] == "overshoot_pct_worst")
+    assert over["moves_most"]["parameter"] == "C2"
+    r = CliRunner().invoke(main, ["tolerance", study, "-o", str(tmp_path / "sweep"),
+                                  "--analysis", "sweep", "-j", "1"])
+    assert r.exit_code == 0, r.output
+    assert "design search:" in r.output
+    doc = json.loads((tmp_path / "sweep" / "tolerance-summary.json").read_text())
+    assert [p["values"]["C2"] for p in doc["sweep"]["points"]] == [6.8e-9, 8.2e-9, 10e-9,
+                                                                   12e-9, 15e-9]

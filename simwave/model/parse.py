@@ -42,6 +42,7 @@ Chapter and section numbers in these references are quoted from memory.
 from __future__ import annotations
 
 import math
+from decimal import Decimal
 from dataclasses import dataclass
 from typing import Any, Mapping
 
@@ -129,7 +130,10 @@ def tokenize(text: str) -> list[Token]:
             if j < n and text[j] in SUFFIXES and not (j + 1 < n and _is_name_char(text[j + 1])):
                 scale = SUFFIXES[text[j]]
                 j += 1
-            value = float(mantissa) * scale
+            # The decimal value, rounded once: 6.8n is the double nearest 6.8e-9
+            # (float("6.8") * 1e-9 would round twice and miss it by an ulp).
+            value = float(mantissa) if scale == 1.0 else float(
+                Decimal(mantissa).scaleb(round(math.log10(scale))))
             if not math.isfinite(value):
                 raise _fail(text, i, f"number {text[i:j]} is out of range")
             tokens.append(Token("num", text[i:j], i, value))

@@ -166,7 +166,7 @@ def load_study(path: str | os.PathLike[str], *, output_dir: str | None = None,
     if per_task is not None:
         _whole(per_task, "builds_per_task", where("builds_per_task", "study"), low=1)
     sweep: dict[str, list[float]] = {}
-    if kind == "sweep":
+    if kind == "sweep" or "sweep" in data:  # checked always; used by analysis = "sweep"
         table = data.get("sweep")
         if not isinstance(table, dict) or not table:
             raise StudyError(f"{source}: a sweep study needs a [sweep] table naming one or two "
@@ -183,8 +183,8 @@ def load_study(path: str | os.PathLike[str], *, output_dir: str | None = None,
                 sweep[name] = B.sweep_axis(name, spec, w)
             except SimwaveError as exc:
                 raise StudyError(str(exc)) from None
-    elif "sweep" in data:
-        raise StudyError(f"{where('sweep')}: [sweep] is for analysis = \"sweep\"")
+        if kind != "sweep":
+            sweep = {}
     if kind != "sweep" and not B.toleranced(params):
         raise StudyError(f"{source}: no parameter has a tolerance; write e.g. R = \"10k ±1%\" "
                          "under [system.parameters]")
