@@ -128,6 +128,8 @@ def plot_sweep(study, builds, results, doc, path: str | None = None):
                      else metric_value(r, row["input"], row["channel"], row["metric"]))
                 xs.append(b.values[names[0]])
                 ys.append(np.nan if v is None else v)
+            if g is None:
+                _corner_band(ax, builds, results, row, names[0], xs)
             label = "nominal others" if g is None else f"{names[1]} = {g:.4g}"
             ax.plot(xs, ys, color=SERIES[gi % len(SERIES)], marker="os^vD<>"[gi % 7], ms=3,
                     lw=1.2, label=label)
@@ -149,6 +151,26 @@ def plot_sweep(study, builds, results, doc, path: str | None = None):
     if path:
         save_figure(fig, path)
     return fig
+
+
+def _corner_band(ax, builds, results, row, name, xs) -> None:
+    """Shade the range over the other parameters' corners at each sweep point."""
+    lo, hi = [], []
+    for x in xs:
+        vals = []
+        for b in builds:
+            if b.role != "sweep-corner" or b.values[name] != x:
+                continue
+            r = results.get(b.index)
+            v = (model_value(r, row["metric"]) if row["input"] == MODEL_INPUT
+                 else metric_value(r, row["input"], row["channel"], row["metric"]))
+            if v is not None:
+                vals.append(v)
+        lo.append(min(vals) if vals else np.nan)
+        hi.append(max(vals) if vals else np.nan)
+    if not all(np.isnan(lo)):
+        ax.fill_between(xs, lo, hi, color=SERIES[0], alpha=0.2, lw=0,
+                        label="range over tolerance corners")
 
 
 def plot_worst(study, builds, doc, path: str | None = None):

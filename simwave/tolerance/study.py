@@ -9,6 +9,8 @@ Study file (TOML; paths relative to the file)::
     jobs = 2                      # local worker processes (default: all cores)
     # scheduler = "tcp://10.1.2.3:8786"   # a Dask scheduler instead
     # builds_per_task = 8         # builds per engine task (default: chosen from the count)
+    # sweep_tolerances = "corners"  # at each sweep point: corners of the other toleranced
+    #                               # parameters (default when at most 6) or "nominal"
 
     [system]                      # one system: H(s) or ODE text with parameter names
     expression = "1/(R*C*s + 1)"  # (or file = "rc.toml": a system file with [parameters])
@@ -44,9 +46,11 @@ analyses are:
   that, for each metric, the two corners the sensitivity steps point to (said so in
   the summary's notes).
 * ``monte-carlo``: ``draws`` random builds from the stated distributions.
-* ``sweep``: the swept parameters over their values, the others nominal; with
-  ``[limits]`` a design search reports the values that meet every limit on every
-  input, with the margin, or says that none do.
+* ``sweep``: the swept parameters over their values; at each point the other
+  parameters nominal and, with ``sweep_tolerances = "corners"`` (the default for up
+  to :data:`MAX_SWEEP_CORNERS` other toleranced parameters), every corner of their
+  tolerances. With ``[limits]`` a design search reports the values that meet every
+  limit on every input at every corner, with the margin, or says that none do.
 """
 
 from __future__ import annotations
@@ -66,7 +70,10 @@ from simwave.tolerance.worker import BuildChunk, InputRef, SystemTemplate
 
 SECTIONS = ("study", "system", "sweep", "output", "measure", "limits", "inputs")
 STUDY_KEYS = ("analysis", "draws", "seed", "jobs", "scheduler", "connect_timeout_s",
-              "builds_per_task")
+              "builds_per_task", "sweep_tolerances")
+#: At each sweep point, every corner of the other toleranced parameters is run when they
+#: are at most this many (2^6 = 64 builds per point); beyond, only the nominal.
+MAX_SWEEP_CORNERS = 6
 ANALYSES = ("corners", "monte-carlo", "sweep")
 RUN_KEYS = ("method", "initial", "prewarp_hz", "match_hz", "oversample")
 SYSTEM_KEYS = ("file", "expression", "ode", "name", "notes", "dead_time_s", "parameters") \
@@ -103,6 +110,7 @@ class Study:
     scheduler: str | None = None
     connect_timeout_s: float = 10.0
     builds_per_task: int | None = None
+    sweep_tolerances: str = "nominal"
     plots: bool = True
     input_files: list[str] = field(default_factory=list)
     warnings: list[str] = field(default_factory=list)
@@ -192,6 +200,16 @@ def load_study(path: str | os.PathLike[str], *, output_dir: str | None = None,
         if p.nominal == 0:
             raise StudyError(f"{source}: parameter {p.name} has nominal 0: its relative "
                              "sensitivity is undefined")
+    others = [p for p in B.toleranced(params) if p.name not in sweep]
+    sweep_tol = st.get("sweep_tolerances",
+                       "corners" if others and len(others) <= MAX_SWEEP_CORNERS else "nominal")
+    if sweep_tol not in ("corners", "nominal"):
+        raise StudyError(f"{where('sweep_tolerances', 'study')}: sweep_tolerances must be "
+                         f"\"corners\" or \"nominal\", got {sweep_tol!r}")
+    if sweep_tol == "corners" and len(others) > MAX_SWEEP_CORNERS:
+        raise StudyError(f"{where('sweep_tolerances', 'study')}: {len(others)} other toleranced "
+                         f"parameters give {2 ** len(others)} corners per sweep point (at most "
+                         f"{2 ** MAX_SWEEP_CORNERS}); use \"nominal\"")
     out = data.get("output", {})
     _keys(out, OUTPUT_KEYS, "output", where)
     out_dir = output_dir or os.path.join(base, str(out.get("dir", DEFAULT_OUTPUT_DIR)))
@@ -215,7 +233,8 @@ def load_study(path: str | os.PathLike[str], *, output_dir: str | None = None,
         draws=int(n_draws), seed=None if the_seed is None else int(the_seed), sweep=sweep,
         jobs=jobs, scheduler=st.get("scheduler"),
         connect_timeout_s=float(st.get("connect_timeout_s", 10.0)),
-        builds_per_task=per_task, plots=bool(out.get("plots", True)),
+        builds_per_task=per_task, sweep_tolerances=sweep_tol,
+        plots=bool(out.get("plots", True)),
         input_files=files, warnings=notes,
     )
 
@@ -310,11 +329,21 @@ def plan_builds(study: Study) -> tuple[list[B.Build], list[str]]:
         for values in B.random_values(params, study.draws, study.seed or 0):
             out.append(B.Build(len(out), "draw", values))
     else:
+        corners = study.sweep_tolerances == "corners" and B.toleranced(stepped)
         for k, point in enumerate(B.sweep_points(study.sweep)):
             values = dict(B.nominal_values(params), **point)
-            out.append(B.Build(len(out), "sweep", values,
-                               " ".join(f"{n}={v:.6g}" for n, v in point.items()), point=k))
-        if B.toleranced(stepped):
+            label = " ".join(f"{n}={v:.6g}" for n, v in point.items())
+            out.append(B.Build(len(out), "sweep", values, label, point=k))
+            if corners:
+                for corner, cv in B.all_corners(stepped):
+                    out.append(B.Build(len(out), "sweep-corner", dict(cv, **point),
+                                       f"{label} {corner}", point=k))
+        if corners:
+            n = len(B.toleranced(stepped))
+            notes.append(f"sweep: at every point the {2 ** n} corners of the other {n} "
+                         "toleranced parameters run too; a point meets the limits only when "
+                         "its nominal and every corner do")
+        elif B.toleranced(stepped):
             notes.append("sweep: the other parameters are at their nominal values at every "
                          "point (their tolerances enter the sensitivities only)")
     return out, notes

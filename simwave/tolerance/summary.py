@@ -16,7 +16,11 @@ layout (schema 1)::
     model[ row ], metrics[ row ],
     transfer_sensitivity[ {parameter, f_hz, magnitude, phase_deg} ],
     worst_build{build, role, detail, values, why, input} | null,
-    sweep{parameters, points[...], meeting[point indices], best, statement} | null,
+    sweep{parameters, points[ {point, build, values, status, reason, corners,
+                               corners_meeting, corner_problems, meets_all_limits,
+                               tightest{input, channel, metric, value, margin,
+                                        relative_margin[, build, corner]}} ],
+          meeting[point indices], best, statement} | null,
     notes[...]
 
     row = {input, channel, metric, nominal, min, max, mean, std, p5, p50, p95,
@@ -185,7 +189,8 @@ def summarize(study: Any, builds: list[B.Build], results: dict[int, dict],
         "metrics": metrics,
         "transfer_sensitivity": _transfer(study),
         "worst_build": worst_build(study, analysis, results, metrics),
-        "sweep": design_search(study, analysis, results, labels) if study.sweep else None,
+        "sweep": design_search(study, analysis, results, labels, builds)
+        if study.sweep else None,
         "notes": list(notes),
     }
     return doc
@@ -304,15 +309,35 @@ def worst_build(study: Any, analysis: list, results: dict, metrics: list[dict]) 
     return {"build": b.index, "role": b.role, "detail": b.detail, "values": b.values, **info}
 
 
-def design_search(study: Any, analysis: list, results: dict, labels: list[str]) -> dict:
-    """Sweep points that meet every limit on every input, with their tightest margin."""
+def design_search(study: Any, analysis: list, results: dict, labels: list[str],
+                  all_builds: list | None = None) -> dict:
+    """Sweep points that meet every limit on every input (and, when the study runs them,
+    at every corner of the other parameters' tolerances), with their tightest margin."""
+    all_builds = all_builds or []
     points = []
     for b in analysis:
         r = results.get(b.index)
         ok, w = meets_all(study, r, labels) if study.limits else (None, None)
+        corners = [c for c in all_builds if c.role == "sweep-corner" and c.point == b.point]
+        met = 0
+        for c in corners:
+            c_ok, c_w = meets_all(study, results.get(c.index), labels) if study.limits \
+                else (None, None)
+            met += bool(c_ok)
+            if study.limits:
+                ok = ok and c_ok
+                if c_w is not None and (w is None or (
+                        w.get("relative_margin") is not None and (
+                        c_w.get("relative_margin") is None
+                        or c_w["relative_margin"] < w["relative_margin"]))):
+                    w = dict(c_w, build=c.index, corner=c.detail)
+        bad = [results.get(c.index) or {} for c in corners
+               if (results.get(c.index) or {}).get("status") != "ok"]
         points.append({"point": b.point, "build": b.index,
                        "values": {n: b.values[n] for n in study.sweep},
                        "status": (r or {}).get("status"), "reason": (r or {}).get("reason"),
+                       "corners": len(corners), "corners_meeting": met if study.limits else None,
+                       "corner_problems": len(bad),
                        "meets_all_limits": ok, "tightest": w})
     if not study.limits:
         return {"parameters": list(study.sweep), "points": points, "meeting": None,
@@ -323,13 +348,16 @@ def design_search(study: Any, analysis: list, results: dict, labels: list[str]) 
                    if p["tightest"] else math.inf)
         vals = ", ".join(f"{n} = {v:.6g}" for n, v in best["values"].items())
         w = best["tightest"]
+        where = " at every corner" if any(p["corners"] for p in points) else ""
         statement = (f"{len(meeting)} of {len(points)} points meet every limit on every "
-                     f"input; the widest margin is at {vals} (tightest: {w['metric']} on "
+                     f"input{where}; the widest margin is at {vals} (tightest: {w['metric']} on "
                      f"{w['input']}, margin {w['margin']:.6g}, {w['relative_margin'] * 100:.3g} % "
                      "of the limit)") if w else f"{len(meeting)} of {len(points)} points meet"
     else:
         best = None
-        statement = (f"none of the {len(points)} points meets every limit on every input")
+        where = " at every corner" if any(p["corners"] for p in points) else ""
+        statement = (f"none of the {len(points)} points meets every limit on every "
+                     f"input{where}")
     return {"parameters": list(study.sweep), "points": points,
             "meeting": [p["point"] for p in meeting], "best": best, "statement": statement}
 
