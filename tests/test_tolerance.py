@@ -460,3 +460,52 @@ def test_example_study_runs_as_written(tmp_path):
     doc = json.loads((tmp_path / "sweep" / "tolerance-summary.json").read_text())
     assert [p["values"]["C2"] for p in doc["sweep"]["points"]] == [6.8e-9, 8.2e-9, 10e-9,
                                                                    12e-9, 15e-9]
+
+
+# ----------------------------------------------------------------------------- many parts
+def test_beyond_ten_parts_the_corners_the_sensitivities_point_to(tmp_path):
+    # tau = (R1 + ... + R11) C: increasing in every part, so the pointed corners are all
+    # parts high and all parts low, and they give the exact extremes of tau (the sum of
+    # the upper limits times C's upper limit, and the same for the lower ones).
+    names = [f"R{i}" for i in range(1, 12)]
+    params = "\n".join(f'{n} = "{i + 1}k ±1%"' for i, n in enumerate(names))
+    text = f"""
+[study]
+analysis = "corners"
+[system]
+expression = "1/(({' + '.join(names)})*C*s + 1)"
+[system.parameters]
+{params}
+C = "10n ±2%"
+[output]
+plots = false
+[[inputs]]
+signal = "step:rate=20k,duration=30m,time=1m"
+name = "step"
+"""
+    result = run_study(load_study(_write(tmp_path, text)), engine=InlineEngine())
+    corners = [b for b in result.builds if b.role == "corner"]
+    assert {b.detail for b in corners} >= {" ".join(f"{n}+" for n in names + ["C"]),
+                                           " ".join(f"{n}-" for n in names + ["C"])}
+    assert any("sensitivity steps point to" in n for n in result.summary["notes"])
+    tau = next(r for r in result.summary["model"] if r["metric"] == "time_constant_s_slowest")
+    total = sum(range(1, 12)) * 1e3
+    assert tau["max"] == pytest.approx(total * 1.01 * 10e-9 * 1.02, rel=1e-14)
+    assert tau["min"] == pytest.approx(total * 0.99 * 10e-9 * 0.98, rel=1e-14)
+
+
+def test_two_parameter_sweep_grid(tmp_path):
+    text = RC_STUDY.format(analysis="sweep", draws=1, plots="true") + """
+[sweep]
+R = ["5k", "10k"]
+C = { from = "50n", to = "150n", points = 3 }
+"""
+    result = run_study(load_study(_write(tmp_path, text)), engine=InlineEngine())
+    pts = [p["values"] for p in result.summary["sweep"]["points"]]
+    assert pts == [{"R": r, "C": c} for r in (5e3, 10e3) for c in (50e-9, 100e-9, 150e-9)]
+    for p, b in zip(result.summary["sweep"]["points"],
+                    [b for b in result.builds if b.role == "sweep"], strict=True):
+        fig = result.results[b.index]["model"]
+        assert fig["time_constant_s_slowest"] == pytest.approx(
+            p["values"]["R"] * p["values"]["C"], rel=4e-16)
+    assert os.path.getsize(result.files["sweep plot"]) > 0
