@@ -8,19 +8,40 @@ read, write, blocks, info, open_writer   waveform files (WAV/audio, CSV, HDF5), 
 generate    test signals
 simulate    run a waveform through H(s): the main job
 measure     transient and steady-state metrics of a waveform
+
+The names are imported on first use (:mod:`simwave.lazy`), so ``import simwave``
+does not load numpy and scipy until they are needed.
 """
 
-__version__ = "0.1.0"
+from __future__ import annotations
 
-from simwave.errors import SimwaveError  # noqa: E402
-from simwave.model.system import System  # noqa: E402
-from simwave.signals.waveform import Waveform  # noqa: E402
-from simwave.signals import blocks, generate, info, open_writer, read, write  # noqa: E402
-from simwave.measure import key_metrics, measure  # noqa: E402
-from simwave.run import simulate  # noqa: E402
+from typing import TYPE_CHECKING
+
+from simwave.lazy import lazy_exports
+
+__version__ = "0.1.0"
 
 __all__ = [
     "System", "Waveform", "SimwaveError", "__version__",
     "read", "write", "blocks", "info", "open_writer", "generate",
     "simulate", "measure", "key_metrics",
 ]
+
+lazy_exports(__name__, {
+    "SimwaveError": "simwave.errors",
+    "System": "simwave.model.system",
+    "Waveform": "simwave.signals.waveform",
+    **dict.fromkeys(("read", "write", "blocks", "info", "open_writer", "generate"),
+                    "simwave.signals"),
+    "measure": "simwave.measure",
+    "key_metrics": "simwave.measure",
+    "simulate": "simwave.run",
+})
+
+if TYPE_CHECKING:  # for type checkers and editors; nothing is imported at run time
+    from simwave.errors import SimwaveError
+    from simwave.measure import key_metrics, measure
+    from simwave.model.system import System
+    from simwave.run import simulate
+    from simwave.signals import blocks, generate, info, open_writer, read, write
+    from simwave.signals.waveform import Waveform

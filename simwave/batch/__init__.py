@@ -13,14 +13,20 @@ Typical use::
     print(result.counts, result.summary_csv)
 """
 
-from simwave.batch.plan import (
-    BatchPlan, InputEntry, Pair, SystemEntry, load_description, quick_plan,
-)
-from simwave.batch.runner import BatchResult, run_batch
-from simwave.batch.summary import columns, format_comparison
-from simwave.batch.tasks import PairTask, run_pair
+from simwave.lazy import lazy_exports
 
 __all__ = [
     "BatchPlan", "BatchResult", "InputEntry", "Pair", "PairTask", "SystemEntry",
     "columns", "format_comparison", "load_description", "quick_plan", "run_batch", "run_pair",
 ]
+
+lazy_exports(__name__, {
+    **dict.fromkeys(("BatchPlan", "InputEntry", "Pair", "SystemEntry", "load_description",
+                     "quick_plan"), "simwave.batch.plan"),
+    "BatchResult": "simwave.batch.runner",
+    "run_batch": "simwave.batch.runner",
+    "columns": "simwave.batch.summary",
+    "format_comparison": "simwave.batch.summary",
+    "PairTask": "simwave.batch.tasks",
+    "run_pair": "simwave.batch.tasks",
+})

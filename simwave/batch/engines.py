@@ -22,6 +22,7 @@ from typing import Any, Iterable, Iterator
 
 from simwave.batch.tasks import PairTask, WorkerStop, run_task, worker_init
 from simwave.errors import BatchError
+from simwave.threads import THREAD_VARIABLES, limit_blas_threads
 
 #: A pair whose worker died this many times is recorded as failed (not retried again).
 MAX_CRASHES = 2
@@ -71,26 +72,21 @@ class InlineEngine:
         pass
 
 
-#: Environment variables that set the thread count of the BLAS/OpenMP libraries.
-THREAD_VARIABLES = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
-                    "BLIS_NUM_THREADS", "VECLIB_MAXIMUM_THREADS", "NUMEXPR_NUM_THREADS")
-
-
 @contextlib.contextmanager
 def worker_thread_limits(jobs: int) -> Iterator[None]:
-    """Environment for starting pool workers: BLAS threads = cores // jobs (at least 1).
+    """Environment for starting pool workers: one BLAS thread each.
 
-    N worker processes that each start one BLAS thread per core oversubscribe the
-    machine (OpenBLAS threads also spin after each call); on two cores this halved
-    the speed of a two-worker pool. Dask's nanny sets the same variables to 1 for its
-    workers. Variables the user has set are left alone. The values are read when a
-    worker (or the forkserver they fork from) loads numpy, so this wraps their start.
+    simwave's linear algebra is small (see :mod:`simwave.threads`): a BLAS pool
+    only costs time to wake, and N workers each starting one BLAS thread per core
+    oversubscribe the machine (OpenBLAS threads also spin after each call; on two
+    cores that halved the speed of a two-worker pool). Dask's nanny sets the same
+    variables to 1 for its workers. Variables the user has set are left alone. The
+    values are read when a worker (or the forkserver they fork from) loads numpy,
+    so this wraps their start. ``jobs`` is kept for callers; the count no longer
+    depends on it.
     """
-    per_worker = str(max(1, default_jobs() // max(1, jobs)))
     saved = {k: os.environ.get(k) for k in THREAD_VARIABLES}
-    for k in THREAD_VARIABLES:
-        if saved[k] is None:
-            os.environ[k] = per_worker
+    limit_blas_threads(1)
     try:
         yield
     finally:

@@ -1,19 +1,17 @@
 """Command-line interface: thin click commands over the public API.
 
-Each command lives in its own ``cmd_*.py`` module and registers itself on
-:data:`main` when imported below.
+Each command lives in its own ``cmd_*.py`` module, registered on :data:`main`
+when the group first needs it (see ``COMMANDS`` in :mod:`simwave.cli.app`).
+
+Importing this package means running the command line: it asks for one BLAS
+thread (unless the user set a count) before anything loads numpy, because
+simwave's linear algebra is small (see :mod:`simwave.threads`).
 """
 
-from simwave.cli.app import main
+from simwave.threads import single_thread_blas
 
-# Command modules (each adds one command to ``main``): keep one import per line.
-from simwave.cli import cmd_inspect  # noqa: F401,E402
-from simwave.cli import cmd_run  # noqa: F401,E402
-from simwave.cli import cmd_gen  # noqa: F401,E402
-from simwave.cli import cmd_info  # noqa: F401,E402
-from simwave.cli import cmd_measure  # noqa: F401,E402
-from simwave.cli import cmd_demo  # noqa: F401,E402
-from simwave.cli import cmd_batch  # noqa: F401,E402
-from simwave.cli import cmd_tolerance  # noqa: F401,E402
+single_thread_blas()
+
+from simwave.cli.app import main  # noqa: E402
 
 __all__ = ["main"]

@@ -1,7 +1,14 @@
-"""The ``simwave`` command group and the one place user errors become exit code 2."""
+"""The ``simwave`` command group and the one place user errors become exit code 2.
+
+The group loads each command's module only when that command runs or shows its
+own help: ``simwave --help`` needs only the one-paragraph summaries below, so it
+starts without numpy or scipy. ``tests/test_cli_startup.py`` checks that every
+summary here is the first paragraph of its command's docstring.
+"""
 
 from __future__ import annotations
 
+import importlib
 import sys
 
 import click
@@ -12,9 +19,55 @@ from simwave.errors import SimwaveError
 #: Exit code for bad input (same as click's usage errors).
 EXIT_BAD_INPUT = 2
 
+#: Command name -> (module that registers it on :data:`main`, first paragraph of its help).
+COMMANDS: dict[str, tuple[str, str]] = {
+    "batch": ("simwave.cli.cmd_batch",
+              "Run every input through every candidate system; write outputs, metrics and a "
+              "summary."),
+    "demo": ("simwave.cli.cmd_demo",
+             "Build a worked example end to end in DIR (default ./simwave-demo)."),
+    "gen": ("simwave.cli.cmd_gen",
+            "Write a generated test signal: KIND with --rate, --duration and -p NAME=VALUE, or "
+            "one signal text such as pulse:rate=10k,duration=0.5,width=1m,delay=10m."),
+    "info": ("simwave.cli.cmd_info",
+             "Describe FILE (audio, CSV or HDF5, or a signal text): rate, duration, channels "
+             "with names and units, sample format, and min, max, mean and RMS per channel."),
+    "inspect": ("simwave.cli.cmd_inspect",
+                "Show what a system H(s) is: poles, zeros, gains, stability, modes, bandwidth."),
+    "measure": ("simwave.cli.cmd_measure",
+                "Measure FILE: transitions (rise/fall time, overshoot, undershoot, preshoot, "
+                "peak, settling; per pulse for pulse trains), steady state (final value, gain, "
+                "error, mean, RMS, ripple), sine and multi-tone gain and phase, THD and SINAD; "
+                "and, with a system, what H(s) predicts beside each."),
+    "run": ("simwave.cli.cmd_run", "Run INPUT through the system and write the output."),
+    "tolerance": ("simwave.cli.cmd_tolerance",
+                  "Run a tolerance study: every build of a toleranced design on your inputs."),
+}
 
 class SimwaveGroup(click.Group):
-    """A click group that prints a SimwaveError as one line and exits with code 2."""
+    """A click group that imports its commands lazily and prints a SimwaveError as one
+    line with exit code 2."""
+
+    def list_commands(self, ctx: click.Context) -> list[str]:
+        return sorted(set(COMMANDS) | set(self.commands))
+
+    def get_command(self, ctx: click.Context, cmd_name: str) -> click.Command | None:
+        if cmd_name not in self.commands and cmd_name in COMMANDS:
+            importlib.import_module(COMMANDS[cmd_name][0])  # registers itself on main
+        return self.commands.get(cmd_name)
+
+    def format_commands(self, ctx: click.Context, formatter: click.HelpFormatter) -> None:
+        # The group's help lists the summaries without importing any command module:
+        # stand-in commands carry the same first paragraph, so click shortens it the same way.
+        stand_ins = {
+            name: self.commands.get(name) or click.Command(name, help=COMMANDS[name][1])
+            for name in self.list_commands(ctx)
+        }
+        saved, self.commands = self.commands, stand_ins
+        try:
+            super().format_commands(ctx, formatter)
+        finally:
+            self.commands = saved
 
     def invoke(self, ctx: click.Context):
         try:

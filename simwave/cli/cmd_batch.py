@@ -8,12 +8,10 @@ import warnings
 
 import click
 
-from simwave.batch import format_comparison, load_description, quick_plan, run_batch
 from simwave.batch.plan import DEFAULT_NAME
 from simwave.batch.progress import BatchProgress
 from simwave.cli.app import main
 from simwave.cli.input_options import input_options, read_options
-from simwave.cli.system_input import parse_number
 from simwave.discrete import METHODS
 from simwave.errors import BatchError
 
@@ -64,6 +62,9 @@ def batch_command(items, systems, output_dir, jobs, scheduler, connect_timeout, 
     summary), 2 for bad input (nothing written), 130 when interrupted (finished
     outputs stay; run the same command again to resume).
     """
+    from simwave.batch import format_comparison, load_description, quick_plan, run_batch
+    from simwave.model.parse import parse_number
+
     reader = read_options(kwargs)
     timeout = None
     if connect_timeout is not None:

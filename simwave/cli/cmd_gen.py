@@ -8,10 +8,6 @@ import click
 
 from simwave.cli.app import main
 from simwave.errors import WaveformError
-from simwave.signals.formats import resolve_format
-from simwave.signals.generate import KINDS, coerce_params, generate_blocks, kind_name
-from simwave.signals.io import open_writer
-from simwave.signals.spec import is_signal_spec, parse_signal_spec
 
 AUDIO_CAUTION = (
     "Caution: a generated signal near full scale can be very loud and can damage hearing "
@@ -21,6 +17,8 @@ BLOCK = 1 << 16
 
 
 def _kinds_text() -> str:
+    from simwave.signals.generate import KINDS
+
     lines = []
     for kind, (desc, params) in KINDS.items():
         lines.append(f"{kind}: {desc}")
@@ -60,6 +58,11 @@ def gen(kind, output, rate, duration, params, fmt, subtype, on_clip, full_scale,
     Values take engineering suffixes (1k, 10m, 4.7u, 25%). The signal is
     written block by block, so any duration fits in memory.
     """
+    from simwave.signals.formats import resolve_format
+    from simwave.signals.generate import coerce_params, generate_blocks, kind_name
+    from simwave.signals.io import open_writer
+    from simwave.signals.spec import is_signal_spec, parse_signal_spec
+
     if list_kinds:
         click.echo(_kinds_text())
         return

@@ -9,8 +9,6 @@ import click
 
 from simwave.cli.app import main
 from simwave.cli.input_options import input_options, read_options
-from simwave.signals.common import dumps
-from simwave.signals.io import info as file_info
 
 
 def format_info(d: dict) -> str:
@@ -43,6 +41,8 @@ def format_info(d: dict) -> str:
         for i, (key, value) in enumerate(metadata.items()):
             lines.append(f"{'metadata' if i == 0 else '':<10} {key}: {value}".rstrip())
     if attrs:
+        from simwave.signals.common import dumps
+
         text = dumps(attrs)
         lines.append(f"attrs      {text if len(text) <= 200 else text[:197] + '...'}")
     for note in d.get("notes") or []:
@@ -61,6 +61,8 @@ def info(file, no_stats, as_json, **kwargs):
 
     The statistics come from one streaming pass, so any file size works.
     """
+    from simwave.signals.io import info as file_info
+
     opts = read_options(kwargs)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")

@@ -12,23 +12,18 @@ import json
 import math
 import warnings
 from collections.abc import Callable, Sequence
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import click
-import numpy as np
 
 from simwave import __version__
 from simwave.cli.app import main
-from simwave.cli.system_input import (
-    parse_number,
-    parse_number_list,
-    resolve_system,
-    system_options,
-)
+from simwave.cli.system_input import parse_number_list, resolve_system, system_options
 from simwave.cli.model_options import method_options, model_kwargs
-from simwave.discrete.accuracy import discrete_section, format_discrete_section
 from simwave.errors import SimwaveError
-from simwave.model.system import System
+
+if TYPE_CHECKING:  # numpy and scipy load only when a command runs
+    from simwave.model.system import System
 
 #: Significant digits in the text table (--json gives exact values).
 DIGITS = 4
@@ -37,6 +32,8 @@ DIGITS = 4
 # ----------------------------------------------------------------------------- report
 def frequency_points(system: System, f_hz: Sequence[float]) -> list[dict[str, float]]:
     """Magnitude (linear and dB) and phase (degrees, wrapped to (-180, 180]) at ``f_hz``."""
+    import numpy as np
+
     f = np.asarray(f_hz, dtype=np.float64)
     h = system.frequency_response(f)
     out = []
@@ -243,10 +240,16 @@ def format_frequency_response(points: list[dict[str, Any]]) -> list[str]:
 
 
 #: (report key, formatter) in print order; append to add a section.
+def _format_discrete(d: dict[str, Any]) -> list[str]:
+    from simwave.discrete.accuracy import format_discrete_section
+
+    return format_discrete_section(d)
+
+
 SECTION_FORMATTERS: list[tuple[str, Callable[[Any], list[str]]]] = [
     ("system", format_system),
     ("frequency_response", format_frequency_response),
-    ("discrete", format_discrete_section),
+    ("discrete", _format_discrete),
 ]
 
 
@@ -285,6 +288,9 @@ def inspect_command(system_spec, at_hz: str | None, rate: str | None, method: st
     Zeros and poles are in rad/s, frequencies in Hz, times in seconds. With
     --rate, also the discrete model's accuracy at that rate.
     """
+    from simwave.discrete.accuracy import discrete_section
+    from simwave.model.parse import parse_number
+
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         system = resolve_system(system_spec)
@@ -325,6 +331,7 @@ def inspect_command(system_spec, at_hz: str | None, rate: str | None, method: st
 def _plot(system: System, path: str, rate: str | None, method: str | None,
           prewarp: str | None, match_frequency: str | None) -> None:
     """``--plot``: the frequency plot, with the same discrete model as the report."""
+    from simwave.model.parse import parse_number
     from simwave.plots import plot_frequency
 
     opts = model_kwargs(prewarp, match_frequency)

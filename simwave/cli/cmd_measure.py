@@ -10,12 +10,11 @@ from simwave.cli.app import main
 from simwave.cli.input_options import input_options, read_options
 from simwave.cli.system_input import resolve_system, system_options
 from simwave.errors import MeasurementError
-from simwave.measure import measure
-from simwave.measure.core import SIGNAL_KINDS
-from simwave.model.parse import parse_number
+from simwave.measure.kinds import SIGNAL_KINDS
 
 
 def _numbers(text: str, what: str) -> list[float]:
+    from simwave.model.parse import parse_number
     parts = [p.strip() for p in text.split(",")]
     if not parts or any(p == "" for p in parts):
         raise MeasurementError(f"{what}: write numbers separated by commas, got {text!r}")
@@ -96,6 +95,8 @@ def measure_cmd(file, system_spec, reference_file, input_channel, reference_data
     a design aid: for medical, protection or other safety-related signal chains follow
     the applicable standards and licensed engineering practice.
     """
+    from simwave.measure import measure
+    from simwave.model.parse import parse_number
     ropts = read_options(kwargs)
     system = resolve_system(system_spec, required=False)
     opts = {

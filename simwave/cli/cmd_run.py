@@ -13,8 +13,7 @@ import click
 from simwave.cli.app import main
 from simwave.cli.input_options import input_options, read_options
 from simwave.cli.model_options import method_options, model_kwargs
-from simwave.cli.system_input import parse_number, parse_number_list, resolve_system, system_options
-from simwave.run import RunJob, execute
+from simwave.cli.system_input import parse_number_list, resolve_system, system_options
 
 AUDIO_CAUTION = "Caution: audio output can be loud ({level}); start playback at low volume."
 
@@ -181,6 +180,8 @@ def run_command(source, system_spec, output, method, prewarp, match_frequency, i
     INPUT is a waveform file (WAV, FLAC, CSV, HDF5, ...) or a generated
     signal, e.g. 'step:rate=10k,duration=50m,time=5m'.
     """
+    from simwave.model.parse import parse_number
+    from simwave.run import RunJob, execute
     from simwave.signals.atomic import guard_outputs
 
     # Every path this command writes, checked together before any work: none is an

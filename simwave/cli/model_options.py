@@ -8,7 +8,6 @@ from typing import Any
 import click
 
 from simwave.discrete import METHODS
-from simwave.model.parse import parse_number
 
 
 def method_options(default: str | None = "ramp-invariant", when: str = "") -> Callable:
@@ -43,6 +42,8 @@ def method_options(default: str | None = "ramp-invariant", when: str = "") -> Ca
 
 def model_kwargs(prewarp: str | None, match_frequency: str | None) -> dict[str, Any]:
     """``prewarp_hz`` / ``match_hz`` keyword arguments for discretize() (the given ones only)."""
+    from simwave.model.parse import parse_number
+
     kwargs: dict[str, Any] = {}
     if prewarp is not None:
         kwargs["prewarp_hz"] = parse_number(prewarp, "--prewarp")

@@ -37,16 +37,23 @@ import math
 import os
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, fields
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import click
 
 from simwave.errors import InvalidSystemError, ParseError, SimwaveError
 from simwave.tomlfile import read_toml
-from simwave.model.designs import design
 from simwave.model.params import parse_assignment
-from simwave.model.parse import parse_complex, parse_number
-from simwave.model.system import System
+
+if TYPE_CHECKING:  # numpy and scipy load only when a system is built
+    from simwave.model.system import System
+
+
+def parse_number(text: Any, what: str) -> float:
+    """:func:`simwave.model.parse.parse_number`, imported on first use (keeps ``--help`` light)."""
+    from simwave.model.parse import parse_number as parse
+
+    return parse(text, what)
 
 
 #: The forms a system table may take (exactly one per table).
@@ -166,6 +173,8 @@ def parse_number_list(text: str, what: str) -> list[float]:
 
 def parse_complex_list(text: str, what: str) -> list[complex]:
     """Comma-separated real or complex numbers such as ``-1+2j``; suffixes allowed."""
+    from simwave.model.parse import parse_complex
+
     return [parse_complex(item, f"{what}, item {i + 1}") for i, item in enumerate(_items(text))]
 
 
@@ -182,6 +191,7 @@ def parse_design_text(text: str) -> System:
     the family needs them, ``ripple=DB`` and ``attenuation=DB``. Values may carry
     engineering suffixes and a trailing unit (``1kHz``, ``0.5dB``).
     """
+    from simwave.model.designs import design
     words: list[str] = []
     values: dict[str, str] = {}
     for part in text.split():
@@ -235,6 +245,8 @@ def resolve_system(spec: SystemSpec, *, required: bool = True) -> System | None:
     SimwaveError
         No form or more than one form given, or a form that does not read.
     """
+    from simwave.model.system import System
+
     forms = {
         "-s/--system": spec.system is not None,
         "--numerator/--denominator": spec.numerator is not None or spec.denominator is not None,
@@ -314,6 +326,7 @@ def load_system_file(path: str | os.PathLike[str],
     SimwaveError
         Missing or unreadable file, invalid TOML, unknown keys, not exactly one form.
     """
+
     p = os.fspath(path)
     data, _ = read_toml(p, "system file", InvalidSystemError)
     system = system_from_mapping(data, where=p, settings=settings)
@@ -341,6 +354,8 @@ def _number(value: Any, what: str) -> float:
 
 
 def _complex(value: Any, what: str) -> complex:
+    from simwave.model.parse import parse_complex
+
     if isinstance(value, str):
         return parse_complex(value, what)
     if isinstance(value, list) and len(value) == 2:
@@ -393,6 +408,7 @@ def system_from_mapping(data: Mapping[str, Any], where: str = "system table",
     SimwaveError
         The message starts with ``where`` and names the key at fault.
     """
+
     if not isinstance(data, Mapping):
         raise InvalidSystemError(f"{where}: a system must be a table, got {data!r}")
     for key in data:
@@ -450,6 +466,9 @@ def merged_parameters(table: Any, settings: Mapping[str, Any] | None = None
 
 
 def _build_form(value: Any, form: str, parameters: Mapping[str, Any] | None = None) -> System:
+    from simwave.model.designs import design
+    from simwave.model.system import System
+
     if form == "expression":
         if not isinstance(value, str):
             raise InvalidSystemError(f"must be text, got {value!r}")

@@ -6,8 +6,8 @@ accuracy report). Methods: see :data:`METHODS`; the default is
 ``ramp-invariant`` (exact for inputs linear between samples).
 """
 
-from simwave.discrete.filter import INITIAL_MODES, DiscreteSystem, FilterState
-from simwave.discrete.methods import DEFAULT_METHOD, METHODS, ModelWarning, discretize
+from simwave.discrete.names import DEFAULT_METHOD, METHODS
+from simwave.lazy import lazy_exports
 
 __all__ = [
     "discretize",
@@ -21,9 +21,9 @@ __all__ = [
 ]
 
 
-def __getattr__(name: str):
-    if name == "AccuracyReport":
-        from simwave.discrete.accuracy import AccuracyReport
-
-        return AccuracyReport
-    raise AttributeError(name)
+lazy_exports(__name__, {
+    **dict.fromkeys(("INITIAL_MODES", "DiscreteSystem", "FilterState"), "simwave.discrete.filter"),
+    "ModelWarning": "simwave.discrete.methods",
+    "discretize": "simwave.discrete.methods",
+    "AccuracyReport": "simwave.discrete.accuracy",
+})

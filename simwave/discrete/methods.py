@@ -47,6 +47,7 @@ from typing import Any
 import numpy as np
 
 from simwave.errors import DiscretizationError
+from simwave.discrete.names import DEFAULT_METHOD, METHODS  # noqa: F401 - re-exported
 from simwave.discrete.realization import (
     analog_state_space,
     expm,
@@ -55,18 +56,6 @@ from simwave.discrete.realization import (
     pencil_zeros,
     tidy_roots,
 )
-
-#: The method names, in the order the help lists them.
-METHODS: tuple[str, ...] = (
-    "bilinear",
-    "impulse-invariant",
-    "step-invariant",
-    "ramp-invariant",
-    "matched-z",
-)
-
-#: The method used when none is named.
-DEFAULT_METHOD = "ramp-invariant"
 
 #: Methods whose fractional dead time is exact (modified z-transform).
 EXACT_FRACTION_METHODS = ("step-invariant", "ramp-invariant")

@@ -61,7 +61,13 @@ the output's own state intervals and replaced by them where it is fooled. See
 :mod:`simwave.measure.segments`.
 """
 
-from simwave.measure.core import MeasureOptions, measure
-from simwave.measure.result import MeasurementResult, key_metrics
+from simwave.lazy import lazy_exports
 
 __all__ = ["measure", "MeasurementResult", "MeasureOptions", "key_metrics"]
+
+lazy_exports(__name__, {
+    "measure": "simwave.measure.core",
+    "MeasureOptions": "simwave.measure.core",
+    "MeasurementResult": "simwave.measure.result",
+    "key_metrics": "simwave.measure.result",
+})

@@ -41,7 +41,7 @@ from simwave.measure.transient import (
     summarize,
 )
 
-SIGNAL_KINDS = ("auto", "transitions", "sine", "multitone", "ramp", "other")
+from simwave.measure.kinds import SIGNAL_KINDS  # noqa: E402 - re-exported
 
 #: A waveform counts as two-state when at least this fraction of its samples lies
 #: within 10 % of the amplitude of one of its state levels (our choice; a sine has

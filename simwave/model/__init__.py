@@ -1,5 +1,7 @@
 """The continuous-time system model H(s)."""
 
-from simwave.model.system import System
+from simwave.lazy import lazy_exports
 
 __all__ = ["System"]
+
+lazy_exports(__name__, {"System": "simwave.model.system"})
