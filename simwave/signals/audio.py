@@ -160,6 +160,23 @@ def default_subtype(audio_format: str) -> str:
     return sf.default_subtype(audio_format)
 
 
+def _abs_peak(x: np.ndarray) -> tuple[int, float]:
+    """(flat index, value) of the first largest |x|, as ``argmax(abs(x))`` finds it, without
+    the temporary array: the larger of max(x) and -min(x), the earlier index on a tie.
+    NaN anywhere gives a NaN peak (argmax and argmin stop at the first NaN)."""
+    flat_x = x.reshape(-1)
+    i_hi, i_lo = int(np.argmax(flat_x)), int(np.argmin(flat_x))
+    hi, lo = float(flat_x[i_hi]), -float(flat_x[i_lo])
+    if math.isnan(hi) or math.isnan(lo):
+        i = i_hi if math.isnan(hi) else i_lo
+        return i, math.nan
+    if hi > lo:
+        return i_hi, hi
+    if lo > hi:
+        return i_lo, lo
+    return min(i_hi, i_lo), hi
+
+
 class AudioSink:
     """Writes audio to an already-chosen (temporary) file name.
 
@@ -216,6 +233,7 @@ class AudioSink:
         fs = 1.0 if full_scale is None else full_scale
         self.scale = per_channel(fs, n, "full_scale", self.where)
         self.offset = per_channel(0.0 if offset is None else offset, n, "offset", self.where)
+        self._identity = bool(np.all(self.scale == 1.0) and np.all(self.offset == 0.0))
         self.channels, self.units, self.t0, self.attrs = channels, units, t0, attrs
         self.calibrated = full_scale is not None or offset is not None
         self.peak = 0.0
@@ -264,17 +282,18 @@ class AudioSink:
                 pass  # container without string chunks (e.g. OGG): names and units not kept
 
     def write(self, block: np.ndarray) -> None:
-        x = (block - self.offset) / self.scale
+        if self._identity:  # full scale 1, offset 0: (x - 0) / 1 is x, bit for bit
+            x = np.asarray(block, dtype=np.float64)
+        else:
+            x = (block - self.offset) / self.scale
         if x.shape[0] == 0:
             return
-        a = np.abs(x)
-        flat = int(np.argmax(a))
-        peak = float(a.flat[flat])
+        flat, peak = _abs_peak(x)
         if peak > self.peak or not math.isfinite(peak):
             self.peak = peak
             self.peak_at = divmod(flat, x.shape[1])
             self.peak_at = (self.peak_at[0] + self.count, self.peak_at[1])
-        if not np.isfinite(x).all():
+        if not math.isfinite(peak):  # NaN wins argmax/argmin, inf is the largest
             i, c = np.argwhere(~np.isfinite(x))[0]
             raise WaveformError(f"{self.where}: sample {self.count + i}, channel "
                                 f"{self.channels[c]!r} is {x[i, c]}; audio cannot hold it")

@@ -277,7 +277,7 @@ def _string_array(values: list[str]) -> np.ndarray:
 
 
 class Hdf5Sink:
-    """Writes one or more resizable, chunked, compressed datasets into one file.
+    """Writes one or more resizable, chunked datasets (compressed on request) into one file.
 
     Parameters
     ----------
@@ -289,15 +289,19 @@ class Hdf5Sink:
     mode : {"create", "add"}
         "create" writes a new file. "add" copies ``original`` (the existing
         target) to ``tmp`` first and adds the datasets to the copy.
-    compression : {"gzip", "lzf", None}
-        Filter of the datasets (gzip level 4 with byte shuffle by default).
+    compression : {None, "gzip", "lzf"}
+        Filter of the datasets: none by default. Sampled float64 data is nearly
+        incompressible (noise in the low mantissa bits), so gzip (level 4 with
+        byte shuffle) made a run write-bound: 22 s of writing for a 21 s run
+        against 5.6 s uncompressed; lzf is cheaper and saves less.
+        ``benchmarks/bench_writers.py`` prints each choice's time and file size.
     dtype : str
         Sample type stored: "float64" (default, exact) or "float32".
     """
 
     def __init__(self, tmp: str, streams: dict[str, dict[str, Any]], rate: float, t0: float, *,
                  mode: str = "create", original: str | None = None,
-                 compression: str | None = "gzip", dtype: str = "float64",
+                 compression: str | None = None, dtype: str = "float64",
                  target: str | None = None) -> None:
         self.where = target or tmp
         if mode not in ("create", "add"):

@@ -469,7 +469,7 @@ class WaveformWriter:
                  format: str | None = None, *, protect: Sequence[Any] | None = None,
                  extra: Mapping[str, Any] | None = None, dataset: str | None = None,
                  mode: str = "create", subtype: str | None = None, on_clip: str = "error",
-                 full_scale: Any = None, offset: Any = None, compression: str | None = "gzip",
+                 full_scale: Any = None, offset: Any = None, compression: str | None = None,
                  dtype: str = "float64", delimiter: str = ",", time_column: bool = True,
                  peak_hint: float | None = None) -> None:
         path = os.fspath(path)
@@ -656,7 +656,9 @@ def open_writer(path: Any, rate: Any, channels: Any, units: Sequence[str] | None
             "add" keeps the datasets of an existing target: the file is copied
             beside itself, the new datasets are added to the copy, the copy
             replaces the original (atomic, at the cost of one file copy).
-        compression : {"gzip", "lzf", None}, dtype : {"float64", "float32"} (HDF5)
+        compression : {None, "gzip", "lzf"}, dtype : {"float64", "float32"} (HDF5)
+            No compression by default: sampled float data hardly compresses and
+            gzip made runs write-bound (see ``benchmarks/bench_writers.py``).
         subtype : str (audio)
             ``"FLOAT"`` (default where possible), ``"DOUBLE"``, ``"PCM_16"``,
             ``"PCM_24"``, ``"PCM_32"``, ``"PCM_U8"``, ``"ULAW"``, ``"ALAW"``, ...
