@@ -22,7 +22,8 @@ from typing import Any
 import numpy as np
 
 from simwave.errors import DiscretizationError
-from simwave.discrete.methods import METHODS, design, peak_frequency
+from simwave.discrete.methods import METHODS, _hold_design, _impulse_design, design, peak_frequency
+from simwave.discrete.realization import analog_state_space, ss_response_many
 
 __all__ = ["AccuracyReport", "accuracy_report", "DEFAULT_LIMIT_DB"]
 
@@ -243,6 +244,30 @@ def _errors(logd, angd, loga, anga, f, mask):
     return float(mag_db[im]), float(f[im]), float(ph[ip]), float(f[ip])
 
 
+#: Methods whose discrete model is a state space (Phi, Gamma, C, D) before it becomes
+#: zeros, poles and gain: the rate search evaluates that state space directly.
+_STATE_SPACE_METHODS = ("impulse-invariant", "step-invariant", "ramp-invariant")
+
+
+def _state_space_log_magnitude(system, method: str, rate: float, f: np.ndarray) -> np.ndarray:
+    """log|H_d(e^{j 2 pi f / rate})| of a hold or impulse-invariant model, from its state space.
+
+    The same transfer function :func:`design` returns as zeros, poles and gain,
+    D + C (zI - Phi)^-1 Gamma (Franklin, Powell & Workman, 3rd ed., ch. 6), without
+    the generalized-eigenvalue zeros and the gain matching that make up most of a
+    design's cost: the rate search evaluates ~60 candidate models per report.
+    """
+    A, B, C, D = analog_state_space(system.zeros, system.poles, system.gain)
+    T = 1.0 / rate
+    if method == "impulse-invariant":
+        Phi, Gam, Cd, Dd = _impulse_design(A, B, C, D, T)
+    else:
+        Phi, Gam, Cd, Dd, _ = _hold_design(A, B, C, D, T, method, 0.0)
+    h = ss_response_many(Phi, Gam, Cd, Dd, np.exp(2j * np.pi * f / rate))
+    with np.errstate(divide="ignore"):
+        return np.log(np.abs(h))
+
+
 def _method_error(system, method, rate, f, loga, anga, prewarp_hz, match_hz) -> float:
     """Largest |magnitude error| (dB) of ``method`` at ``rate`` on the points f."""
     pw = mh = None
@@ -251,11 +276,14 @@ def _method_error(system, method, rate, f, loga, anga, prewarp_hz, match_hz) -> 
     if method == "matched-z" and match_hz is not None and match_hz < rate / 2:
         mh = match_hz
     try:
-        des = design(system.zeros, system.poles, system.gain, rate, method,
-                     prewarp_hz=pw, match_hz=mh, dc_gain=system.dc_gain)
+        if method in _STATE_SPACE_METHODS:
+            logd = _state_space_log_magnitude(system, method, rate, f)
+        else:
+            des = design(system.zeros, system.poles, system.gain, rate, method,
+                         prewarp_hz=pw, match_hz=mh, dc_gain=system.dc_gain)
+            logd, _ = _digital((des.zeros, des.poles, des.gain), rate, f)
     except DiscretizationError:
         return math.inf
-    logd, _ = _digital((des.zeros, des.poles, des.gain), rate, f)
     err = np.abs(logd - loga) * 20 / math.log(10)
     err = err[np.isfinite(err)]
     return float(np.max(err)) if err.size else math.inf

@@ -345,10 +345,14 @@ class DiscreteSystem:
         f = np.atleast_1d(np.asarray(f_hz, dtype=np.float64))
         # Each section's (b0 + b1 z^-1 + b2 z^-2) / (a0 + a1 z^-1 + a2 z^-2) at z = e^{jw},
         # multiplied: what scipy.signal.sosfreqz computes, without its per-call overhead.
-        zi = np.exp(-2j * np.pi * f / self.rate)
-        powers = np.stack([np.ones_like(zi), zi, zi * zi])  # (3, n_f)
+        # Written out rather than as a matrix product: a BLAS product of this size wakes the
+        # BLAS thread pool, which cost 12-16 ms instead of 0.12 ms under load.
+        zi = np.exp(-2j * np.pi * f / self.rate)[None, :]
+        zi2 = zi * zi
         sos = self.sos
-        h = np.prod((sos[:, :3] @ powers) / (sos[:, 3:] @ powers), axis=0)
+        num = sos[:, 0:1] + sos[:, 1:2] * zi + sos[:, 2:3] * zi2
+        den = sos[:, 3:4] + sos[:, 4:5] * zi + sos[:, 5:6] * zi2
+        h = np.prod(num / den, axis=0)
         if dead_time and self.delay_line:
             h = h * np.exp(-2j * np.pi * f * self.delay_line / self.rate)
         return h.reshape(np.shape(f_hz)) if np.ndim(f_hz) else h[0]

@@ -11,6 +11,7 @@ All arrays are float64 (complex128 for roots); frequencies inside are rad/s.
 
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
@@ -167,6 +168,22 @@ def analog_state_space(zeros, poles, gain: float):
     """
     poles = np.asarray(poles, dtype=np.complex128).ravel()
     zeros = np.asarray(zeros, dtype=np.complex128).ravel()
+    return _analog_state_space_cached(zeros.tobytes(), poles.tobytes(), float(gain))
+
+
+@functools.lru_cache(maxsize=64)
+def _analog_state_space_cached(zeros_bytes: bytes, poles_bytes: bytes, gain: float):
+    # The analog model does not depend on the rate: a rate search, a batch of many
+    # files through one system, and repeated simulate() calls build it once. The
+    # arrays are shared, so they are made read-only.
+    parts = _analog_state_space(np.frombuffer(zeros_bytes, dtype=np.complex128),
+                                np.frombuffer(poles_bytes, dtype=np.complex128), gain)
+    for arr in parts:
+        arr.flags.writeable = False
+    return parts
+
+
+def _analog_state_space(zeros: np.ndarray, poles: np.ndarray, gain: float):
     if poles.size == 0:
         return np.zeros((0, 0)), np.zeros((0, 1)), np.zeros((1, 0)), np.array([[float(gain)]])
     groups = _group_sections(zeros, poles)
