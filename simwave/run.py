@@ -11,10 +11,13 @@ three stages overlapped.
 
 from __future__ import annotations
 
+import copy
 import datetime as _dt
 import os
+import threading
 import time
 import warnings
+from collections import OrderedDict
 from dataclasses import dataclass, field
 from typing import Any, Callable, Iterator, Sequence
 
@@ -299,6 +302,70 @@ def _check_finite(block: np.ndarray, start: int, rate: float, t0: float) -> None
     )
 
 
+@dataclass
+class _PreparedModel:
+    """A discrete model with what a run learns about it once: the in-band check, the
+    warnings raised while making both, and (on first need) the full accuracy report."""
+
+    model: Any
+    check: dict[str, Any]
+    warnings: list[str]
+    model_warnings: list[str]
+    _accuracy: dict[str, Any] | None = None
+    accuracy_warnings: list[str] = field(default_factory=list)
+
+    def full_accuracy(self) -> dict[str, Any]:
+        if self._accuracy is None:
+            with warnings.catch_warnings(record=True) as wlist:
+                warnings.simplefilter("always")
+                self._accuracy = self.model.accuracy(suggest=True).to_dict()
+            self.accuracy_warnings = [str(w.message) for w in wlist]
+        return copy.deepcopy(self._accuracy)
+
+
+#: Recently used discrete models, by system content and discretization options. Everything
+#: in a _PreparedModel depends only on the system, the rate, the method and its options, so
+#: a batch of many files through one system, or repeated simulate() calls, build it once.
+_PREPARED: OrderedDict[tuple, _PreparedModel] = OrderedDict()
+_PREPARED_MAX = 32
+_PREPARED_LOCK = threading.Lock()
+
+
+def _system_key(system: System) -> tuple:
+    ode = None
+    if system.ode is not None:
+        ode = tuple(np.asarray(part, dtype=np.float64).tobytes() for part in system.ode)
+    return (np.asarray(system.zeros).tobytes(), np.asarray(system.zeros).dtype.str,
+            np.asarray(system.poles).tobytes(), np.asarray(system.poles).dtype.str,
+            float(system.gain), float(system.delay_s), ode)
+
+
+def _prepared_model(system: System, rate: float, method: str, prewarp_hz, delay_s,
+                    match_hz) -> _PreparedModel:
+    """The discrete model of ``system`` for a run, made once per set of inputs (see _PREPARED).
+
+    Warnings raised while making it are recorded, not shown: the caller re-raises them
+    for every run, so a run from the cache warns exactly as the first one did.
+    """
+    key = (_system_key(system), float(rate), method, prewarp_hz, delay_s, match_hz)
+    with _PREPARED_LOCK:
+        hit = _PREPARED.get(key)
+        if hit is not None:
+            _PREPARED.move_to_end(key)
+            return hit
+    with warnings.catch_warnings(record=True) as wlist:
+        warnings.simplefilter("always")
+        model = system.discretize(rate, method, prewarp_hz=prewarp_hz, delay_s=delay_s,
+                                  match_hz=match_hz)
+        check = in_band_check(model)
+    prep = _PreparedModel(model, check, [str(w.message) for w in wlist], list(model.warnings))
+    with _PREPARED_LOCK:
+        _PREPARED[key] = prep
+        while len(_PREPARED) > _PREPARED_MAX:
+            _PREPARED.popitem(last=False)
+    return prep
+
+
 def simulate(
     system: System | str,
     source: Waveform | str | os.PathLike,
@@ -368,34 +435,25 @@ def simulate(
     if block_size < 1:
         raise SimwaveError(f"block size must be >= 1, got {block_size}")
     model_rate = src.rate * factor
-    caught: list[str] = []
-    with warnings.catch_warnings(record=True) as wlist:
-        warnings.simplefilter("always")
-        model = sys_.discretize(
-            model_rate, method, prewarp_hz=prewarp_hz, delay_s=delay_s, match_hz=match_hz
-        )
-        check = in_band_check(model)
-        # The full report (with the suggested-rate search) costs tens of milliseconds:
-        # made for file runs, whose summary prints it, and whenever the model is poor.
-        full = output is not None or check["poor"]
-        accuracy = model.accuracy(suggest=full).to_dict() if full else None
-    caught.extend(str(w.message) for w in wlist)
-    for text in model.warnings:
+    prep = _prepared_model(sys_, model_rate, method, prewarp_hz, delay_s, match_hz)
+    model, check = prep.model, copy.deepcopy(prep.check)
+    # The full report (with the suggested-rate search) costs tens of milliseconds:
+    # made for file runs, whose summary prints it, and whenever the model is poor.
+    full = output is not None or check["poor"]
+    accuracy = prep.full_accuracy() if full else None
+    caught: list[str] = list(prep.warnings) + (list(prep.accuracy_warnings) if full else [])
+    for text in prep.model_warnings:
         if text not in caught:
             caught.append(text)
     if check["poor"]:
         caught.append(_poor_model_warning(check, accuracy, factor))
     over_info = None
     if factor > 1:
-        with warnings.catch_warnings():  # the input-rate model is only compared, not run
-            warnings.simplefilter("ignore")
-            base_model = sys_.discretize(
-                src.rate, method, prewarp_hz=prewarp_hz, delay_s=delay_s, match_hz=match_hz
-            )
+        base = _prepared_model(sys_, src.rate, method, prewarp_hz, delay_s, match_hz)
         over_info = {
             "factor": factor,
             "model_rate_hz": model_rate,
-            "in_band_error_at_input_rate": in_band_check(base_model),
+            "in_band_error_at_input_rate": copy.deepcopy(base.check),
             "in_band_error_at_model_rate": check,
         }
     for text in caught:
