@@ -1,0 +1,162 @@
+"""Per-pair overhead of ``simwave batch`` over a plain read/sosfilt/write loop, side by side.
+
+Run:  python benchmarks/bench_batch_overhead.py [--files 2000] [--long-files 40]
+                                                [--baseline DIR] [--jobs 2]
+
+1. Short pairs: N WAVs of 0.05 s at 48 kHz (steps and pulses, invented) x one
+   system, every pair writing its output and its metrics JSON (``simwave batch``
+   quick form, ``--jobs 2``). Target >= 150 pairs/s on 2 cores. Printed beside it: a
+   plain loop in one process (soundfile.read, scipy.signal.sosfilt, soundfile.write
+   per file, no metrics) and the per-pair overhead of simwave over it in worker
+   time (wall x jobs / pairs minus the loop's time per pair). The measuring step
+   alone (``simwave.measure`` on one output against its input) is timed too: its
+   cost belongs to the measuring rebuild, not to the batch machinery.
+2. Long pairs: M WAVs of 10 s x 3 systems (same batch command); target >= 4x the
+   baseline's pairs/s (the issue's run: 200 files; ``--long-files`` scales it down,
+   the ratio is what is compared).
+
+Each contender is a fresh process (``python -m simwave batch ...``), in turn per
+round, this tree and (with ``--baseline DIR``) an older checkout.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import shutil
+import subprocess
+import sys
+import tempfile
+
+import numpy as np
+import soundfile as sf
+
+from common import NEUTRAL_DIR, python, time_process, tree_env
+
+RATE = 48000
+SYSTEMS = ["(2*pi*100)^2/(s^2 + 2*0.5*2*pi*100*s + (2*pi*100)^2)",
+           "1/(2m*s + 1)",
+           "(2*pi*1k)^4/((s^2 + 0.7654*2*pi*1k*s + (2*pi*1k)^2)"
+           "*(s^2 + 1.8478*2*pi*1k*s + (2*pi*1k)^2))"]
+
+PLAIN_LOOP = r"""
+import glob, os, sys
+import numpy as np, scipy.signal, soundfile
+import simwave
+sos = simwave.System.parse(sys.argv[3]).discretize(48000.0, "ramp-invariant").sos
+os.makedirs(sys.argv[2], exist_ok=True)
+for path in sorted(glob.glob(os.path.join(sys.argv[1], "*.wav"))):
+    x, rate = soundfile.read(path, always_2d=True)
+    y = scipy.signal.sosfilt(sos, x, axis=0)
+    soundfile.write(os.path.join(sys.argv[2], os.path.basename(path)), y, rate, subtype="FLOAT")
+"""
+
+MEASURE_ONE = r"""
+import sys, time, warnings
+warnings.simplefilter("ignore")
+import simwave
+out, ref, n = sys.argv[1], sys.argv[2], int(sys.argv[3])
+simwave.measure(out, reference=ref)
+t0 = time.perf_counter()
+for _ in range(n):
+    simwave.measure(out, reference=ref)
+print((time.perf_counter() - t0) / n)
+"""
+
+
+def make_inputs(folder: str, n: int, seconds: float) -> None:
+    os.makedirs(folder, exist_ok=True)
+    rng = np.random.default_rng(5)
+    m = int(seconds * RATE)
+    for i in range(n):
+        x = np.zeros(m)
+        start = int(m * (0.1 + 0.3 * (i % 5) / 5))
+        stop = m if i % 2 else start + m // 3
+        x[start:stop] = 0.2 + 0.1 * (i % 3)
+        x += 1e-3 * rng.standard_normal(m)
+        sf.write(os.path.join(folder, f"rec{i:05d}.wav"), x, RATE, subtype="FLOAT")
+
+
+def batch_cmd(data: str, out: str, systems: list[str], jobs: int) -> list[str]:
+    argv = [python(), "-m", "simwave", "batch", "-o", out, "-j", str(jobs), "--force"]
+    for s in systems:
+        argv += ["-s", s]
+    return argv + [os.path.join(data, "*.wav")]
+
+
+def _timed(argv: list[str], tree: str | None, out: str) -> float:
+    """Wall time of one batch process into a fresh output folder (it must exit 0)."""
+    shutil.rmtree(out, ignore_errors=True)
+    return time_process(argv, tree_env(tree))
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--files", type=int, default=2000)
+    ap.add_argument("--long-files", type=int, default=40)
+    ap.add_argument("--jobs", type=int, default=2)
+    ap.add_argument("--rounds", type=int, default=1)
+    ap.add_argument("--baseline", metavar="DIR", default=None)
+    args = ap.parse_args()
+    trees = {"now": None} | ({"before": args.baseline} if args.baseline else {})
+    root = tempfile.mkdtemp(prefix="simwave-bench-overhead-")
+    print(f"load average before: {', '.join(f'{v:.2f}' for v in os.getloadavg())}")
+    try:
+        short, long_ = os.path.join(root, "short"), os.path.join(root, "long")
+        make_inputs(short, args.files, 0.05)
+        make_inputs(long_, args.long_files, 10.0)
+        best: dict[str, float] = {}
+
+        def keep(key: str, seconds: float) -> None:
+            best[key] = min(best.get(key, float("inf")), seconds)
+
+        for _ in range(args.rounds):
+            keep("plain", time_process([python(), "-c", PLAIN_LOOP, short,
+                                        os.path.join(root, "plain"), SYSTEMS[0]], tree_env()))
+            for label, tree in trees.items():
+                out = os.path.join(root, f"out-{label}")
+                keep(f"short {label}",
+                     _timed(batch_cmd(short, out, SYSTEMS[:1], args.jobs), tree, out))
+                keep(f"long {label}", _timed(batch_cmd(long_, out, SYSTEMS, args.jobs), tree, out))
+        one_out = os.path.join(root, "one.wav")
+        subprocess.run([python(), "-m", "simwave", "run", os.path.join(short, "rec00000.wav"),
+                        "-s", SYSTEMS[0], "-o", one_out], env=tree_env(), cwd=NEUTRAL_DIR,
+                       check=True, capture_output=True)
+        measure_s = float(subprocess.run(
+            [python(), "-c", MEASURE_ONE, one_out, os.path.join(short, "rec00000.wav"), "50"],
+            env=tree_env(), cwd=NEUTRAL_DIR, check=True, capture_output=True, text=True
+        ).stdout.split()[-1])
+
+        n, j = args.files, args.jobs
+        plain_ms = best["plain"] / n * 1e3
+        print(f"1. {n} short WAVs (0.05 s, 48 kHz) x 1 system, output + metrics JSON, "
+              f"--jobs {j}")
+        print(f"   plain loop (1 process, no metrics) {best['plain']:7.2f} s "
+              f"{n / best['plain']:8.1f} pairs/s  {plain_ms:6.2f} ms/pair")
+        for label in trees:
+            t = best[f"short {label}"]
+            worker_ms = t * j / n * 1e3
+            print(f"   simwave batch [{label:<6}]        {t:7.2f} s {n / t:8.1f} pairs/s  "
+                  f"{worker_ms:6.2f} ms/pair of worker time, overhead over the loop "
+                  f"{worker_ms - plain_ms:+7.2f} ms/pair")
+        print(f"   target >= 150 pairs/s: now {n / best['short now']:.1f} pairs/s")
+        if args.baseline:
+            print(f"   now / before = {best['short before'] / best['short now']:.2f}x pairs/s")
+        print(f"   measuring one short output against its input (simwave.measure, this tree): "
+              f"{measure_s * 1e3:.1f} ms per pair")
+        m = args.long_files * len(SYSTEMS)
+        print(f"2. {args.long_files} WAVs of 10 s x {len(SYSTEMS)} systems = {m} pairs, "
+              f"--jobs {j}")
+        for label in trees:
+            t = best[f"long {label}"]
+            print(f"   simwave batch [{label:<6}] {t:7.2f} s {m / t:7.2f} pairs/s")
+        if args.baseline:
+            print(f"   now / before = {best['long before'] / best['long now']:.2f}x pairs/s "
+                  "(target >= 4x)")
+        print(f"load average after: {', '.join(f'{v:.2f}' for v in os.getloadavg())}")
+    finally:
+        shutil.rmtree(root, ignore_errors=True)
+
+
+if __name__ == "__main__":
+    sys.exit(main())
