@@ -1,6 +1,7 @@
 """Side-by-side benchmarks for the main job (``simulate`` / ``simwave run``).
 
-Run:  python benchmarks/bench_run.py [--minutes 10] [--repeat 3]
+Run:  python benchmarks/bench_run.py [--minutes 10] [--repeat 3] [--baseline DIR]
+      [--only lsim|long|fixed|short]
 
 Prints ratios measured in one process run, interleaving the contenders and
 keeping each one's best time (the machines are shared and noisy):
@@ -14,6 +15,14 @@ keeping each one's best time (the machines are shared and noisy):
    target: under 200 MB whatever the file length). Each contender runs in a fresh
    subprocess, so its peak RSS (ru_maxrss) is its own.
 
+3. ``simulate`` fixed cost on 1,000 samples for Butterworth orders 2/4/8/16: the
+   call's time minus ``sosfilt`` on the same sections, for a system already run
+   once (its discrete model is kept) and for a new one (cache cleared); target
+   <= 0.5 ms for order <= 8.
+4. ``simwave run`` on a 1-second 48 kHz WAV vs the plain script, whole processes
+   (start-up included): target <= 1.1x.
+
+``--baseline DIR`` runs 3. and 4. on an older checkout as well (before/after).
 The filter core alone vs sosfilt is in bench_filter_core.py.
 """
 
@@ -31,6 +40,7 @@ import scipy.signal
 import soundfile
 
 import simwave
+from common import NEUTRAL_DIR, interleaved, median, python, time_process, tree_env
 
 # 4th-order Butterworth low-pass at 1 kHz (section damping 0.3827 and 0.9239)
 SYSTEM = (
@@ -124,13 +134,96 @@ def bench_file(minutes: float, repeat: int) -> None:
     print(f"   time ratio simwave/plain = {t_sw / t_plain:.2f}x (target <= 1.0x)")
 
 
+FIXED_COST = r"""
+import json, time, warnings
+import numpy as np, scipy.signal as sig
+import simwave
+import simwave.run as run_module
+warnings.simplefilter("ignore")
+x = np.random.default_rng(0).standard_normal(1000)
+w = simwave.Waveform(x, 48000.0)
+out = {}
+for order in (2, 4, 8, 16):
+    z, p, k = sig.butter(order, 2 * np.pi * 1000, analog=True, output="zpk")
+    system = simwave.System.from_zpk(z, p, k)
+    sos = system.discretize(48000.0).sos
+    simwave.simulate(system, w)
+
+    def best(f, n):
+        b = 1e9
+        for _ in range(n):
+            t0 = time.perf_counter(); f(); b = min(b, time.perf_counter() - t0)
+        return b
+
+    def cold():
+        getattr(run_module, "_PREPARED", {}).clear()
+        simwave.simulate(system, w)
+
+    filt = best(lambda: sig.sosfilt(sos, x), 200)
+    out[order] = {"warm_ms": (best(lambda: simwave.simulate(system, w), 200) - filt) * 1e3,
+                  "cold_ms": (best(cold, 20) - filt) * 1e3}
+print(json.dumps(out))
+"""
+
+
+def bench_fixed_cost(baseline: str | None) -> None:
+    import json
+
+    trees = {"now": None} | ({"before": baseline} if baseline else {})
+    res = {}
+    for label, tree in trees.items():
+        done = subprocess.run([python(), "-c", FIXED_COST], env=tree_env(tree), cwd=NEUTRAL_DIR,
+                              check=True, capture_output=True, text=True)
+        res[label] = json.loads(done.stdout.strip().splitlines()[-1])
+    print("3. simulate fixed cost, 1,000 samples (call minus sosfilt), best of 200 (warm) / 20 "
+          "(new system)")
+    for order in ("2", "4", "8", "16"):
+        line = (f"   order {order:>2}: now {res['now'][order]['warm_ms']:6.3f} ms repeated system, "
+                f"{res['now'][order]['cold_ms']:6.3f} ms new system")
+        if baseline:
+            line += f"   before {res['before'][order]['cold_ms']:6.3f} ms (every call)"
+        print(line + ("   (target <= 0.5 ms for order <= 8)" if order != "16" else ""))
+
+
+def bench_short_file(baseline: str | None, rounds: int) -> None:
+    with tempfile.TemporaryDirectory() as tmp:
+        src = os.path.join(tmp, "in.wav")
+        x = 0.1 * np.random.default_rng(3).standard_normal((48000, 2))
+        soundfile.write(src, x, 48000, subtype="FLOAT")
+        trees = {"now": None} | ({"before": baseline} if baseline else {})
+        contenders = {"plain": lambda: time_process(
+            [python(), "-c", PLAIN_SCRIPT, src, os.path.join(tmp, "p.wav"), SYSTEM], tree_env())}
+        for label, tree in trees.items():
+            contenders[label] = (lambda tree=tree, label=label: time_process(
+                [python(), "-m", "simwave", "run", src, "-s", SYSTEM, "-m", "bilinear", "-o",
+                 os.path.join(tmp, f"{label}.wav")], tree_env(tree)))
+        times = {k: median(v) for k, v in interleaved(contenders, rounds).items()}
+    print(f"4. simwave run vs the plain script on a 1-s 48 kHz stereo WAV, whole processes "
+          f"(medians of {rounds})")
+    print(f"   plain   {times['plain']:6.3f} s")
+    for label in trees:
+        print(f"   {label:<7} {times[label]:6.3f} s   ratio {times[label] / times['plain']:.2f}x"
+              + ("   (target <= 1.1x)" if label == "now" else ""))
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--minutes", type=float, default=10.0)
     ap.add_argument("--repeat", type=int, default=3)
     ap.add_argument("--lsim-only", action="store_true", help=argparse.SUPPRESS)
+    ap.add_argument("--baseline", metavar="DIR", default=None)
+    ap.add_argument("--only", choices=("lsim", "long", "fixed", "short"), default=None)
     args = ap.parse_args()
-    if args.lsim_only:
+    if args.only == "fixed":
+        bench_fixed_cost(args.baseline)
+        return
+    if args.only == "short":
+        bench_short_file(args.baseline, max(args.repeat, 5))
+        return
+    if args.only == "long":
+        bench_file(args.minutes, args.repeat)
+        return
+    if args.lsim_only or args.only == "lsim":
         bench_lsim(args.repeat)
         return
     # Part 1 runs twice in fresh processes: with OpenBLAS's default worker threads, and
@@ -146,6 +239,8 @@ def main() -> None:
         subprocess.run([sys.executable, __file__, "--lsim-only", "--repeat", str(args.repeat)],
                        check=True, env=env)
     bench_file(args.minutes, args.repeat)
+    bench_fixed_cost(args.baseline)
+    bench_short_file(args.baseline, max(args.repeat, 5))
 
 
 if __name__ == "__main__":
