@@ -377,7 +377,7 @@ def simulate(
     prewarp_hz: float | None = None,
     delay_s: float | None = None,
     match_hz: float | None = None,
-    output_ics: Sequence[float] | None = None,
+    initial_output: Sequence[float] | None = None,
     oversample: int = 1,
     channels: Sequence[int | str] | None = None,
     read_options: dict[str, Any] | None = None,
@@ -386,6 +386,7 @@ def simulate(
     keep_going: bool = False,
     block_size: int = DEFAULT_BLOCK,
     progress: Callable[[int, int | None], None] | None = None,
+    output_ics: Sequence[float] | None = None,
 ) -> Waveform | RunReport:
     """Run a waveform through the analog system H(s) and return (or write) the output.
 
@@ -404,7 +405,7 @@ def simulate(
         Sample rate in Hz for inputs that carry none (a numpy array, headerless CSV).
     initial : {"rest", "settled"}
         Initial state: at rest before the first sample, or settled at the
-        first sample's value. ``output_ics`` gives y(0), y'(0), ... for
+        first sample's value. ``initial_output`` gives y(0), y'(0), ... for
         systems entered as an ODE.
     output : path, optional
         When given, the output is streamed to this file (format from the
@@ -427,6 +428,15 @@ def simulate(
         is given.
     """
     started = time.perf_counter()
+    if output_ics is not None:  # the old spelling, kept for one release
+        from simwave.vocabulary import warn_renamed
+
+        warn_renamed("output_ics=", "initial_output=")
+        if initial_output is not None:
+            raise SimwaveError("output_ics= and initial_output= are the same option; give "
+                               "initial_output= only")
+        initial_output = output_ics
+    output_ics = initial_output  # the discrete model's own name for it
     sys_ = _as_system(system)
     src = open_source(source, rate=rate, channels=channels, read_options=read_options)
     factor = int(oversample)
@@ -679,7 +689,7 @@ class RunJob:
     prewarp_hz: float | None = None
     delay_s: float | None = None
     match_hz: float | None = None
-    output_ics: tuple[float, ...] | None = None
+    initial_output: tuple[float, ...] | None = None
     oversample: int = 1
     channels: tuple[Any, ...] | None = None
     rate: float | None = None
@@ -706,7 +716,7 @@ def execute(job: RunJob, progress: Callable[[int, int | None], None] | None = No
     report = simulate(
         system, job.source, job.method, job.rate, job.initial,
         output=job.output, prewarp_hz=job.prewarp_hz, delay_s=job.delay_s,
-        match_hz=job.match_hz, output_ics=job.output_ics, oversample=job.oversample,
+        match_hz=job.match_hz, initial_output=job.initial_output, oversample=job.oversample,
         channels=job.channels, read_options=job.read_options, write_options=job.write_options,
         include_input=job.include_input, keep_going=job.keep_going, progress=progress,
     )
@@ -747,7 +757,7 @@ def measure_run(job: RunJob, system: System, n_channels: int):
 
     opts = dict(job.measure_options)
     # the at-rest convention holds only for runs that start at rest
-    opts.setdefault("rest_before_record", job.initial == "rest" and job.output_ics is None)
+    opts.setdefault("rest_before_record", job.initial == "rest" and job.initial_output is None)
     return measure(
         job.output, reference=job.source, system=system,
         read_options=output_read_options(job, n_channels),

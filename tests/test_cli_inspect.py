@@ -75,7 +75,7 @@ def test_ode_is_shown_as_understood():
 
 
 def test_design_option_and_frequency_points():
-    result = run("--design", "butterworth lowpass order=4 cutoff=1k", "--at-hz", "0, 1k")
+    result = run("--design", "butterworth lowpass order=4 cutoff_hz=1k", "--at-hz", "0, 1k")
     assert result.exit_code == 0, result.output
     assert "4 (relative degree 4)" in result.stdout
     lines = result.stdout.splitlines()
@@ -125,13 +125,13 @@ BAD_INPUTS = [
     (["-s", "s^2/(s+1)"], "not realizable as a causal filter"),
     (["-s", "y' + y = x''"], "not realizable as a causal filter"),
     (["-s", "1/(s+1)^61"], "above the limit of 60"),
-    (["--design", "butterworth lowpass order=61 cutoff=1k"], "order must be 1..60"),
-    (["--design", "butterworth lowpass order=4 cutoff=0"], "above 0 Hz"),
-    (["--design", "butterworth lowpass order=4 cutoff=-1k"], "above 0 Hz"),
-    (["--design", "chebby lowpass order=4 cutoff=1k"], "unknown filter family"),
+    (["--design", "butterworth lowpass order=61 cutoff_hz=1k"], "order must be 1..60"),
+    (["--design", "butterworth lowpass order=4 cutoff_hz=0"], "above 0 Hz"),
+    (["--design", "butterworth lowpass order=4 cutoff_hz=-1k"], "above 0 Hz"),
+    (["--design", "chebby lowpass order=4 cutoff_hz=1k"], "unknown filter family"),
     (["--zeros", "-1+2j", "--poles", "-1,-2,-3"], "conjugate"),
     ([], "no system given"),
-    (["-s", "1/(s+1)", "--design", "butterworth order=2 cutoff=1"], "one form only"),
+    (["-s", "1/(s+1)", "--design", "butterworth order=2 cutoff_hz=1"], "one form only"),
     (["-s", "nowhere.toml"], "nowhere.toml not found"),
     (["-s", "1/(s+1)", "--dead-time", "-1"], ">= 0 seconds"),
     (["-s", "1/(s+1)", "--at-hz", "-5"], "--at-hz"),

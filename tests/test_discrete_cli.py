@@ -10,7 +10,7 @@ from click.testing import CliRunner
 from simwave.cli import main
 from simwave.discrete import METHODS
 
-BUTTER4 = "butterworth lowpass order=4 cutoff=1k"
+BUTTER4 = "butterworth lowpass order=4 cutoff_hz=1k"
 
 
 def run(*args: str):
@@ -48,7 +48,7 @@ def test_inspect_dead_time_and_prewarp():
 
 def test_inspect_rate_bad_input_exit_2():
     for args in (["--rate", "0"], ["--rate", "1k", "--prewarp", "600", "-m", "bilinear"],
-                 ["--method", "bilinear"], ["--rate", "1k", "--band", "900"],
+                 ["--method", "bilinear"], ["--rate", "1k", "--band-hz", "900"],
                  ["--rate", "1k", "-m", "tustin"]):
         result = run("-s", "1/(s+1)", *args)
         assert result.exit_code == 2, (args, result.output)

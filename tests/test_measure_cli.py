@@ -65,7 +65,7 @@ def test_table_with_system_and_options(step_csv):
         step_csv,
         "--input-channel",
         "vin",
-        "--band",
+        "--settling-band",
         "5",
         "--levels",
         "20,50,80",
@@ -84,7 +84,7 @@ def test_separate_reference_file_and_output_json(tmp_path, step_csv):
     simwave.write(tmp_path / "in.csv", both.select(["vin"]))
     simwave.write(tmp_path / "out.csv", both.select(["vout"]))
     target = tmp_path / "m.json"
-    r = run("measure", tmp_path / "out.csv", "--reference", tmp_path / "in.csv", "-o", target)
+    r = run("measure", tmp_path / "out.csv", "--reference", tmp_path / "in.csv", "--metrics", target)
     assert r.exit_code == 0, r.output
     d = json.loads(target.read_text())
     assert d["channels"][0]["transitions"][0]["delay_s"] > 0
@@ -120,7 +120,7 @@ def one_line_error(r):
 
 def test_bad_levels_and_band(step_csv):
     assert "outside (0, 100) %" in one_line_error(run("measure", step_csv, "--levels", "0,50,90"))
-    assert "outside (0, 100) %" in one_line_error(run("measure", step_csv, "--band", "100"))
+    assert "outside (0, 100) %" in one_line_error(run("measure", step_csv, "--settling-band", "100"))
     assert "three percentages" in one_line_error(run("measure", step_csv, "--levels", "10,90"))
 
 
@@ -145,7 +145,7 @@ def test_reference_of_other_length(tmp_path, step_csv):
 def test_missing_file_and_refusing_to_overwrite_input(tmp_path, step_csv):
     one_line_error(run("measure", tmp_path / "nope.csv"))
     before = step_csv.read_bytes()
-    err = one_line_error(run("measure", step_csv, "-o", step_csv))
+    err = one_line_error(run("measure", step_csv, "--metrics", step_csv))
     assert "refusing" in err
     assert step_csv.read_bytes() == before
 

@@ -51,29 +51,29 @@ def test_bad_lists(text, fragment):
 
 # ----------------------------------------------------------------------------- --design text
 def test_design_text():
-    a = parse_design_text("butterworth lowpass order=4 cutoff=1k")
+    a = parse_design_text("butterworth lowpass order=4 cutoff_hz=1k")
     b = System.design("butterworth", 4, 1e3)
     np.testing.assert_array_equal(a.poles, b.poles)
-    c = parse_design_text("elliptic bandpass order=3 cutoff=300,3kHz ripple=0.5dB attenuation=60")
+    c = parse_design_text("elliptic bandpass order=3 cutoff_hz=300,3kHz ripple_db=0.5dB attenuation_db=60")
     d = System.design("elliptic", 3, (300, 3e3), "bandpass", ripple_db=0.5, attenuation_db=60)
     np.testing.assert_array_equal(c.poles, d.poles)
     # the kind defaults to lowpass
-    np.testing.assert_array_equal(parse_design_text("bessel-delay order=3 cutoff=100").poles,
+    np.testing.assert_array_equal(parse_design_text("bessel-delay order=3 cutoff_hz=100").poles,
                                   System.design("bessel-delay", 3, 100).poles)
 
 
 @pytest.mark.parametrize(
     "text, fragment",
     [
-        ("butterworth lowpass order=4", "cutoff= is missing"),
-        ("butterworth lowpass cutoff=1k", "order= is missing"),
-        ("butterworth lowpass order=4 cutoff=0", "above 0 Hz"),
-        ("butterworth lowpass order=4.5 cutoff=1k", "whole number"),
-        ("butterworth lowpass order=4 cutoff=1k q=3", "unknown setting 'q'"),
-        ("butterworth order=4 cutoff=1k lowpass", "after the settings"),
-        ("order=4 cutoff=1k", "write the family"),
-        ("foo lowpass order=4 cutoff=1k", "unknown filter family"),
-        ("butterworth lowpass order=4 order=5 cutoff=1k", "given twice"),
+        ("butterworth lowpass order=4", "cutoff_hz= is missing"),
+        ("butterworth lowpass cutoff_hz=1k", "order= is missing"),
+        ("butterworth lowpass order=4 cutoff_hz=0", "above 0 Hz"),
+        ("butterworth lowpass order=4.5 cutoff_hz=1k", "whole number"),
+        ("butterworth lowpass order=4 cutoff_hz=1k q=3", "unknown setting 'q'"),
+        ("butterworth order=4 cutoff_hz=1k lowpass", "after the settings"),
+        ("order=4 cutoff_hz=1k", "write the family"),
+        ("foo lowpass order=4 cutoff_hz=1k", "unknown filter family"),
+        ("butterworth lowpass order=4 order=5 cutoff_hz=1k", "given twice"),
     ],
 )
 def test_bad_design_text(text, fragment):

@@ -43,7 +43,7 @@ Description file (TOML; paths are relative to the file)::
 
     [[inputs]]
     files = ["recordings/*.csv", "extra/run7.csv"]   # paths and globs (** allowed)
-    rate = "10k"                 # reader options: rate channels dataset format time_column
+    rate_hz = "10k"              # reader options: rate_hz channels dataset format time_column
                                  # resample fill_gaps delimiter decimal header_line
                                  # skip_lines full_scale offset units
 
@@ -54,7 +54,7 @@ Description file (TOML; paths are relative to the file)::
 A system entry holds one system form (``expression``, ``ode``, ``coefficients``,
 ``zpk``, ``design``, with ``name``, ``notes``, ``dead_time_s``: the keys of a system
 file) or ``file``, plus run options as ``simwave run`` has them: ``method``,
-``initial`` ("rest"/"settled"), ``prewarp_hz``, ``match_hz``, ``output_ics``,
+``initial`` ("rest"/"settled"), ``prewarp_hz``, ``match_hz``, ``initial_output``,
 ``oversample``, ``keep_going``; and ``limits``. System names become part of the
 output file names (letters, digits, ``. _ = -``).
 """
@@ -73,6 +73,7 @@ from typing import Any, Callable, Mapping, Sequence
 from simwave.batch.lines import KeyLines
 from simwave.errors import BatchError, SimwaveError
 from simwave.tomlfile import read_toml
+from simwave.vocabulary import warn_renamed
 
 
 #: Top-level tables of a description file.
@@ -82,11 +83,13 @@ OUTPUT_KEYS = ("dir", "format", "name", "summary", "include_input", "write")
 WRITE_KEYS = ("subtype", "on_clip", "full_scale", "offset", "dtype", "compression",
               "delimiter", "time_column", "dataset")
 #: Run options a system entry may carry besides its form.
-RUN_KEYS = ("method", "initial", "prewarp_hz", "match_hz", "output_ics", "oversample",
+RUN_KEYS = ("method", "initial", "prewarp_hz", "match_hz", "initial_output", "output_ics",
+            "oversample",
             "keep_going")
 SYSTEM_EXTRA_KEYS = RUN_KEYS + ("file", "limits")
 #: Reader options an input entry may carry (rate and channels go to the run itself).
-READ_KEYS = ("rate", "channels", "dataset", "format", "time_column", "resample", "fill_gaps",
+READ_KEYS = ("rate_hz", "rate", "channels", "dataset", "format", "time_column", "resample",
+             "fill_gaps",
              "delimiter", "decimal", "header_line", "skip_lines", "full_scale", "offset", "units")
 INPUT_KEYS = ("files", "signal", "name") + READ_KEYS
 #: Measurement options a description may set (the rest are internal to simwave.measure).
@@ -195,7 +198,7 @@ class BatchPlan:
             "initial": opts.get("initial", "rest"),
             "prewarp_hz": opts.get("prewarp_hz"),
             "match_hz": opts.get("match_hz"),
-            "output_ics": opts.get("output_ics"),
+            "initial_output": opts.get("initial_output"),
             "oversample": opts.get("oversample", 1),
             "channels": pair.input.channels,
             "rate": pair.input.rate,
@@ -342,13 +345,19 @@ def run_options(table: Mapping[str, Any], where_of: Callable[[str], str]) -> dic
                 raise _fail(where_of(key), f"{key} must be a positive frequency, "
                                            f"got {table[key]!r}")
             opts[key] = v
-    if "output_ics" in table:
-        raw = table["output_ics"]
+    if "output_ics" in table:  # the old spelling, kept for one release
+        if "initial_output" in table:
+            raise _fail(where_of("output_ics"), "output_ics and initial_output are the same "
+                                                "key; give initial_output only")
+        warn_renamed(f"{where_of('output_ics')}: output_ics", "initial_output")
+        table = {**table, "initial_output": table["output_ics"]}
+    if "initial_output" in table:
+        raw = table["initial_output"]
+        key = "initial_output" if "output_ics" not in table else "output_ics"
         if not isinstance(raw, list):
-            raise _fail(where_of("output_ics"),
-                        f"output_ics must be a list of numbers, got {raw!r}")
-        opts["output_ics"] = tuple(_quantity(v, "output_ics", where_of("output_ics"))
-                                   for v in raw)
+            raise _fail(where_of(key), f"initial_output must be a list of numbers, got {raw!r}")
+        opts["initial_output"] = tuple(_quantity(v, "initial_output", where_of(key))
+                                       for v in raw)
     if "oversample" in table:
         v = table["oversample"]
         if isinstance(v, bool) or not isinstance(v, int) or not 1 <= v <= 64:
@@ -480,10 +489,14 @@ def _system_entries(systems: Any, base: str, source: str, lines: KeyLines) -> li
 def _reader_options(table: Mapping[str, Any], where_of: Callable[[str], str]
                     ) -> tuple[float | None, tuple | None, dict[str, Any]]:
     rate = None
-    if "rate" in table:
-        rate = _quantity(table["rate"], "rate", where_of("rate"))
-        if not (rate > 0 and math.isfinite(rate)):
-            raise _fail(where_of("rate"), f"rate must be > 0 Hz, got {table['rate']!r}")
+    if "rate" in table and "rate_hz" not in table:
+        warn_renamed(f"{where_of('rate')}: rate", "rate_hz")  # old spelling, one release
+    for key in ("rate_hz", "rate"):
+        if key in table:
+            rate = _quantity(table[key], key, where_of(key))
+            if not (rate > 0 and math.isfinite(rate)):
+                raise _fail(where_of(key), f"{key} must be > 0 Hz, got {table[key]!r}")
+            break
     channels = None
     if "channels" in table:
         raw = table["channels"]
@@ -496,7 +509,8 @@ def _reader_options(table: Mapping[str, Any], where_of: Callable[[str], str]
             raise _fail(where_of("channels"),
                         f"channels must be names or indices, got {table['channels']!r}")
         channels = tuple(raw)
-    read = {k: table[k] for k in READ_KEYS if k in table and k not in ("rate", "channels")}
+    read = {k: table[k] for k in READ_KEYS if k in table and k not in ("rate", "rate_hz",
+                                                                       "channels")}
     if "fill_gaps" in read:
         v = read["fill_gaps"]
         if isinstance(v, bool) or not isinstance(v, int) or v < 0:
@@ -885,7 +899,7 @@ def quick_plan(systems: Sequence[str], inputs: Sequence[str], output_dir: str, *
         (specs if is_signal_spec(item) else table["files"]).append(item)
     extra = dict(read_options or {})
     if rate is not None:
-        extra["rate"] = rate
+        extra["rate_hz"] = rate
     if channels is not None:
         extra["channels"] = channels
     tables = []

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import importlib
 import sys
+import warnings
 
 import click
 
@@ -89,3 +90,10 @@ def main() -> None:
     For medical, protection or other safety-related signal chains, follow the
     applicable standards and licensed engineering practice.
     """
+    warnings.showwarning = _show_warning
+
+
+def _show_warning(message, category, filename, lineno, file=None, line=None) -> None:
+    """Warnings that reach the terminal: one line, ``Warning: ...``, no source line."""
+    click.echo(f"Warning: {message}", err=True)
+

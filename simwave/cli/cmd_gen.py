@@ -7,6 +7,7 @@ import json
 import click
 
 from simwave.cli.app import main
+from simwave.cli.renamed import renamed_option
 from simwave.errors import WaveformError
 
 AUDIO_CAUTION = (
@@ -43,8 +44,9 @@ def _kinds_text() -> str:
               help="Audio sample encoding: FLOAT (default), DOUBLE, PCM_16, PCM_24, ...")
 @click.option("--on-clip", type=click.Choice(["error", "clip", "normalize"]), default="error",
               show_default=True, help="Integer audio subtypes: what to do beyond full scale.")
-@click.option("--full-scale", metavar="VALUE",
+@click.option("--output-full-scale", "full_scale", metavar="VALUE",
               help="Audio: signal value written as digital full scale (default 1).")
+@renamed_option("--full-scale", new="--output-full-scale", param="full_scale", metavar="VALUE")
 @click.option("--dataset", metavar="PATH", help="HDF5: dataset path (default /waveform).")
 @click.option("--add", "add", is_flag=True,
               help="HDF5: add the dataset to an existing file instead of replacing the file.")

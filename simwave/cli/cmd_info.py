@@ -18,8 +18,9 @@ def format_info(d: dict) -> str:
     if d.get("dataset"):
         fmt += f", dataset {d['dataset']}"
     lines.append(f"format     {fmt}")
-    lines.append(f"rate       {d['rate']:.10g} Hz")
-    lines.append(f"samples    {d['n_samples']} ({d['duration']:.10g} s), t0 = {d['t0']:.10g} s")
+    lines.append(f"rate       {d['rate_hz']:.10g} Hz")
+    lines.append(f"samples    {d['n_samples']} ({d['duration_s']:.10g} s), "
+                 f"t0 = {d['t0_s']:.10g} s")
     lines.append(f"channels   {d['n_channels']}")
     header = ["#", "name", "unit"]
     rows = []

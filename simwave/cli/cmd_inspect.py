@@ -20,6 +20,7 @@ from simwave import __version__
 from simwave.cli.app import main
 from simwave.cli.system_input import parse_number_list, resolve_system, system_options
 from simwave.cli.model_options import method_options, model_kwargs
+from simwave.cli.renamed import renamed_option
 from simwave.errors import SimwaveError
 
 if TYPE_CHECKING:  # numpy and scipy load only when a command runs
@@ -272,8 +273,9 @@ def format_report(report: dict[str, Any]) -> str:
               help="Also discretize at this sample rate and report the model's error against "
                    "H(j2*pi*f), with the lowest rate per method for --error-limit.")
 @method_options(default=None, when="for --rate")
-@click.option("--band", metavar="HZ|LO,HI", default=None,
+@click.option("--band-hz", "band", metavar="HZ|LO,HI", default=None,
               help="Band for the error report (default: up to 0.45 x rate or 60 dB down).")
+@renamed_option("--band", new="--band-hz", param="band", metavar="HZ|LO,HI")
 @click.option("--error-limit", metavar="DB", default=None,
               help="Magnitude-error limit for the suggested sample rates (default 0.1 dB).")
 @click.option("--json", "as_json", is_flag=True, help="Print the report as JSON (exact numbers).")
@@ -314,14 +316,14 @@ def inspect_command(system_spec, at_hz: str | None, rate: str | None, method: st
             report["discrete"] = discrete_section(
                 system, parse_number(rate, "--rate"), method,
                 **model_kwargs(prewarp, match_frequency),
-                band_hz=parse_number_list(band, "--band") if band else None,
+                band_hz=parse_number_list(band, "--band-hz") if band else None,
                 limit_db=parse_number(error_limit, "--error-limit") if error_limit else 0.1,
             )
         for w in caught:  # the report lists them again
             click.echo(f"Warning: {w.message}", err=True)
     elif any(v is not None for v in (method, prewarp, match_frequency, band, error_limit)):
         raise SimwaveError(
-            "--method, --prewarp, --match-frequency, --band and --error-limit need --rate"
+            "--method, --prewarp, --match-hz, --band-hz and --error-limit need --rate"
         )
     click.echo(json.dumps(report, indent=2) if as_json else format_report(report))
     if plot_path is not None:

@@ -8,7 +8,9 @@ import click
 
 from simwave.cli.app import main
 from simwave.cli.input_options import input_options, read_options
+from simwave.cli.renamed import renamed_option
 from simwave.cli.system_input import resolve_system, system_options
+from simwave.discrete import METHODS
 from simwave.errors import MeasurementError
 from simwave.measure.kinds import SIGNAL_KINDS
 
@@ -56,8 +58,9 @@ def _write_json(path: str, text: str, protect: list[str]) -> None:
                    "nothing before the first sample.")
 @click.option("--levels", metavar="LOW,MID,HIGH", default="10,50,90", show_default=True,
               help="Reference levels in percent of the amplitude (IEEE Std 181).")
-@click.option("--band", metavar="PCT", default="2", show_default=True,
+@click.option("--settling-band", metavar="PCT", default="2", show_default=True,
               help="Settling band: +/- this percent of the amplitude around the final level.")
+@renamed_option("--band", new="--settling-band", param="settling_band", metavar="PCT")
 @click.option("--harmonics", metavar="N", type=click.IntRange(2, 1000), default=10,
               show_default=True, help="THD counts harmonics 2..N.")
 @click.option("--sine-hz", metavar="HZ", default=None,
@@ -72,17 +75,18 @@ def _write_json(path: str, text: str, protect: list[str]) -> None:
                    "against settled segment ends), min/max, or segment ends wherever found.")
 @click.option("--kind", type=click.Choice(list(SIGNAL_KINDS)), default="auto", show_default=True,
               help="What the signal is; auto decides from the input (else the output).")
-@click.option("--method", metavar="METHOD", default=None,
+@click.option("--method", type=click.Choice(METHODS), default=None,
               help="With a system: the discretization method that made FILE; its accuracy "
                    "report at FILE's rate sets the measured-vs-predicted tolerances.")
 @click.option("--json", "as_json", is_flag=True, help="Print the result as JSON.")
-@click.option("-o", "--output", "out_path", metavar="FILE.json", default=None,
-              help="Also write the JSON result to this file.")
+@click.option("--metrics", "out_path", metavar="FILE.json", default=None,
+              help="Also write the JSON result to this file (as run --metrics does).")
+@renamed_option("-o", "--output", new="--metrics", param="out_path", metavar="FILE.json")
 @click.option("--plot", "plot_path", metavar="FILE", default=None,
               help="Also draw the input and output with the first transition's levels, rise "
                    "time, overshoot and settling band to FILE (.png or .svg).")
 def measure_cmd(file, system_spec, reference_file, input_channel, reference_dataset,
-                reference_channels, before_record, levels, band, harmonics, sine_hz, tones,
+                reference_channels, before_record, levels, settling_band, harmonics, sine_hz, tones,
                 steady_fraction, state_levels, kind, method, as_json, out_path, plot_path,
                 **kwargs):
     """Measure FILE: transitions (rise/fall time, overshoot, undershoot, preshoot, peak,
@@ -101,7 +105,7 @@ def measure_cmd(file, system_spec, reference_file, input_channel, reference_data
     system = resolve_system(system_spec, required=False)
     opts = {
         "reference_levels_pct": _numbers(levels, "--levels"),
-        "settling_band_pct": parse_number(band, "--band"),
+        "settling_band_pct": parse_number(settling_band, "--settling-band"),
         "harmonics": harmonics,
         "steady_fraction": parse_number(steady_fraction, "--steady-fraction"),
         "state_level_method": state_levels,
@@ -136,11 +140,11 @@ def measure_cmd(file, system_spec, reference_file, input_channel, reference_data
         import simwave
         from simwave.discrete import discretize
 
-        rate = simwave.info(file, **ropts).to_dict()["rate"]
+        rate = simwave.info(file, **ropts).to_dict()["rate_hz"]
         opts["discrete"] = discretize(system, rate, method)
     from simwave.signals.atomic import guard_outputs
 
-    guard_outputs({"-o/--output": out_path, "--plot": plot_path},
+    guard_outputs({"--metrics": out_path, "--plot": plot_path},
                   {"the measured file": file, "the reference": reference_file,
                    "the system file": system_spec.file})
     if plot_path is not None:

@@ -159,7 +159,7 @@ def _format_summary(result: dict) -> str:
               help="Run the model at N x the input rate and decimate back (anti-alias FIR).")
 @click.option("--with-input", is_flag=True,
               help="Write the input beside the output (CSV columns / HDF5 dataset).")
-@click.option("--subtype", default=None,
+@click.option("--subtype", metavar="SUBTYPE", default=None,
               help="Audio output sample format, e.g. FLOAT (default), PCM_16, PCM_24.")
 @click.option("--on-clip", type=click.Choice(["error", "clip", "normalize"]), default="error",
               show_default=True, help="Integer audio output beyond full scale.")
@@ -216,7 +216,7 @@ def run_command(source, system_spec, output, method, prewarp, match_frequency, i
         method=method,
         initial=initial,
         **model_kwargs(prewarp, match_frequency),
-        output_ics=(tuple(parse_number_list(initial_output, "--initial-output"))
+        initial_output=(tuple(parse_number_list(initial_output, "--initial-output"))
                     if initial_output is not None else None),
         oversample=oversample,
         read_options=reader,

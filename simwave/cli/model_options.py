@@ -7,11 +7,12 @@ from typing import Any
 
 import click
 
+from simwave.cli.renamed import renamed_option
 from simwave.discrete import METHODS
 
 
 def method_options(default: str | None = "ramp-invariant", when: str = "") -> Callable:
-    """Click decorator adding ``-m/--method``, ``--prewarp`` and ``--match-frequency``.
+    """Click decorator adding ``-m/--method``, ``--prewarp`` and ``--match-hz``.
 
     ``default`` is the method when none is given (None: only with another option,
     as ``inspect --rate``); ``when`` is a phrase appended to the method's help.
@@ -27,9 +28,11 @@ def method_options(default: str | None = "ramp-invariant", when: str = "") -> Ca
         click.option("--prewarp", metavar="HZ", default=None,
                      help="bilinear only: frequency where the discrete response equals "
                           "H(j2*pi*f) exactly."),
-        click.option("--match-frequency", metavar="HZ", default=None,
+        click.option("--match-hz", "match_frequency", metavar="HZ", default=None,
                      help="matched-z only: frequency where the gain is matched when H(0) is "
                           "0 or infinite."),
+        renamed_option("--match-frequency", new="--match-hz", param="match_frequency",
+                       metavar="HZ"),
     ]
 
     def apply(func: Callable) -> Callable:
@@ -48,5 +51,5 @@ def model_kwargs(prewarp: str | None, match_frequency: str | None) -> dict[str, 
     if prewarp is not None:
         kwargs["prewarp_hz"] = parse_number(prewarp, "--prewarp")
     if match_frequency is not None:
-        kwargs["match_hz"] = parse_number(match_frequency, "--match-frequency")
+        kwargs["match_hz"] = parse_number(match_frequency, "--match-hz")
     return kwargs

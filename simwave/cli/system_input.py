@@ -41,6 +41,7 @@ from typing import TYPE_CHECKING, Any
 
 import click
 
+from simwave.vocabulary import warn_renamed
 from simwave.errors import InvalidSystemError, ParseError, SimwaveError
 from simwave.tomlfile import read_toml
 from simwave.model.params import parse_assignment
@@ -68,7 +69,9 @@ FORM_KEYS = {
     "design": ("family", "kind", "order", "cutoff_hz", "ripple_db", "attenuation_db"),
 }
 #: Keys of the --design option text.
-DESIGN_KEYS = ("order", "cutoff", "ripple", "attenuation")
+DESIGN_KEYS = ("order", "cutoff_hz", "ripple_db", "attenuation_db")
+#: Old spellings of the design-text keys, accepted for one release.
+_OLD_DESIGN_KEYS = {"cutoff": "cutoff_hz", "ripple": "ripple_db", "attenuation": "attenuation_db"}
 
 
 @dataclass(frozen=True)
@@ -112,8 +115,8 @@ _OPTIONS: list[tuple[tuple[str, ...], str, str]] = [
     (("--poles",), "LIST", "Poles in rad/s, e.g. '-100, -1+2j, -1-2j' ('' for none)."),
     (("--gain",), "NUMBER", "Gain factor k in front of the zero and pole products (default 1)."),
     (("--design",), "TEXT",
-     ("Analog prototype, e.g. 'butterworth lowpass order=4 cutoff=1k' or "
-     "'elliptic bandpass order=3 cutoff=300,3k ripple=0.5 attenuation=60'.")),
+     ("Analog prototype, e.g. 'butterworth lowpass order=4 cutoff_hz=1k' or "
+     "'elliptic bandpass order=3 cutoff_hz=300,3k ripple_db=0.5 attenuation_db=60'.")),
     (("--dead-time",), "SECONDS", "Extra dead time (transport delay) in seconds, e.g. '2m'."),
     (("--set", "settings"), "NAME=VALUE",
      ("Value of a parameter named in the system text, e.g. --set R=12k or "
@@ -184,11 +187,13 @@ def _strip_unit(text: str, unit: str) -> str:
 
 
 def parse_design_text(text: str) -> System:
-    """A design from text like ``'butterworth lowpass order=4 cutoff=1k'``.
+    """A design from text like ``'butterworth lowpass order=4 cutoff_hz=1k'``.
 
     Words: the family, then optionally the kind (default lowpass); then
-    ``order=N``, ``cutoff=F`` (Hz; ``cutoff=LOW,HIGH`` for band kinds) and, where
-    the family needs them, ``ripple=DB`` and ``attenuation=DB``. Values may carry
+    ``order=N``, ``cutoff_hz=F`` (``cutoff_hz=LOW,HIGH`` for band kinds) and, where
+    the family needs them, ``ripple_db=DB`` and ``attenuation_db=DB`` (the keys of a
+    system file's ``[design]`` table; ``cutoff=``, ``ripple=``, ``attenuation=`` are the
+    old spellings, accepted for one release). Values may carry
     engineering suffixes and a trailing unit (``1kHz``, ``0.5dB``).
     """
     from simwave.model.designs import design
@@ -198,6 +203,9 @@ def parse_design_text(text: str) -> System:
         if "=" in part:
             key, _, value = part.partition("=")
             key = key.strip().lower()
+            if key in _OLD_DESIGN_KEYS:
+                warn_renamed(f"design {key}=", f"{_OLD_DESIGN_KEYS[key]}=")
+                key = _OLD_DESIGN_KEYS[key]
             if key not in DESIGN_KEYS:
                 raise InvalidSystemError(
                     f"design: unknown setting {key!r} (known: {', '.join(DESIGN_KEYS)})"
@@ -213,26 +221,27 @@ def parse_design_text(text: str) -> System:
             words.append(part)
     if not words or len(words) > 2:
         raise InvalidSystemError(
-            "design: write the family, optionally the kind, then order=N cutoff=F, "
-            f"e.g. 'butterworth lowpass order=4 cutoff=1k' (got {text!r})"
+            "design: write the family, optionally the kind, then order=N cutoff_hz=F, "
+            f"e.g. 'butterworth lowpass order=4 cutoff_hz=1k' (got {text!r})"
         )
-    for key in ("order", "cutoff"):
+    for key in ("order", "cutoff_hz"):
         if key not in values:
             raise InvalidSystemError(f"design: {key}= is missing (in {text!r})")
     order = parse_number(values["order"], "design order")
     if order != math.floor(order):
         raise InvalidSystemError(f"design: order must be a whole number, got {values['order']}")
     cutoff = [parse_number(_strip_unit(c, "hz"), "design cutoff")
-              for c in _items(values["cutoff"])]
+              for c in _items(values["cutoff_hz"])]
     return design(
         words[0],
         int(order),
         cutoff[0] if len(cutoff) == 1 else cutoff,
         words[1] if len(words) == 2 else "lowpass",
-        ripple_db=(parse_number(_strip_unit(values["ripple"], "db"), "design ripple")
-                   if "ripple" in values else None),
-        attenuation_db=(parse_number(_strip_unit(values["attenuation"], "db"), "design attenuation")
-                        if "attenuation" in values else None),
+        ripple_db=(parse_number(_strip_unit(values["ripple_db"], "db"), "design ripple_db")
+                   if "ripple_db" in values else None),
+        attenuation_db=(parse_number(_strip_unit(values["attenuation_db"], "db"),
+                                     "design attenuation_db")
+                        if "attenuation_db" in values else None),
     )
 
 

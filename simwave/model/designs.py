@@ -195,9 +195,9 @@ def design(
         z, p, k = signal.ellip(order, rp, rs, wn, **kw)
     else:
         z, p, k = signal.bessel(order, wn, norm=_SCIPY_BESSEL_NORM[fam], **kw)
-    text = f"{fam} {knd} order={order} cutoff={','.join(f'{e:g}' for e in edges)} Hz"
+    text = f"{fam} {knd} order={order} cutoff_hz={','.join(f'{e:g}' for e in edges)}"
     if ripple_db is not None:
-        text += f" ripple={float(ripple_db):g} dB"
+        text += f" ripple_db={float(ripple_db):g}"
     if attenuation_db is not None:
-        text += f" attenuation={float(attenuation_db):g} dB"
+        text += f" attenuation_db={float(attenuation_db):g}"
     return System.from_zpk(z, p, float(np.real(k)), text=text, name=name)

@@ -367,9 +367,19 @@ class WaveformInfo:
     notes: list[str] = field(default_factory=list)
 
     def to_dict(self) -> dict[str, Any]:
+        """JSON-ready: quantities under keys that carry their unit (``rate_hz``,
+        ``duration_s``, ``t0_s``); the unitless ``rate``, ``duration``, ``t0`` are
+        repeated for one release (old spellings, see :mod:`simwave.vocabulary`)."""
         from simwave.signals.common import to_jsonable
 
-        return to_jsonable(dict(self.__dict__))
+        d = dict(self.__dict__)
+        out = {"path": d.pop("path"), "format": d.pop("format"), "subtype": d.pop("subtype"),
+               "rate_hz": self.rate, "duration_s": self.duration, "t0_s": self.t0}
+        for old in ("rate", "duration", "t0"):
+            d.pop(old)
+        out.update(d)
+        out.update(rate=self.rate, duration=self.duration, t0=self.t0)
+        return to_jsonable(out)
 
 
 def info(path: Any, *, stats: bool = False, **opts: Any) -> WaveformInfo:
