@@ -156,6 +156,7 @@ class RunReport:
     oversample: dict[str, Any] | None = None
     write: dict[str, Any] | None = None
     rate_check: dict[str, Any] | None = None
+    input_peak: list[float] | None = None
 
     @property
     def duration(self) -> float:
@@ -180,9 +181,10 @@ class RunReport:
             "method": self.method,
             "initial": self.initial,
             "channels": [
-                {"name": n, "unit": u, "peak": p, "peak_time_s": pt, "rms": r}
-                for n, u, p, pt, r in zip(
-                    self.channels, self.units, self.peak, self.peak_time_s, self.rms, strict=True
+                {"name": n, "unit": u, "peak": p, "peak_time_s": pt, "rms": r, "input_peak": ip}
+                for n, u, p, pt, r, ip in zip(
+                    self.channels, self.units, self.peak, self.peak_time_s, self.rms,
+                    self.input_peak or [None] * len(self.channels), strict=True
                 )
             ],
             "accuracy": self.accuracy,
@@ -492,6 +494,7 @@ def simulate(
     sink = _Sink(output, src, provenance, write_options, include_input, keep_going, meter, pieces)
     state = None
     n_in = 0
+    in_peak = np.zeros(src.n_channels)
     try:
         up = Upsampler(factor, hold=(method == "step-invariant")) if factor > 1 else None
         dec: Decimator | None = None
@@ -511,6 +514,8 @@ def simulate(
                     block[0], initial=initial, n_channels=block.shape[1], output_ics=output_ics
                 )
             n_in += block.shape[0]
+            # input peak per channel (max and -min: no temporary for abs)
+            in_peak = np.maximum(in_peak, np.maximum(block.max(axis=0), -block.min(axis=0)))
             if up is None:
                 out, state = model.process(block, state)
             else:
@@ -556,6 +561,7 @@ def simulate(
             output=os.fspath(output),
             oversample=over_info,
             write=_write_dict(sink.write_result),
+            input_peak=[float(v) for v in in_peak],
         )
     data = pieces[0] if len(pieces) == 1 else np.concatenate(pieces)  # never empty: n_in > 0
     return Waveform(

@@ -42,12 +42,13 @@ def test_gen_pcm_overload_is_an_error_and_leaves_nothing(tmp_path):
     r = run("gen", "sine", "-o", str(tmp_path / "s.wav"), "--rate", "8k", "--duration", "0.1",
             "-p", "frequency=100", "-p", "amplitude=2", "--subtype", "PCM_16")
     assert r.exit_code == 2 and r.output.count("\n") == 1
-    assert "Error:" in r.output and "exceeds full scale" in r.output
+    assert "Error:" in r.output and "exceeds digital full scale" in r.output
     assert list(tmp_path.iterdir()) == []
     r = run("gen", "sine", "-o", str(tmp_path / "s.wav"), "--rate", "8k", "--duration", "0.1",
             "-p", "frequency=100", "-p", "amplitude=2", "--subtype", "PCM_16",
             "--on-clip", "normalize")
-    assert r.exit_code == 0 and "gain       0.5" in r.output
+    # peak 2 scaled to the default -1 dBFS: gain 10^(-1/20) / 2 = 0.445625
+    assert r.exit_code == 0 and "gain       0.445625 (-7.02 dB to -1.0 dBFS" in r.output
 
 
 def test_gen_bad_inputs_exit_2(tmp_path):

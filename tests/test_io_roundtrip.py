@@ -186,7 +186,7 @@ def test_audio_full_scale_scaling_and_calibration_round_trip(tmp_path):
 def test_integer_subtype_clipping_error_clip_and_normalize(tmp_path):
     x = np.array([0.0, 0.5, 2.0, -1.5, 0.25])
     w = Waveform(x, 8000.0)
-    with pytest.raises(WaveformError, match=r"exceeds full scale.*\+6\.02 dBFS"):
+    with pytest.raises(WaveformError, match=r"exceeds digital full scale.*\+6\.02 dBFS"):
         simwave.write(tmp_path / "c.wav", w, subtype="PCM_16")
     assert not os.path.exists(tmp_path / "c.wav")
     res = simwave.write(tmp_path / "c.wav", w, subtype="PCM_16", on_clip="clip")
@@ -194,7 +194,8 @@ def test_integer_subtype_clipping_error_clip_and_normalize(tmp_path):
     np.testing.assert_allclose(sf.read(str(tmp_path / "c.wav"))[0], [0, 0.5, 32767 / 32768, -1,
                                                                       0.25])
     res = simwave.write(tmp_path / "n.wav", w, subtype="PCM_16", on_clip="normalize")
-    assert res.gain == pytest.approx(0.5) and res.clipped == 0
+    # the peak (2.0) goes to -1 dBFS, the default level: gain 10^(-1/20) / 2
+    assert res.gain == pytest.approx(10 ** (-1 / 20) / 2) and res.clipped == 0
     back = simwave.read(tmp_path / "n.wav")  # calibration recorded: original values back
     np.testing.assert_allclose(back.data[:, 0], x, atol=2 / 32768)
 
@@ -206,7 +207,7 @@ def test_streaming_normalize_matches_whole_file_normalize(tmp_path):
                              on_clip="normalize") as out:
         for b in simwave.signals.generate_blocks("sine", 8000, 1, 999, frequency=50, amplitude=3):
             out.write(b)
-    assert out.result.gain == pytest.approx(1 / 3)
+    assert out.result.gain == pytest.approx(10 ** (-1 / 20) / 3)
     assert sf.read(str(tmp_path / "a.wav"), dtype="int16")[0].tolist() == \
         sf.read(str(tmp_path / "b.wav"), dtype="int16")[0].tolist()
     assert not [p for p in os.listdir(tmp_path) if p.startswith(".")]  # spool removed

@@ -84,7 +84,8 @@ def test_separate_reference_file_and_output_json(tmp_path, step_csv):
     simwave.write(tmp_path / "in.csv", both.select(["vin"]))
     simwave.write(tmp_path / "out.csv", both.select(["vout"]))
     target = tmp_path / "m.json"
-    r = run("measure", tmp_path / "out.csv", "--reference", tmp_path / "in.csv", "--metrics", target)
+    r = run("measure", tmp_path / "out.csv", "--reference", tmp_path / "in.csv",
+            "--metrics", target)
     assert r.exit_code == 0, r.output
     d = json.loads(target.read_text())
     assert d["channels"][0]["transitions"][0]["delay_s"] > 0
@@ -120,7 +121,8 @@ def one_line_error(r):
 
 def test_bad_levels_and_band(step_csv):
     assert "outside (0, 100) %" in one_line_error(run("measure", step_csv, "--levels", "0,50,90"))
-    assert "outside (0, 100) %" in one_line_error(run("measure", step_csv, "--settling-band", "100"))
+    assert "outside (0, 100) %" in one_line_error(
+        run("measure", step_csv, "--settling-band", "100"))
     assert "three percentages" in one_line_error(run("measure", step_csv, "--levels", "10,90"))
 
 

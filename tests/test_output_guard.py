@@ -113,14 +113,14 @@ def test_measure_output_over_the_reference_is_refused(folder):
     simwave.write("in.csv", simwave.read(STEP))
     assert _cli("run", "in.csv", "-s", "sys.toml", "-o", "out.csv").exit_code == 0
     before = _digest(folder / "in.csv")
-    result = _cli("measure", "out.csv", "--reference", "in.csv", "-o", "in.csv")
+    result = _cli("measure", "out.csv", "--reference", "in.csv", "--metrics", "in.csv")
     assert result.exit_code == 2
     assert "is the reference" in result.output
     assert _digest(folder / "in.csv") == before
-    result = _cli("measure", "out.csv", "--reference", "in.csv", "-o", "m.svg", "--plot",
+    result = _cli("measure", "out.csv", "--reference", "in.csv", "--metrics", "m.svg", "--plot",
                   "m.svg")
     assert result.exit_code == 2
-    assert "named by both -o/--output and --plot" in result.output
+    assert "named by both --metrics and --plot" in result.output
     assert not (folder / "m.svg").exists()
 
 

@@ -352,7 +352,7 @@ def test_cli_plot_options(tmp_path):
     assert "<svg" in (tmp_path / "i.svg").read_text(encoding="utf-8")
 
     for args in (["inspect", "-s", "1/(s+1)", "--plot", str(tmp_path / "x.pdf")],
-                 ["measure", valve, "--input-channel", "command", "-o",
+                 ["measure", valve, "--input-channel", "command", "--metrics",
                   str(tmp_path / "m.json"), "--plot", str(tmp_path / "no" / "m.png")]):
         bad = runner.invoke(main, args)
         assert bad.exit_code == 2

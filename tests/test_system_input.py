@@ -54,7 +54,8 @@ def test_design_text():
     a = parse_design_text("butterworth lowpass order=4 cutoff_hz=1k")
     b = System.design("butterworth", 4, 1e3)
     np.testing.assert_array_equal(a.poles, b.poles)
-    c = parse_design_text("elliptic bandpass order=3 cutoff_hz=300,3kHz ripple_db=0.5dB attenuation_db=60")
+    c = parse_design_text(
+        "elliptic bandpass order=3 cutoff_hz=300,3kHz ripple_db=0.5dB attenuation_db=60")
     d = System.design("elliptic", 3, (300, 3e3), "bandpass", ripple_db=0.5, attenuation_db=60)
     np.testing.assert_array_equal(c.poles, d.poles)
     # the kind defaults to lowpass

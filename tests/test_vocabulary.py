@@ -162,7 +162,7 @@ def test_old_spellings_still_work_and_say_so(tmp_path):
     out = tmp_path / "o.csv"
     assert run(main, ["run", step, "-s", "1/(1m*s+1)", "-o", str(out)]).exit_code == 0
     new = run(main, ["measure", str(out), "--settling-band", "5", "--json"])
-    with warnings.catch_warnings(record=True) as caught:
+    with warnings.catch_warnings():
         warnings.simplefilter("always")
         old = run(main, ["measure", str(out), "--band", "5", "--json"])
     assert old.exit_code == 0 and "old spelling of --settling-band" in old.output

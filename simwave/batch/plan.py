@@ -80,8 +80,8 @@ from simwave.vocabulary import warn_renamed
 SECTIONS = ("batch", "output", "measure", "limits", "systems", "inputs")
 BATCH_KEYS = ("jobs", "scheduler", "connect_timeout_s")
 OUTPUT_KEYS = ("dir", "format", "name", "summary", "include_input", "write")
-WRITE_KEYS = ("subtype", "on_clip", "full_scale", "offset", "dtype", "compression",
-              "delimiter", "time_column", "dataset")
+WRITE_KEYS = ("subtype", "on_clip", "normalize_level_dbfs", "full_scale", "offset", "dtype",
+              "compression", "delimiter", "time_column", "dataset")
 #: Run options a system entry may carry besides its form.
 RUN_KEYS = ("method", "initial", "prewarp_hz", "match_hz", "initial_output", "output_ics",
             "oversample",

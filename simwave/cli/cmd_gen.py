@@ -3,11 +3,13 @@
 from __future__ import annotations
 
 import json
+import math
 
 import click
 
 from simwave.cli.app import main
 from simwave.cli.renamed import renamed_option
+from simwave.model.parse import parse_number
 from simwave.errors import WaveformError
 
 AUDIO_CAUTION = (
@@ -44,6 +46,9 @@ def _kinds_text() -> str:
               help="Audio sample encoding: FLOAT (default), DOUBLE, PCM_16, PCM_24, ...")
 @click.option("--on-clip", type=click.Choice(["error", "clip", "normalize"]), default="error",
               show_default=True, help="Integer audio subtypes: what to do beyond full scale.")
+@click.option("--normalize-level", metavar="DBFS", default=None,
+              help="Peak level that --on-clip normalize scales a too-loud signal to "
+                   "(default -1 dBFS).")
 @click.option("--output-full-scale", "full_scale", metavar="VALUE",
               help="Audio: signal value written as digital full scale (default 1).")
 @renamed_option("--full-scale", new="--output-full-scale", param="full_scale", metavar="VALUE")
@@ -52,8 +57,8 @@ def _kinds_text() -> str:
               help="HDF5: add the dataset to an existing file instead of replacing the file.")
 @click.option("--json", "as_json", is_flag=True, help="Print the result as JSON.")
 @click.option("--kinds", "list_kinds", is_flag=True, help="List the kinds and their parameters.")
-def gen(kind, output, rate, duration, params, fmt, subtype, on_clip, full_scale, dataset, add,
-        as_json, list_kinds):
+def gen(kind, output, rate, duration, params, fmt, subtype, on_clip, normalize_level, full_scale,
+        dataset, add, as_json, list_kinds):
     """Write a generated test signal: KIND with --rate, --duration and -p NAME=VALUE, or one
     signal text such as pulse:rate=10k,duration=0.5,width=1m,delay=10m.
 
@@ -99,6 +104,8 @@ def gen(kind, output, rate, duration, params, fmt, subtype, on_clip, full_scale,
         opts["subtype"] = subtype
     if on_clip != "error":
         opts["on_clip"] = on_clip
+    if normalize_level is not None:
+        opts["normalize_level_dbfs"] = parse_number(normalize_level, "--normalize-level")
     if full_scale is not None:
         opts["full_scale"] = full_scale
     if dataset:
@@ -136,6 +143,8 @@ def gen(kind, output, rate, duration, params, fmt, subtype, on_clip, full_scale,
         if res.clipped:
             click.echo(f"clipped    {res.clipped} samples")
         if res.gain != 1.0:
-            click.echo(f"gain       {res.gain:.6g} (normalized; the file records the scale)")
+            click.echo(f"gain       {res.gain:.6g} ({20 * math.log10(res.gain):+.2f} dB to "
+                       f"{res.peak_dbfs + 20 * math.log10(res.gain):+.1f} dBFS; the file "
+                       f"records the scale)")
     if family == "audio":
         click.echo(AUDIO_CAUTION, err=True)

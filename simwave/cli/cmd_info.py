@@ -25,13 +25,19 @@ def format_info(d: dict) -> str:
     header = ["#", "name", "unit"]
     rows = []
     stats = d.get("stats")
+    levels = bool(stats) and any("peak_dbfs" in s for s in stats)
     if stats:
         header += ["min", "max", "mean", "RMS"]
+    if levels:
+        header += ["peak dBFS", "RMS dBFS"]
     for i, (name, unit) in enumerate(zip(d["channels"], d["units"], strict=True)):
         row = [str(i), name, unit or "-"]
         if stats:
             s = stats[i]
             row += [f"{s[k]:.6g}" for k in ("min", "max", "mean", "rms")]
+        if levels:
+            row += [f"{s[k]:+.2f}" if s.get(k) is not None else "-"
+                    for k in ("peak_dbfs", "rms_dbfs")]
         rows.append(row)
     widths = [max(len(r[j]) for r in [header] + rows) for j in range(len(header))]
     for r in [header] + rows:

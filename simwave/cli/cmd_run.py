@@ -15,21 +15,49 @@ from simwave.cli.input_options import input_options, read_options
 from simwave.cli.model_options import method_options, model_kwargs
 from simwave.cli.system_input import parse_number_list, resolve_system, system_options
 
-AUDIO_CAUTION = "Caution: audio output can be loud ({level}); start playback at low volume."
+#: The output counts as louder than the input beyond this many dB (simwave's threshold,
+#: about twice the power: a change a listener notices at once).
+LOUDER_MARGIN_DB = 3.0
 
 
-def _audio_level(write: dict) -> str:
-    """The written audio level in words: peak in dBFS, and what clipping or normalizing did."""
+def audio_level_lines(run: dict) -> tuple[str | None, str | None]:
+    """(level line for the summary, caution or None) for an audio output.
+
+    The caution appears only when the output is beyond digital full scale (it will clip
+    when converted to integer samples or played) or louder than the input by more than
+    :data:`LOUDER_MARGIN_DB`; it says by how much and names the option that helps.
+    """
     import math
 
-    gain = write.get("gain") or 1.0
-    peak = write["peak_dbfs"]
-    if gain != 1.0:
-        return (f"output peak {peak:+.1f} dBFS, normalized by {20 * math.log10(gain):+.1f} dB "
-                f"to {peak + 20 * math.log10(gain):+.1f} dBFS in the file")
+    write = run.get("write") or {}
+    peak = write.get("peak_dbfs")
+    if peak is None:
+        return None, None
+    gain_db = 20 * math.log10(write.get("gain") or 1.0)
+    in_file = peak + gain_db
+    level = f"peak {peak:+.1f} dBFS"
+    if gain_db:
+        level += f", normalized by {gain_db:+.1f} dB to {in_file:+.1f} dBFS in the file"
+    elif write.get("clipped"):
+        level += f", {write['clipped']} samples clipped to full scale"
+    out_peak = max((ch["peak"] for ch in run["channels"]), default=0.0)
+    in_peak = max((ch.get("input_peak") or 0.0 for ch in run["channels"]), default=0.0)
+    louder = (20 * math.log10(out_peak / in_peak) + gain_db
+              if in_peak > 0 and out_peak > 0 else None)
     if write.get("clipped"):
-        return f"output peak {peak:+.1f} dBFS, {write['clipped']} samples clipped to full scale"
-    return f"peak {peak:+.1f} dBFS"
+        return level, (f"Caution: the output reached {peak:+.1f} dBFS and "
+                       f"{write['clipped']} samples were clipped to full scale (audible "
+                       f"distortion); --on-clip normalize scales it to --normalize-level "
+                       f"instead. Start playback at low volume.")
+    if in_file > 0:
+        return level, (f"Caution: the output peaks at {in_file:+.1f} dBFS, {in_file:.1f} dB "
+                       f"above digital full scale: it will clip when converted to integer "
+                       f"samples or played. --on-clip normalize scales it to -1 dBFS "
+                       f"(--normalize-level sets the level). Start playback at low volume.")
+    if louder is not None and louder > LOUDER_MARGIN_DB:
+        return level, (f"Caution: the output is {louder:.1f} dB louder than the input (peak "
+                       f"{in_file:+.1f} dBFS); start playback at low volume.")
+    return level, None
 
 
 class _Progress:
@@ -72,6 +100,7 @@ SUMMARY_METRICS = [
     ("phase_deg", "phase", "deg"),
     ("predicted_phase_deg", "predicted phase", "deg"),
     ("thd_pct", "THD", "%"),
+    ("tone_gain_error_db_worst", "worst tone gain error against H(j2πf)", "dB"),
 ]
 
 
@@ -139,6 +168,9 @@ def _format_summary(result: dict) -> str:
                     f"           {name}: \u2265 marks a lower bound, \u2264 an upper bound "
                     "(see the metrics file for why)"
                 )
+    level = audio_level_lines(run)[0]
+    if level:
+        lines.append(f"level      {level}")
     lines.append(f"time       {run['elapsed_s']:.3f} s")
     return "\n".join(lines)
 
@@ -167,6 +199,9 @@ def _format_summary(result: dict) -> str:
               help="HDF5 output: compress the datasets (default: none). Sampled float data "
                    "hardly compresses: gzip saves ~10-15 % and takes ~20x the write time, lzf "
                    "~5 % at ~15x (benchmarks/bench_writers.py).")
+@click.option("--normalize-level", metavar="DBFS", default=None,
+              help="Peak level that --on-clip normalize scales a too-loud output to "
+                   "(default -1 dBFS).")
 @click.option("--keep-going", is_flag=True,
               help="Write the output even if it turns NaN/infinite (unstable system).")
 @click.option("--metrics", metavar="FILE.json", default=None,
@@ -177,8 +212,9 @@ def _format_summary(result: dict) -> str:
               help="Draw input and output with the first transition's metrics (.png or .svg).")
 @click.option("--json", "as_json", is_flag=True, help="Print the run report as JSON.")
 def run_command(source, system_spec, output, method, prewarp, match_frequency, initial,
-                initial_output, oversample, with_input, subtype, on_clip, compression, keep_going,
-                metrics, settling_band, plot_path, as_json, **reader_kwargs):
+                initial_output, oversample, with_input, subtype, on_clip, normalize_level,
+                compression, keep_going, metrics, settling_band, plot_path, as_json,
+                **reader_kwargs):
     """Run INPUT through the system and write the output.
 
     INPUT is a waveform file (WAV, FLAC, CSV, HDF5, ...) or a generated
@@ -206,6 +242,8 @@ def run_command(source, system_spec, output, method, prewarp, match_frequency, i
         write_options["on_clip"] = on_clip
     if compression is not None:
         write_options["compression"] = compression
+    if normalize_level is not None:
+        write_options["normalize_level_dbfs"] = parse_number(normalize_level, "--normalize-level")
     measure_options = {}
     if settling_band is not None:
         measure_options["settling_band_pct"] = parse_number(settling_band, "--settling-band")
@@ -254,6 +292,6 @@ def run_command(source, system_spec, output, method, prewarp, match_frequency, i
         if text not in shown:
             shown.add(text)
             click.echo(f"Warning: {text}", err=True)
-    write = result["run"].get("write") or {}
-    if write.get("peak_dbfs") is not None:
-        click.echo(AUDIO_CAUTION.format(level=_audio_level(write)), err=True)
+    caution = audio_level_lines(result["run"])[1]
+    if caution:
+        click.echo(caution, err=True)

@@ -33,6 +33,8 @@ from simwave.signals.stream import Rows, sample_places
 
 #: Bits of the PCM subtypes quantized here.
 PCM_BITS = {"PCM_S8": 8, "PCM_U8": 8, "PCM_16": 16, "PCM_24": 24, "PCM_32": 32}
+#: Peak level, in dBFS, that on_clip='normalize' scales a too-loud record to.
+NORMALIZE_LEVEL_DBFS = -1.0
 #: Subtypes that hold values beyond full scale unharmed.
 FLOAT_SUBTYPES = {"FLOAT", "DOUBLE"}
 #: Largest magnitude a FLOAT (IEEE 754 binary32) sample holds; beyond it the value is stored
@@ -59,6 +61,48 @@ def _truncation(info_text: str) -> str | None:
     return None
 
 
+#: WAVE_FORMAT_EXTENSIBLE speaker-position bits, lowest first (Microsoft,
+#: "WAVEFORMATEXTENSIBLE", dwChannelMask; quoted from memory).
+_SPEAKERS = ("left", "right", "center", "lfe", "back-left", "back-right", "front-left-of-center",
+             "front-right-of-center", "back-center", "side-left", "side-right")
+#: Formats whose specification fixes the order of two channels as left, right (RIFF WAVE,
+#: Microsoft/IBM 1991; FLAC format specification, channel assignment; AIFF 1.3, Apple
+#: 1989; from memory).
+_STEREO_LR = ("WAV", "WAVEX", "RF64", "W64", "FLAC", "AIFF")
+
+
+def speaker_names(path: str, audio_format: str, n_channels: int) -> list[str] | None:
+    """Channel names where the file says which speaker each channel feeds: the channel mask
+    of a WAVE_FORMAT_EXTENSIBLE header, or two channels of a format whose specification
+    orders stereo as left, right. None otherwise."""
+    if audio_format in ("WAV", "WAVEX", "RF64"):
+        mask = _wav_channel_mask(path)
+        if mask:
+            names = [name for bit, name in enumerate(_SPEAKERS) if mask >> bit & 1]
+            if len(names) == n_channels:
+                return names
+    if n_channels == 2 and audio_format in _STEREO_LR:
+        return ["left", "right"]
+    return None
+
+
+def _wav_channel_mask(path: str) -> int | None:
+    """dwChannelMask of an extensible 'fmt ' chunk (format tag 0xFFFE), else None."""
+    try:
+        with open(path, "rb") as fh:
+            head = fh.read(4096)
+    except OSError:
+        return None
+    at = head.find(b"fmt ", 12)
+    if at < 0 or len(head) < at + 8 + 24:
+        return None
+    size = int.from_bytes(head[at + 4:at + 8], "little")
+    body = head[at + 8:at + 8 + size]
+    if size < 24 or int.from_bytes(body[0:2], "little") != 0xFFFE:
+        return None
+    return int.from_bytes(body[20:24], "little")
+
+
 class AudioSource:
     """Streaming reader of one audio file (see module docs for scaling)."""
 
@@ -82,9 +126,10 @@ class AudioSource:
         self.n_samples = int(self.f.frames)
         nch = int(self.f.channels)
         meta = self._metadata()
-        self.channels = list(meta.get("channels") or [f"ch{i}" for i in range(nch)])
+        default = speaker_names(path, self.format, nch) or [f"ch{i}" for i in range(nch)]
+        self.channels = list(meta.get("channels") or default)
         if len(self.channels) != nch:
-            self.channels = [f"ch{i}" for i in range(nch)]
+            self.channels = default
         self.t0 = float(meta.get("t0", 0.0))
         self.attrs: dict[str, Any] = dict(meta.get("attrs") or {})
         meta_units = meta.get("units")
@@ -193,7 +238,13 @@ class AudioSink:
     subtype : str, optional
         Default FLOAT where available (values beyond full scale kept).
     on_clip : {"error", "clip", "normalize"}
-        What to do when an integer-coded subtype would clip (|x| > 1).
+        What to do when an integer-coded subtype would clip (|x| > 1). ``normalize``
+        scales the whole record so that its peak is ``normalize_level_dbfs``, for
+        float subtypes too when the peak exceeds full scale.
+    normalize_level_dbfs : float
+        Peak level that ``normalize`` scales to, in dB relative to full scale
+        (default -1: 1 dB of headroom, common practice for files that will be
+        converted or encoded).
     full_scale, offset : float or list, optional
         ``sample = (value - offset) / full_scale`` per channel.
     peak_hint : float, optional
@@ -203,7 +254,8 @@ class AudioSink:
     def __init__(self, tmp: str, audio_format: str, rate: float, channels: list[str],
                  units: list[str], t0: float, attrs: dict[str, Any], *, subtype: str | None = None,
                  on_clip: str = "error", full_scale: Any = None, offset: Any = None,
-                 peak_hint: float | None = None, target: str | None = None) -> None:
+                 peak_hint: float | None = None, target: str | None = None,
+                 normalize_level_dbfs: float = NORMALIZE_LEVEL_DBFS) -> None:
         self.where = target or tmp
         if abs(rate - round(rate)) > 1e-9 * rate:
             raise WaveformError(
@@ -223,6 +275,11 @@ class AudioSink:
         if on_clip not in ("error", "clip", "normalize"):
             raise WaveformError(f"on_clip must be 'error', 'clip' or 'normalize', got {on_clip!r}")
         self.on_clip = on_clip
+        level = float(normalize_level_dbfs)
+        if not (math.isfinite(level) and level <= 0):
+            raise WaveformError(f"{self.where}: --normalize-level must be <= 0 dBFS, got "
+                                f"{normalize_level_dbfs!r}")
+        self.normalize_to = 10.0 ** (level / 20.0)
         self.bounded = self.subtype not in FLOAT_SUBTYPES
         # The largest sample magnitude the subtype holds: full scale for integer codes, the
         # binary32 range for FLOAT (beyond it a value would be written as infinite).
@@ -243,7 +300,7 @@ class AudioSink:
         self.gain = 1.0
         self.spool = None
         self.f = None
-        if math.isfinite(self.limit) and on_clip == "normalize":
+        if on_clip == "normalize":
             if peak_hint is None:
                 # peak unknown until the end: keep float64 samples in a spool file beside
                 # the target, scale and encode them in a second pass on close
@@ -305,18 +362,16 @@ class AudioSink:
         self.count += x.shape[0]
 
     def _normalizing_gain(self, peak: float) -> float:
-        """Gain of ``on_clip='normalize'``: peak to full scale (integer codes), or into the
-        binary32 range when the peak is beyond it (FLOAT; otherwise unchanged)."""
-        if not peak > 0:
+        """Gain of ``on_clip='normalize'``: a peak beyond full scale is scaled to the
+        normalize level (1.0 otherwise: a record that fits is left as it is)."""
+        if not peak > 1.0:
             return 1.0
-        if self.bounded:
-            return 1.0 / peak
-        return min(1.0, self.limit / peak)
+        return self.normalize_to / peak
 
     def _encode(self, x: np.ndarray) -> None:
+        if self.gain != 1.0:
+            x = x * self.gain
         if math.isfinite(self.limit):
-            if self.gain != 1.0:
-                x = x * self.gain
             over = np.abs(x) > self.limit
             if over.any():
                 if self.on_clip == "error":
@@ -326,10 +381,11 @@ class AudioSink:
                           f"channel {self.channels[c]!r}")
                     if self.bounded:
                         raise WaveformError(
-                            f"{self.where}: {at} exceeds full scale (peak so far "
-                            f"{dbfs(self.peak):+.2f} dBFS) for {self.subtype}; choose "
-                            f"on_clip='clip' or 'normalize' (--on-clip), a float subtype, "
-                            f"or a larger full_scale"
+                            f"{self.where}: {at} exceeds digital full scale (peak so far "
+                            f"{dbfs(self.peak):+.2f} dBFS, {dbfs(self.peak):.2f} dB over) for "
+                            f"{self.subtype}; give --on-clip normalize (scales the peak to "
+                            f"--normalize-level, default {NORMALIZE_LEVEL_DBFS:g} dBFS) or "
+                            f"--on-clip clip, or write floats (--subtype FLOAT)"
                         )
                     raise WaveformError(
                         f"{self.where}: {at} is {x[i, c]:.6g}, beyond the range of 32-bit "

@@ -434,10 +434,16 @@ def info(path: Any, *, stats: bool = False, **opts: Any) -> WaveformInfo:
         notes = list(src.notes)
         for k, v in pipe.counts().items():
             notes.append(f"{k.replace('_', ' ')}: {v}")
+        result = acc.result() if acc else None
+        if result and src.family == "audio":  # levels of full-scale samples in dBFS
+            for s, unit in zip(result, pipe.units, strict=True):
+                if unit == "FS":
+                    s["peak_dbfs"] = dbfs(max(abs(s["min"]), abs(s["max"])))
+                    s["rms_dbfs"] = dbfs(s["rms"])
         return WaveformInfo(
             src.path, src.format, src.subtype, src.rate, n, len(pipe.sel), pipe.channels,
             pipe.units, src.t0, n / src.rate, pipe.attrs(), getattr(src, "dataset", None),
-            acc.result() if acc else None, notes,
+            result, notes,
         )
 
 
@@ -481,7 +487,8 @@ class WaveformWriter:
                  mode: str = "create", subtype: str | None = None, on_clip: str = "error",
                  full_scale: Any = None, offset: Any = None, compression: str | None = None,
                  dtype: str = "float64", delimiter: str = ",", time_column: bool = True,
-                 peak_hint: float | None = None) -> None:
+                 peak_hint: float | None = None,
+                 normalize_level_dbfs: float | None = None) -> None:
         path = os.fspath(path)
         self.path = path
         r = _positive_rate(rate, path)
@@ -500,6 +507,7 @@ class WaveformWriter:
 
         if self.family != "audio":
             only("audio", subtype=(subtype, None), on_clip=(on_clip, "error"),
+                 normalize_level_dbfs=(normalize_level_dbfs, None),
                  full_scale=(full_scale, None), offset=(offset, None))
         if self.family != "hdf5":
             only("HDF5", dataset=(dataset, None), mode=(mode, "create"))
@@ -517,7 +525,9 @@ class WaveformWriter:
                 self.sink = AudioSink(self.target.tmp, audio_format, r, names, unit_list, t0,
                                       main["attrs"], subtype=subtype, on_clip=on_clip,
                                       full_scale=full_scale, offset=offset, peak_hint=peak_hint,
-                                      target=path)
+                                      target=path, **({} if normalize_level_dbfs is None else
+                                                      {"normalize_level_dbfs":
+                                                       normalize_level_dbfs}))
             elif self.family == "csv":
                 from simwave.signals.csvfile import CsvSink
 
@@ -673,7 +683,9 @@ def open_writer(path: Any, rate: Any, channels: Any, units: Sequence[str] | None
             ``"FLOAT"`` (default where possible), ``"DOUBLE"``, ``"PCM_16"``,
             ``"PCM_24"``, ``"PCM_32"``, ``"PCM_U8"``, ``"ULAW"``, ``"ALAW"``, ...
         on_clip : {"error", "clip", "normalize"} (audio)
-            For integer-coded subtypes when |sample| > 1 after scaling.
+            For integer-coded subtypes when |sample| > 1 after scaling; ``normalize``
+            scales a record whose peak is beyond full scale (float subtypes too) to
+            ``normalize_level_dbfs`` (default -1 dBFS) and reports the gain.
         full_scale, offset : float or list (audio)
             ``sample = (value - offset) / full_scale``; stored so read() scales back.
         delimiter : str, time_column : bool (CSV)
