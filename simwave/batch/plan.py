@@ -391,7 +391,25 @@ def build_system(definition: tuple):
 
     if definition[0] == "text":
         return System.parse(definition[1])
+    if definition[0] == "design":
+        from simwave.cli.system_input import parse_design_text
+
+        return parse_design_text(definition[1])
     return system_from_mapping(definition[1], where=definition[2])
+
+
+#: ``NAME=SYSTEM`` on the command line: a plain name, then the system text.
+_NAMED = re.compile(r"^\s*([A-Za-z][A-Za-z0-9._-]*)\s*=(?!=)\s*(\S.*)$", re.S)
+
+
+def split_name(text: str) -> tuple[str | None, str]:
+    """``"lp=1/(s+1)"`` -> ``("lp", "1/(s+1)")``; text without a leading ``NAME=`` ->
+    ``(None, text)``. ODE text (``y'' + y = x``) has no plain name before its ``=``;
+    ``y`` and ``x`` alone are never taken as names."""
+    m = _NAMED.match(text)
+    if not m or m.group(1) in ("y", "x"):
+        return None, text
+    return m.group(1), m.group(2).strip()
 
 
 def _limits(table: Any, where_of, path: Sequence[str | int]) -> dict[str, tuple]:
@@ -849,15 +867,19 @@ def quick_plan(systems: Sequence[str], inputs: Sequence[str], output_dir: str, *
                method: str | None = None, output_format: str = "same",
                rate: Any = None, channels: Any = None,
                read_options: Mapping[str, Any] | None = None, name_template: str = DEFAULT_NAME,
-               measure_options: Mapping[str, Any] | None = None) -> BatchPlan:
+               measure_options: Mapping[str, Any] | None = None,
+               designs: Sequence[str] = ()) -> BatchPlan:
     """The plan of the command-line quick form ``simwave batch -s SYS ... INPUTS -o DIR``.
 
     Parameters
     ----------
     systems : sequence of str
-        Each an H(s) or ODE text, or a system file (``.toml``), as ``-s`` of ``simwave run``.
-        Names (in output names and the summary): the file's stem; ``system1``,
-        ``system2``, ... for texts (by position).
+        Each an H(s) or ODE text, or a system file (``.toml``), as ``-s`` of ``simwave run``,
+        optionally ``NAME=`` first. Names (in output names and the summary): that NAME;
+        else the file's stem; ``system1``, ``system2``, ... for texts (by position).
+    designs : sequence of str
+        Analog designs as ``--design`` texts (``[NAME=]butterworth lowpass order=4
+        cutoff_hz=1k``), numbered after the ``systems``.
     inputs : sequence of str
         Paths, globs and generated-signal texts (relative to the current directory).
     output_dir : str
@@ -867,13 +889,25 @@ def quick_plan(systems: Sequence[str], inputs: Sequence[str], output_dir: str, *
     """
     from simwave.model.system import System
 
-    if not systems:
-        raise BatchError("give at least one system with -s")
+    if not systems and not designs:
+        raise BatchError("give at least one system with -s or --design")
     entries = []
     opts = run_options({"method": method} if method else {}, lambda key: "--method")
     names: dict[str, str] = {}
-    for i, text in enumerate(systems):
-        if text.strip().lower().endswith(".toml"):
+    given = [("-s", t) for t in systems] + [("--design", t) for t in designs]
+    for i, (flag, raw) in enumerate(given):
+        own_name, text = split_name(raw)
+        if flag == "--design":
+            from simwave.cli.system_input import parse_design_text
+
+            try:
+                parse_design_text(text)
+            except SimwaveError as exc:
+                raise BatchError(f"--design {text!r}: {exc}") from None
+            name = f"system{i + 1}"
+            definition = ("design", text)
+            def_file = None
+        elif text.strip().lower().endswith(".toml"):
             table = system_file_table(text.strip())
             name = _safe_stem(os.path.splitext(os.path.basename(text.strip()))[0])
             definition: tuple = ("table", table, text.strip())
@@ -886,9 +920,11 @@ def quick_plan(systems: Sequence[str], inputs: Sequence[str], output_dir: str, *
             name = f"system{i + 1}"
             definition = ("text", text)
             def_file = None
+        if own_name is not None:
+            name = _safe_stem(own_name)
         if name in names:
             raise BatchError(f"two systems are named {name!r} ({names[name]} and {text}); "
-                             "rename one of the files")
+                             "name them with NAME=SYSTEM")
         names[name] = text
         entries.append(SystemEntry(name, definition, opts, {}, def_file))
     table: dict[str, Any] = {"files": []}

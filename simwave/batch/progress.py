@@ -7,6 +7,10 @@ import time
 from typing import TextIO
 
 
+#: No rate or time left is shown before this much time has passed.
+ESTIMATE_AFTER_S = 2.0
+
+
 class BatchProgress:
     """A single self-overwriting status line, drawn only when ``stream`` is a terminal.
 
@@ -44,12 +48,16 @@ class BatchProgress:
         frac = self.done / self.total if self.total else 1.0
         filled = int(round(frac * self.width))
         bar = "#" * filled + "-" * (self.width - filled)
-        elapsed = max(now - self.started, 1e-9)
-        rate = self.done / elapsed
-        left = (self.total - self.done) / rate if rate > 0 else None
-        eta = f", {left:.0f} s left" if left is not None and self.done < self.total else ""
-        text = (f"[{bar}] {self.done}/{self.total} pairs, {self.failed} failed, "
-                f"{rate:.1f} pairs/s{eta}")
+        elapsed = now - self.started
+        if elapsed < ESTIMATE_AFTER_S or self.done == 0:
+            # too little seen to extrapolate: the first pairs finish in a burst
+            speed = ", estimating time left"
+        else:
+            rate = self.done / elapsed
+            left = (self.total - self.done) / rate
+            speed = f", {rate:.1f} pairs/s" + (f", {left:.0f} s left"
+                                                if self.done < self.total else "")
+        text = f"[{bar}] {self.done}/{self.total} pairs, {self.failed} failed{speed}"
         self.stream.write("\r" + text + "\033[K")
         self.stream.flush()
         self._drawn = True

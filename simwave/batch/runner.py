@@ -38,6 +38,8 @@ from simwave.errors import BatchError
 
 #: Exit codes of ``simwave batch``.
 EXIT_OK, EXIT_FAILED, EXIT_INTERRUPTED = 0, 1, 130
+#: Every pair ran, and some result is outside its tolerance bands ([limits]).
+EXIT_LIMITS = 3
 
 
 @dataclass
@@ -68,10 +70,25 @@ class BatchResult:
 
     @property
     def exit_code(self) -> int:
-        """0 all pairs ok, 1 some failed, 130 interrupted."""
+        """0 all pairs ok and within their limits, 1 some failed, 3 every pair ran but some
+        result is outside its tolerance bands, 130 interrupted."""
         if self.interrupted:
             return EXIT_INTERRUPTED
-        return EXIT_OK if self.counts["failed"] == 0 else EXIT_FAILED
+        if self.counts["failed"]:
+            return EXIT_FAILED
+        return EXIT_LIMITS if self.outside_limits else EXIT_OK
+
+    @property
+    def outside_limits(self) -> int:
+        """Pairs with a result outside its tolerance bands."""
+        return len({(r["input"], r["system"]) for r in self.rows
+                    if str(r.get("limits") or "").startswith("fail")})
+
+    @property
+    def warning_counts(self) -> tuple[int, int]:
+        """(warnings recorded, pairs that recorded any): model and reader warnings."""
+        lists = [r.get("warnings") or [] for r in self.results.values()]
+        return sum(len(w) for w in lists), sum(1 for w in lists if w)
 
 
 # ----------------------------------------------------------------------------- journal

@@ -78,7 +78,9 @@ def pair_rows(plan: BatchPlan, pair: Pair, result: Mapping[str, Any] | None,
     met_rel = os.path.relpath(pair.metrics, plan.output_dir)
     base = {c: None for c in BASE_COLUMNS}
     base.update({m: None for m in mcols})
-    base.update(input=pair.input.label, system=pair.system.name, channel=None)
+    # a generated signal is known by its name; its text is in the output's provenance
+    name = pair.input.label if pair.input.is_file else pair.input.stem
+    base.update(input=name, system=pair.system.name, channel=None)
     if result is None:
         base.update(status="not run", reused=False, limits="")
         return [base]
@@ -181,6 +183,7 @@ def compare_systems(plan: BatchPlan, rows: Sequence[Mapping[str, Any]]) -> dict[
             "flags": sum(int(r.get("flags") or 0) for r in ok_rows),
             "limit_failures": sum(1 for r in ok_rows
                                   if str(r.get("limits") or "").startswith("fail")),
+            "limits_set": bool(plan.limits or system.limits),
         }
         for key, _, col, how in COMPARISON:
             best = None
@@ -235,7 +238,10 @@ def format_comparison(comparison: Mapping[str, Any], max_width: int = 44) -> str
         line(label, cells)
     line("channels never settled", [str(comparison[n]["not_settled"]) for n in names])
     line("differences from H(s) flagged", [str(comparison[n]["flags"]) for n in names])
-    line("outside tolerance bands", [str(comparison[n]["limit_failures"]) for n in names])
+    if any(comparison[n].get("limits_set", True) for n in names):  # only where limits are set
+        line("outside tolerance bands",
+             [str(comparison[n]["limit_failures"]) if comparison[n].get("limits_set", True)
+              else "no limits" for n in names])
     widths = [min(max_width, max([len(n)] + [len(cells[i]) for _, cells in table]) + 2)
               for i, n in enumerate(names)]
 

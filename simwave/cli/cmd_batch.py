@@ -22,10 +22,13 @@ _QUICK_ONLY = {"method": "--method", "output_format": "--format", "name_template
 
 @main.command("batch")
 @click.argument("items", nargs=-1, metavar="DESCRIPTION.toml | INPUTS...")
-@click.option("-s", "--system", "systems", multiple=True, metavar="TEXT|FILE.toml",
+@click.option("-s", "--system", "systems", multiple=True, metavar="[NAME=]TEXT|FILE.toml",
               help="Quick form: a candidate system (H(s) text, ODE text or a TOML system "
-                   "file); repeat for each candidate. INPUTS are then files, globs or "
-                   "generated-signal texts.")
+                   "file), optionally named, e.g. -s 'rc=2*pi*100/(s+2*pi*100)'; repeat for "
+                   "each candidate. INPUTS are then files, globs or generated-signal texts.")
+@click.option("--design", "designs", multiple=True, metavar="[NAME=]TEXT",
+              help="Quick form: a candidate analog design, e.g. --design 'bw4=butterworth "
+                   "lowpass order=4 cutoff_hz=1k'; repeatable, with or without -s.")
 @click.option("-o", "--output-dir", metavar="DIR", default=None,
               help="Where outputs, metrics and the summary go (required in the quick form; "
                    "overrides [output] dir of a description).")
@@ -48,30 +51,44 @@ _QUICK_ONLY = {"method": "--method", "output_format": "--format", "name_template
 @click.option("--settling-band", metavar="PCT", default=None,
               help="Quick form: settling tolerance band in percent of the transition (default 2).")
 @input_options
+@click.option("--plot", "plot_path", metavar="FILE", default=None,
+              help="Also draw the per-system comparison (worst overshoot and longest settling "
+                   "time per input) to FILE (.png or .svg).")
 @click.option("--json", "as_json", is_flag=True,
               help="Print the counts, summary paths and per-system comparison as JSON.")
-def batch_command(items, systems, output_dir, jobs, scheduler, connect_timeout, force,
-                  method, output_format, name_template, settling_band, as_json, **kwargs):
+def batch_command(items, systems, designs, output_dir, jobs, scheduler, connect_timeout, force,
+                  method, output_format, name_template, settling_band, plot_path, as_json,
+                  **kwargs):
     """Run every input through every candidate system; write outputs, metrics and a summary.
 
     \b
     simwave batch campaign.toml
     simwave batch -s lp4.toml -s rc.toml 'recordings/*.wav' -o results
 
-    Exit code 0 when every pair succeeded, 1 when some failed (listed in the
-    summary), 2 for bad input (nothing written), 130 when interrupted (finished
-    outputs stay; run the same command again to resume).
+    Exit code 0 when every pair succeeded (and is within its [limits]), 1 when
+    some failed (listed in the summary), 3 when every pair ran but some result is
+    outside its tolerance bands, 2 for bad input (nothing written), 130 when
+    interrupted (finished outputs stay; run the same command again to resume).
     """
     from simwave.batch import format_comparison, load_description, quick_plan, run_batch
     from simwave.model.parse import parse_number
 
     reader = read_options(kwargs)
+    if plot_path is not None:
+        import os
+
+        from simwave.plots import check_plot_path
+
+        # before any work: a bad name fails at once (the output folder may not exist yet)
+        folder = os.path.dirname(os.path.abspath(plot_path))
+        if output_dir is None or folder != os.path.abspath(output_dir):
+            check_plot_path(plot_path)
     timeout = None
     if connect_timeout is not None:
         timeout = parse_number(connect_timeout, "--connect-timeout")
         if not timeout > 0:
             raise BatchError(f"--connect-timeout must be > 0 seconds, got {connect_timeout}")
-    if systems:
+    if systems or designs:
         if output_dir is None:
             raise BatchError("the quick form needs -o DIR for the outputs")
         if not items:
@@ -88,7 +105,7 @@ def batch_command(items, systems, output_dir, jobs, scheduler, connect_timeout, 
                               output_format=output_format or "same", rate=rate,
                               channels=channels, read_options=reader,
                               name_template=name_template or DEFAULT_NAME,
-                              measure_options=measure)
+                              measure_options=measure, designs=list(designs))
     else:
         if len(items) != 1:
             raise BatchError("give one batch description (FILE.toml), or candidate systems "
@@ -136,10 +153,22 @@ def batch_command(items, systems, output_dir, jobs, scheduler, connect_timeout, 
                    f"{c['not_run']} not run; {c['reused']} reused from an earlier run, "
                    f"{c['ran']} run now ({result.engine}) in {result.elapsed_s:.2f} s")
         click.echo(f"summary: {result.summary_csv}, {result.summary_json}")
+        n_warn, n_pairs = result.warning_counts
+        if n_warn:
+            click.echo(f"warnings: {n_warn} from {n_pairs} pair(s), model and reader (see the "
+                       f"summary's warnings column)")
+        if result.outside_limits:
+            click.echo(f"limits: {result.outside_limits} pair(s) outside their tolerance bands "
+                       f"(exit code 3; see the summary's limits column)")
         table = format_comparison(result.comparison)
         if table:
             click.echo("\nPer-system comparison (worst case across inputs, pairs that ran ok):")
             click.echo(table)
+    if plot_path is not None and c["ok"]:
+        from simwave.plots import check_plot_path, plot_batch
+
+        plot_batch(result.summary_json, check_plot_path(plot_path))
+        click.echo(f"plot written to {plot_path}", err=True)
     if result.interrupted:
         click.echo(f"Interrupted: {c['not_run']} of {c['pairs']} pairs not run; run the same "
                    "command again to resume.", err=True)
