@@ -44,7 +44,8 @@ def test_quick_form_all_ok(tmp_path):
     assert sum(n.endswith(".csv") and n != "summary.csv" for n in names) == 4
     with open(out / "summary.json") as fh:
         doc = json.load(fh)
-    step = next(r for r in doc["rows"] if r["input"].startswith("step") and r["system"] == "system2")
+    step = next(r for r in doc["rows"]
+                if r["input"].startswith("step") and r["system"] == "system2")
     # At 2 kHz the sampled peak can fall up to half a sample from the true one: allow
     # 0.5 percentage point and one sample period.
     assert abs(step["overshoot_pct_worst"] - OVERSHOOT_PCT) < 0.5
@@ -57,7 +58,8 @@ def test_quick_form_all_ok(tmp_path):
     assert worst >= step["overshoot_pct_worst"]
     # First order: a step does not overshoot (Ogata, sec. 5-2); the state levels of a
     # 50 ms record leave a small measured value at most.
-    step1 = next(r for r in doc["rows"] if r["input"].startswith("step") and r["system"] == "system1")
+    step1 = next(r for r in doc["rows"]
+                 if r["input"].startswith("step") and r["system"] == "system1")
     assert step1["overshoot_pct_worst"] < 0.5
     line = next(ln for ln in result.output.splitlines() if ln.startswith("overshoot, worst"))
     assert f"{worst:.4g}" in line
