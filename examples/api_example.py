@@ -1,6 +1,9 @@
 """simwave from Python: run a recorded step through a front-end model, measure it, plot it.
 
-    python examples/api_example.py [OUTPUT_DIR]      (default: ./api-example-output)
+    python examples/api_example.py [OUTPUT_DIR]   (default: a new temporary folder)
+
+Nothing is written into the repository: without OUTPUT_DIR the files go to a fresh
+temporary folder, whose name is printed at the end.
 
 The recording (waveforms/strain-step.csv) and the front end
 (examples/strain_gauge_front_end.toml) are invented examples.
@@ -8,13 +11,17 @@ The recording (waveforms/strain-step.csv) and the front end
 
 import os
 import sys
+import tempfile
 
 import simwave
 from simwave.plots import plot_frequency, plot_run
 
 HERE = os.path.dirname(os.path.abspath(__file__))
-out_dir = sys.argv[1] if len(sys.argv) > 1 else "api-example-output"
-os.makedirs(out_dir, exist_ok=True)
+if len(sys.argv) > 1:
+    out_dir = sys.argv[1]
+    os.makedirs(out_dir, exist_ok=True)
+else:
+    out_dir = tempfile.mkdtemp(prefix="simwave-api-example-")
 
 # 1. the proposed system and a real-looking input
 front_end = simwave.System.from_file(os.path.join(HERE, "strain_gauge_front_end.toml"))

@@ -3,8 +3,11 @@
 from __future__ import annotations
 
 import glob
+import json
 import os
+import pathlib
 import re
+import shutil
 import subprocess
 import sys
 
@@ -24,11 +27,14 @@ SYSTEM_FILES = sorted(
 )
 
 
-def test_api_example_runs_as_written(tmp_path):
+def test_api_example_runs_as_written(tmp_path, request):
     proc = subprocess.run([sys.executable, os.path.join(EXAMPLES, "api_example.py")],
                           cwd=tmp_path, capture_output=True, text=True, timeout=120)
     assert proc.returncode == 0, proc.stderr
-    out_dir = tmp_path / "api-example-output"
+    assert os.listdir(tmp_path) == []  # nothing written where it ran
+    out_dir = re.search(r"^wrote (.+)/strain-step-amplified\.csv", proc.stdout, re.M).group(1)
+    out_dir = pathlib.Path(out_dir)
+    request.addfinalizer(lambda: shutil.rmtree(out_dir, ignore_errors=True))
     for name in ("strain-step-amplified.csv", "strain-step.png", "strain-front-end.png"):
         assert (out_dir / name).stat().st_size > 0
     # the front end's DC gain is 100 (examples/strain_gauge_front_end.toml): the measured
@@ -68,8 +74,11 @@ def test_batch_example_runs(tmp_path):
         pytest.skip("examples/batch.toml is not written yet (the batch work adds it)")
     result = CliRunner().invoke(main, ["batch", description, "-o", str(tmp_path / "out"),
                                        "-j", "1"])
-    assert result.exit_code == 0, result.output
-    assert (tmp_path / "out" / "summary.csv").is_file()
+    doc = json.loads((tmp_path / "out" / "summary.json").read_text(encoding="utf-8"))
+    assert all(r["status"] == "ok" for r in doc["rows"])
+    outside = any(str(r["limits"]).startswith("fail") for r in doc["rows"])
+    # exit code 3 exactly when a result is outside its tolerance bands (README, Batch)
+    assert result.exit_code == (3 if outside else 0), result.output
 
 
 def test_waveforms_are_what_the_script_makes(tmp_path):
