@@ -27,7 +27,9 @@ _UNIT_OF_METAVAR = {"HZ": "hz", "PCT": "pct", "DB": "db", "S": "s", "SECONDS": "
 def _options():
     """(command, long spelling, option) for every option of every command."""
     out = []
-    for name, cmd in sorted(main.commands.items()):
+    ctx = click.Context(main)
+    for name in sorted(main.list_commands(ctx)):
+        cmd = main.get_command(ctx, name)
         for p in cmd.params:
             if isinstance(p, click.Option):
                 spelling = max(p.opts, key=len)
@@ -40,7 +42,8 @@ def _value_kind(opt):
         return "flag"
     if isinstance(opt.type, click.Choice):
         return "choice:" + ",".join(opt.type.choices)
-    return (opt.metavar or opt.type.name).upper()
+    # batch's -s also takes a name first ([NAME=]TEXT): the same kind of value
+    return (opt.metavar or opt.type.name).upper().replace("[NAME=]", "")
 
 
 def _unit(name, opt=None):

@@ -9,7 +9,6 @@ import click
 
 from simwave.cli.app import main
 from simwave.cli.renamed import renamed_option
-from simwave.model.parse import parse_number
 from simwave.errors import WaveformError
 
 AUDIO_CAUTION = (
@@ -105,6 +104,8 @@ def gen(kind, output, rate, duration, params, fmt, subtype, on_clip, normalize_l
     if on_clip != "error":
         opts["on_clip"] = on_clip
     if normalize_level is not None:
+        from simwave.model.parse import parse_number
+
         opts["normalize_level_dbfs"] = parse_number(normalize_level, "--normalize-level")
     if full_scale is not None:
         opts["full_scale"] = full_scale
