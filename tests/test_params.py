@@ -184,3 +184,18 @@ def test_suffixed_numbers_are_the_nearest_double(text, decimal):
     mant, _, exp = decimal.rpartition("e")
     expect = float(Decimal(mant) * Decimal(10) ** int(exp)) if "e" in mant else float(decimal)
     assert parse_number(text) == expect
+
+
+def test_batch_systems_take_parameters(tmp_path):
+    from simwave.batch import load_description
+    from simwave.batch.plan import build_system
+
+    desc = tmp_path / "b.toml"
+    desc.write_text('[systems.rc]\nexpression = "1/(R*C*s + 1)"\n'
+                    'parameters = { R = "10k ±1%", C = "100n" }\n'
+                    '[[inputs]]\nsignal = "step:rate=10k,duration=10m,time=1m"\nname = "step"\n',
+                    encoding="utf-8")
+    plan = load_description(str(desc))
+    system = build_system(plan.systems[0].definition)
+    assert system.poles[0] == pytest.approx(-1 / (10e3 * 100e-9), rel=1e-14)
+    assert system.parameters["R"].tolerance.amount == 0.01
