@@ -205,7 +205,7 @@ def test_a_file_matched_twice_is_one_input(campaign):
     # With different reader options it is two inputs, and their outputs would collide.
     message = _error(write('[systems.a]\nexpression = "1/(s+1)"\n[[inputs]]\n'
                            'files = ["data/*.csv"]\n[[inputs]]\nfiles = "data/r1.csv"\n'
-                           'rate = "1k"\n'))
+                           'rate_hz = "1k"\n'))
     assert "duplicate output name r1__a" in message
 
 
