@@ -105,3 +105,20 @@ class WriteBehind:
         self._thread.join()
         if self._error is not None:
             raise self._error
+
+
+class WriteNow:
+    """The same interface as :class:`WriteBehind`, writing on the caller's thread.
+
+    For a run of one block, where starting a thread and handing the block over
+    costs more than the overlap can save.
+    """
+
+    def __init__(self, write: Callable[[T], None]) -> None:
+        self._write = write
+
+    def submit(self, item: T) -> None:
+        self._write(item)
+
+    def close(self) -> None:
+        pass

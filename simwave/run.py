@@ -27,7 +27,7 @@ import simwave
 from simwave.errors import SimwaveError
 from simwave.model.system import System
 from simwave.oversample import Decimator, Upsampler
-from simwave.pipeline import WriteBehind, read_ahead
+from simwave.pipeline import WriteBehind, WriteNow, read_ahead
 from simwave.signals.waveform import Waveform, as_waveform
 
 #: Samples per block: large enough that per-block overhead is negligible,
@@ -491,18 +491,22 @@ def simulate(
 
     meter = _LevelMeter(src.n_channels)
     pieces: list[np.ndarray] = []
-    sink = _Sink(output, src, provenance, write_options, include_input, keep_going, meter, pieces)
+    sink = _Sink(output, src, provenance, write_options, include_input, keep_going, meter, pieces,
+                 block_size)
     state = None
     n_in = 0
     in_peak = np.zeros(src.n_channels)
     try:
         up = Upsampler(factor, hold=(method == "step-invariant")) if factor > 1 else None
         dec: Decimator | None = None
-        # Files are read ahead on a thread; data already in memory needs no thread.
-        if src.waveform is None:
-            blocks_in = read_ahead(src.make_blocks(block_size))
-        else:  # already in memory: one block, no copies
+        # Files are read ahead on a thread; data already in memory needs no thread, nor
+        # does a file of one block (see _Sink).
+        if src.waveform is not None:  # already in memory: one block, no copies
             blocks_in = src.make_blocks(max(1, src.waveform.n_samples))
+        elif sink.overlap:
+            blocks_in = read_ahead(src.make_blocks(block_size))
+        else:
+            blocks_in = src.make_blocks(block_size)
         for block in blocks_in:
             block = np.asarray(block, dtype=np.float64)
             if block.ndim == 1:
@@ -607,7 +611,7 @@ class _Sink:
     """Where output blocks go: checks, level meter, then a file writer (behind) or memory."""
 
     def __init__(self, output, src, provenance, write_options, include_input, keep_going, meter,
-                 pieces) -> None:
+                 pieces, block_size: int = DEFAULT_BLOCK) -> None:
         self.src = src
         self.keep_going = keep_going
         self.meter = meter
@@ -617,14 +621,20 @@ class _Sink:
         self.write_result = None
         self._pending_input: list[np.ndarray] = []
         self._writer = None
-        self._behind: WriteBehind | None = None
+        self._behind: WriteBehind | WriteNow | None = None
+        # A file whose header says it fits in one block is read and written on this
+        # thread: the two pipeline threads cost ~2-4 ms to start and hand over, which is
+        # most of a short batch pair, and one block has nothing to overlap.
+        self.overlap = src.waveform is None and not (
+            src.n_samples is not None and src.n_samples <= block_size)
         if output is not None:
             self._writer = _open_output(output, src, provenance, write_options, include_input)
             writer = self._writer
+            stage = WriteBehind if self.overlap else WriteNow
             if include_input:
-                self._behind = WriteBehind(lambda pair: writer.write(pair[0], {"input": pair[1]}))
+                self._behind = stage(lambda pair: writer.write(pair[0], {"input": pair[1]}))
             else:
-                self._behind = WriteBehind(writer.write)
+                self._behind = stage(writer.write)
 
     def emit(self, out: np.ndarray, inp: np.ndarray | None) -> None:
         if inp is not None and self.include_input and self._behind is not None:
