@@ -572,7 +572,7 @@ class CsvSource:
         else:
             raise WaveformError(
                 f"{self.path}: only one data row; cannot derive a rate from the time column "
-                f"(give rate= / --rate HZ)"
+                f"(give --rate HZ; rate= in Python)"
             )
         self.time_axis = TimeAxis(self.path, 1.0 / self.rate, self.t0, resample=resample,
                                   check=rate is None or resample)

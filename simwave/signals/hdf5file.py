@@ -185,7 +185,7 @@ class Hdf5Source:
             raise WaveformError(
                 f"{where}: no sample rate (attributes looked for: {', '.join(RATE_ATTRS)}, or an "
                 f"interval: {', '.join(INTERVAL_ATTRS)}; or a sibling 'time' dataset); "
-                f"give rate= / --rate HZ"
+                f"give --rate HZ (rate= in Python)"
             )
         if self.time_ds is not None:
             self.time_axis = TimeAxis(where, 1.0 / self.rate, self.t0, resample=resample,
