@@ -79,5 +79,6 @@ def resolve_format(path: str, format: str | None = None) -> tuple[str, str | Non
     shown = ext or "(none)"
     raise WaveformError(
         f"{path}: unknown file extension {shown}; use .wav/.flac/... (audio), .csv/.txt "
-        f"(CSV) or .h5/.hdf5 (HDF5), or name the format: --input-format FMT to read, --format FMT to write"
+        f"(CSV) or .h5/.hdf5 (HDF5), or name the format: --input-format FMT to read, "
+        f"--format FMT to write"
     )

@@ -240,7 +240,8 @@ class GapFiller:
         if self.max_gap <= 0:
             i, c = np.argwhere(~finite)[0]
             raise self._error(data, int(i), int(c),
-                              " (to interpolate short gaps give --fill-gaps N; fill_gaps=N in Python)")
+                              " (to interpolate short gaps give --fill-gaps N;"
+                              " fill_gaps=N in Python)")
         v = v.copy()
         n = v.shape[0]
         hold_from = n
