@@ -509,3 +509,28 @@ C = { from = "50n", to = "150n", points = 3 }
         assert fig["time_constant_s_slowest"] == pytest.approx(
             p["values"]["R"] * p["values"]["C"], rel=4e-16)
     assert os.path.getsize(result.files["sweep plot"]) > 0
+
+
+class _StopsAfterOneTask(InlineEngine):
+    """Runs the first task, then behaves as if Ctrl-C were pressed."""
+
+    def results(self, tasks):
+        for task in tasks:
+            yield task, task.run()
+            raise KeyboardInterrupt
+
+
+def test_an_interrupted_study_resumes_where_it_stopped(tmp_path):
+    path = _rc_study(tmp_path, "monte-carlo", draws=12)
+    study = load_study(path)
+    study.builds_per_task = 5
+    with pytest.raises(KeyboardInterrupt):
+        run_study(study, engine=_StopsAfterOneTask())
+    out = tmp_path / "rc" / "tolerance-output"
+    assert not (out / "tolerance-summary.json").exists()  # no summary from half a study
+    study = load_study(path)
+    result = run_study(study, engine=InlineEngine())
+    assert result.run.reused == 5 and result.run.ran == len(result.builds) - 5
+    fresh = _rc_study(tmp_path, "monte-carlo", draws=12, sub="fresh")
+    run_study(load_study(fresh), engine=InlineEngine())
+    assert _summary_bytes(path) == _summary_bytes(fresh)
