@@ -54,6 +54,8 @@ SINE_AUTO_EXPLAINED = 0.9
 SINE_MIN_EXPLAINED = 0.5
 #: A window is a ramp when a straight line explains this fraction of its variance.
 RAMP_R2 = 0.999
+#: Most samples of the steady-state window the sine and tone fits use (its last ones).
+FIT_MAX = 1 << 16
 #: Fewest samples a steady-state window may have.
 MIN_WINDOW = 8
 #: A level change smaller than this fraction of the channel's range is no transition
@@ -295,10 +297,17 @@ class _Chan:
     # span (peak to peak) of noise and hum where the channel is quiet (the first quartile
     # of its window spans)
     disturbance_pp: float = 0.0
+    _seg_starts: np.ndarray | None = None
 
     @property
     def constant(self) -> bool:
         return self.hi == self.lo
+
+    @property
+    def fit_window(self) -> np.ndarray:
+        """The last part of the steady-state window the sine and tone fits use (their cost
+        grows with it; ``FIT_MAX`` samples are thousands of cycles of an audio tone)."""
+        return self.window if self.window.size <= FIT_MAX else self.window[-FIT_MAX:]
 
 
 def measure(
@@ -545,14 +554,20 @@ class _Measurement:
         for col in cols.values():
             col.finish()
 
-    def _find_edges(self, refs_by_c: dict[int, tuple]) -> dict[int, list[Edge]]:
-        """One pass: transitions of output channels with the given reference levels."""
+    def _find_edges(
+        self, refs_by_c: dict[int, tuple], limit: int | None = None
+    ) -> dict[int, list[Edge]]:
+        """One pass: transitions of output channels with the given reference levels (the
+        first ``limit`` of each; the pass stops once every channel has them)."""
         finders = {c: EdgeFinder(*r) for c, r in refs_by_c.items()}
         if finders:
             for start, a, _b in self.src.blocks():
                 for c, f in finders.items():
-                    f.feed(a[:, c], start)
-        return {c: f.edges for c, f in finders.items()}
+                    if limit is None or len(f.edges) < limit:
+                        f.feed(a[:, c], start)
+                if limit is not None and all(len(f.edges) >= limit for f in finders.values()):
+                    break
+        return {c: f.edges[:limit] for c, f in finders.items()}
 
     def _min_change(self, ch: _Chan) -> float:
         """Smallest level change that counts as a transition of this channel."""
@@ -599,7 +614,7 @@ class _Measurement:
         refs = {c: lv.reference_values(self.outs[c].levels, (25.0, 50.0, 75.0)) for c in cands}
         found: dict[int, tuple] = {}
         for rnd in range(2):
-            edges = self._find_edges(refs)
+            edges = self._find_edges(refs, FIRST_ROUND_SEGMENTS if rnd == 0 else None)
             # end each segment where a linear edge would leave the level: a quarter of
             # the 25-75 % time before the wide provisional transitions, an eighth of the
             # 10-90 % time before the final ones
@@ -665,14 +680,15 @@ class _Measurement:
 
     # ------------------------------------------------------------------ kinds
     def _window_t(self, m: int) -> np.ndarray:
-        return (self.w_start + np.arange(m, dtype=np.float64)) / self.rate
+        # the window (or its last part, for fits) ends at the record's last sample
+        return (self.n - m + np.arange(m, dtype=np.float64)) / self.rate
 
     def _auto_kind(self, ch: _Chan, is_reference: bool) -> str:
         if ch.constant:
             return "constant"
         if ch.two_state_fraction >= TWO_STATE_FRACTION or ch.established or ch.multilevel:
             return "transitions"
-        y = ch.window
+        y = ch.fit_window
         if y.size >= MIN_WINDOW and np.ptp(y) > 0:
             t = self._window_t(y.size)
             # a straight line first: a slow sine fits a short stretch of ramp too
@@ -727,7 +743,7 @@ class _Measurement:
                 self._require_sine(ch, kind_opt)
 
     def _require_sine(self, ch: _Chan, kind: str) -> None:
-        y = ch.window
+        y = ch.fit_window
         if y.size < MIN_WINDOW or ch.constant or np.ptp(y) == 0:
             raise MeasurementError(
                 f"channel {ch.name!r}: no sine: the steady-state window is flat or too short"
@@ -1324,7 +1340,11 @@ class _Measurement:
         if not ch.segments:
             return None
         slack = (e.j - e.k_start) + 2
-        best = min(ch.segments, key=lambda s: abs(s.start - e.j))
+        if getattr(ch, "_seg_starts", None) is None or len(ch._seg_starts) != len(ch.segments):
+            ch._seg_starts = np.array([s.start for s in ch.segments])
+        k = int(np.searchsorted(ch._seg_starts, e.j))
+        near = [i for i in (k - 1, k) if 0 <= i < len(ch.segments)]
+        best = ch.segments[min(near, key=lambda i: abs(ch.segments[i].start - e.j))]
         return best if abs(best.start - e.j) <= slack else None
 
     def _transition_row(
@@ -1634,7 +1654,7 @@ class _Measurement:
 
     def _sine_section(self, ch: _Chan, ref: _Chan | None) -> dict:
         o = self.o
-        y = ch.window
+        y = ch.fit_window
         d: dict = {}
         reasons: dict = {}
         t = self._window_t(y.size)
@@ -1645,8 +1665,8 @@ class _Measurement:
             return d
         if o.sine_hz is not None:
             f, fsrc, d["fit"] = o.sine_hz, "given", "three-parameter"
-        elif ref is not None and ref.window.size >= MIN_WINDOW and np.ptp(ref.window) > 0:
-            f, fsrc = self._estimate_frequency(ref.window, t), "four-parameter fit of the input"
+        elif ref is not None and ref.fit_window.size >= MIN_WINDOW and np.ptp(ref.fit_window) > 0:
+            f, fsrc = self._estimate_frequency(ref.fit_window, t), "four-parameter fit of the input"
             d["fit"] = "four-parameter"
         else:
             f, fsrc = self._estimate_frequency(y, t), "four-parameter fit of this channel"
@@ -1676,7 +1696,7 @@ class _Measurement:
         d["output_phase_deg"] = math.degrees(tone.phase_rad)
         d["fit_explains_pct"] = 100.0 * out_fit.explained
         if ref is not None:
-            it = st.harmonic_fit(ref.window, t, f, self.rate, int(o.harmonics))[0].tones[0]
+            it = st.harmonic_fit(ref.fit_window, t, f, self.rate, int(o.harmonics))[0].tones[0]
             d["input_amplitude"] = it.amplitude
             d["input_phase_deg"] = math.degrees(it.phase_rad)
             if it.amplitude == 0 or tone.amplitude == 0:
@@ -1733,13 +1753,13 @@ class _Measurement:
 
     def _tones_section(self, ch: _Chan, ref: _Chan | None) -> tuple[list, dict]:
         o = self.o
-        y = ch.window
+        y = ch.fit_window
         t = self._window_t(y.size)
         reasons: dict = {}
         if y.size < MIN_WINDOW:
             reasons["tones"] = "record too short for steady state"
             return [], reasons
-        basis = ref.window if ref is not None else y
+        basis = ref.fit_window if ref is not None else y
         if o.tones_hz is not None:
             freqs = list(o.tones_hz)
         else:
@@ -1752,7 +1772,7 @@ class _Measurement:
             freqs = [tn.frequency_hz for tn in st.fit_tones(basis, t, found, refine=True).tones]
         freqs = [f for f in freqs if f < 0.5 * self.rate]
         out_fit = st.fit_tones(y, t, freqs)
-        in_fit = st.fit_tones(ref.window, t, freqs) if ref is not None else None
+        in_fit = st.fit_tones(ref.fit_window, t, freqs) if ref is not None else None
         rows = []
         for k, f in enumerate(freqs):
             row: dict = {

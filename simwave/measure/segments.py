@@ -63,7 +63,7 @@ K. Ogata, *Modern Control Engineering*, 5th ed., sec. 5-3.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -132,8 +132,8 @@ class Segment:
     disturbance: float = 0.0  # the channel's disturbance span allowed for in the settled test
     # largest deviation from the end median over the last k samples, at a few k (increasing):
     # how long the segment has stayed near its end level
-    back_k: tuple = ()
-    back_dev: tuple = ()
+    back_k: np.ndarray = field(default_factory=lambda: np.empty(0, dtype=np.int64))
+    back_dev: np.ndarray = field(default_factory=lambda: np.empty(0))
     extrapolated: float | None = None
     residual: float | None = None  # size of the last turning point used (abs)
     turning_points: int = 0
@@ -223,12 +223,12 @@ class Segment:
     def dwell(self, within: float) -> int:
         """How many samples, at the end of the segment, lie within ``within`` of its end
         median (from the few points kept; the segment's held part only)."""
-        if not self.back_k:
+        if len(self.back_k) == 0:
             return self.length
-        i = int(np.searchsorted(np.asarray(self.back_dev), within, side="right"))
+        i = int(np.searchsorted(self.back_dev, within, side="right"))
         if i >= len(self.back_k):
-            return self.length if self.back_k[-1] >= self.length else self.back_k[-1]
-        return self.back_k[i - 1] if i > 0 else 0
+            return self.length if self.back_k[-1] >= self.length else int(self.back_k[-1])
+        return int(self.back_k[i - 1]) if i > 0 else 0
 
     def detail(self, rate: float, t0: float, amplitude: float) -> dict:
         """Dictionary for the result: how this level was found."""
@@ -407,7 +407,7 @@ def analyse_segment(seg: Segment, y: np.ndarray, first: int, fraction: float) ->
     if y.size:
         back = np.maximum.accumulate(np.abs(y[::-1] - seg.median))
         k = np.unique(np.linspace(0, y.size - 1, min(y.size, BACK_POINTS)).astype(np.int64))
-        seg.back_k, seg.back_dev = tuple(int(i) + 1 for i in k), tuple(float(v) for v in back[k])
+        seg.back_k, seg.back_dev = k + 1, back[k]
     if w_len >= MIN_END_WINDOW:
         m = w_len // 4
         meds = [float(np.median(w[i * m : (i + 1) * m])) for i in range(3)]

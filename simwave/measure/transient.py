@@ -124,29 +124,40 @@ class EdgeFinder:
         n = y.size
         if n == 0:
             return
-        g = np.arange(start, start + n, dtype=np.int64)
-        below = y <= self.low
         above = y >= self.high
-        bm = np.where(y < self.mid, g, -1)
-        np.maximum.accumulate(bm, out=bm)
-        np.maximum(bm, self.last_below_mid, out=bm)
-        am = np.where(y > self.mid, g, -1)
-        np.maximum.accumulate(am, out=am)
-        np.maximum(am, self.last_above_mid, out=am)
-        ev = np.flatnonzero(below | above)
+        ev = np.flatnonzero((y <= self.low) | above)
         if ev.size:
-            states = above[ev].astype(np.int64)
-            prev_states = np.concatenate(([self.last_state], states[:-1]))
-            prev_idx = np.concatenate(([self.last_event], g[ev[:-1]]))
-            for c in np.flatnonzero((states != prev_states) & (prev_states >= 0)):
+            states = above[ev].astype(np.int8)
+            changes = np.flatnonzero(states[1:] != states[:-1]) + 1
+            if self.last_state >= 0 and states[0] != self.last_state:
+                changes = np.concatenate(([0], changes))
+            for c in changes.tolist():
                 local = int(ev[c])
                 direction = 1 if states[c] == 1 else -1
-                k_mid = int(bm[local]) if direction > 0 else int(am[local])
-                self.edges.append(Edge(direction, int(prev_idx[c]), k_mid, int(g[local])))
+                prev_idx = self.last_event if c == 0 else start + int(ev[c - 1])
+                k_mid = self._last_near_mid(y, start, prev_idx, local, direction)
+                self.edges.append(Edge(direction, int(prev_idx), k_mid, start + local))
             self.last_state = int(states[-1])
-            self.last_event = int(g[ev[-1]])
-        self.last_below_mid = int(bm[-1])
-        self.last_above_mid = int(am[-1])
+            self.last_event = start + int(ev[-1])
+        # the last samples below and above the mid reference level, carried to the next block
+        below_mid = y < self.mid
+        if below_mid.any():
+            self.last_below_mid = start + n - 1 - int(np.argmax(below_mid[::-1]))
+        above_mid = y > self.mid
+        if above_mid.any():
+            self.last_above_mid = start + n - 1 - int(np.argmax(above_mid[::-1]))
+
+    def _last_near_mid(self, y: np.ndarray, start: int, prev_idx: int, local: int,
+                       direction: int) -> int:
+        """The last sample before ``local`` on the near side of the mid reference level
+        (below it for a rising transition): searched back to the previous event, which is
+        on the near side, else taken from what earlier blocks carried."""
+        lo = max(prev_idx - start, 0)
+        part = y[lo:local]
+        near = part < self.mid if direction > 0 else part > self.mid
+        if near.any():
+            return start + lo + part.size - 1 - int(np.argmax(near[::-1]))
+        return self.last_below_mid if direction > 0 else self.last_above_mid
 
 
 @dataclass
