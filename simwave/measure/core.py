@@ -573,7 +573,7 @@ class _Measurement:
         """Smallest level change that counts as a transition of this channel."""
         return NO_CHANGE_FRACTION * (ch.hi - ch.lo)
 
-    def _decide(self, segs: list, ch: _Chan) -> None:
+    def _decide(self, segs: list, ch: _Chan, strict: bool = True) -> None:
         """Each segment's level, its settling judged against the transitions beside it."""
         meds = [s.median for s in segs]
         floor = self._min_change(ch)
@@ -583,7 +583,7 @@ class _Measurement:
             # for the first segment)
             other = i - 1 if i > 0 else i + 1
             away = int(np.sign(meds[i] - meds[other])) if 0 <= other < len(segs) else 0
-            s.decide(max(amps + [floor]), self.o.settling_band_pct, away)
+            s.decide(max(amps + [floor]), self.o.settling_band_pct, away, strict=strict)
             if self.rest_sample and s.start == 0 and s.length < seg.MIN_END_WINDOW:
                 # the segment before a step at the first sample: only the sample of 0 put
                 # before the record (and the output's first answer-free samples); its level
@@ -627,7 +627,9 @@ class _Measurement:
             self._collect(segs)
             found = {}
             for c, ss in segs.items():
-                self._decide(ss, self.outs[c])
+                # the first round's levels are provisional (the segments are cut on the
+                # histogram's levels): a turning-point end is not refused there
+                self._decide(ss, self.outs[c], strict=rnd > 0)
                 low, m_low, _ = seg.pooled_level(ss, 0)
                 high, m_high, _ = seg.pooled_level(ss, 1)
                 if low is None or high is None or not high - low > self._min_change(self.outs[c]):
@@ -1473,6 +1475,19 @@ class _Measurement:
                 row[k] = None
                 reasons[k] = why
             row["settled_at_s"] = None
+            # the level itself and the instants found on it are provisional: given in the
+            # level detail (end_median), not as measured values
+            provisional = f"{why}; its provisional value is in the level detail"
+            for w, ok in (("initial", initial_ok), ("final", final_ok)):
+                if not ok:
+                    row[f"{w}_level"] = None
+                    reasons[f"{w}_level"] = provisional
+            for k in ("start_s", "crossing_50_s", "end_s", "delay_s"):
+                if row.get(k) is not None:
+                    row[k] = None
+                    reasons[k] = (
+                        f"{why}: the reference levels, and so this instant, are not known"
+                    )
         elif (
             si is not None
             and (after := self._segment_after(ch, index, e)) is not None
@@ -1518,7 +1533,8 @@ class _Measurement:
         fallback = pl.disturbance_rms_from_pp(ch.disturbance_pp, ch.windows.size)
         end_s = self.t(after.end if after is not None else r.post_end)
         quality.annotate(
-            row, amp, self.o.settling_band_pct, rate, before, after, fallback, end_s
+            row, amp, self.o.settling_band_pct, rate, before, after, fallback, end_s,
+            n_post=max(r.post_end - e.j, 2),
         )
         return row
 

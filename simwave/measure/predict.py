@@ -378,7 +378,7 @@ def _second_order_rows(ch: dict, p: Predictions, o: Any) -> list[dict]:
                 note,
             )
         )
-    if first.get("delay_s") is not None:
+    if first.get("peak_time_s") is not None:
         rate_tol = o.time_tolerance_pct / 100.0 * p.peak_time_s
         diff = first["peak_time_s"] - p.peak_time_s
         rows.append(

@@ -19,8 +19,11 @@ Per transition (one row of the result) this adds:
     means, e.g. A. M. Law, *Simulation Modeling and Analysis*, chapter on output analysis;
     from memory);
   - an instant: the amplitude uncertainty at the crossing divided by the slope there,
-    u(t) = sqrt(sigma^2 + u(ref level)^2) / |dy/dt|, with the slope taken as the mean slope
-    between the low and high reference levels. This is the usual first-order propagation of
+    u(t) = sqrt(d^2 + u(ref level)^2) / |dy/dt|, with the slope taken as the mean slope
+    between the low and high reference levels and d the disturbance's peak (the crossing
+    found is the last the disturbance makes near the level). A transition duration: twice
+    the peak over a quarter of that slope (the 90 % level of a first-order approach is
+    crossed at 0.27 of the mean slope). This is the usual first-order propagation of
     amplitude noise into a crossing instant; IEEE Std 181-2011 discusses noise in its
     reference level instants and state levels in its uncertainty annex (quoted from memory;
     the clause and formula numbering not checked);
@@ -45,6 +48,9 @@ import math
 
 from simwave.measure import segments as seg
 
+#: Fraction of the 10-90 % mean slope taken as the slope at the 10 and 90 % levels for the
+#: uncertainty of a transition duration (our choice; covers the first-order approach).
+SLOPE_FLOOR = 0.25
 #: Disturbance RMS, times this, beyond a fraction of the band or of the amplitude: a caution.
 CAUTION_SIGMAS = 3.0
 BAND_FRACTION = 0.2
@@ -81,10 +87,16 @@ def disturbance(before: seg.Segment | None, after: seg.Segment | None,
 
 
 def annotate(row: dict, amp: float, band_pct: float, rate: float, before, after,
-             fallback_rms: float, segment_end_s: float | None) -> None:
-    """Add disturbance, uncertainty, cautions and bounds to one transition row (in place)."""
+             fallback_rms: float, segment_end_s: float | None, n_post: int = 2) -> None:
+    """Add disturbance, uncertainty, cautions and bounds to one transition row (in place).
+    ``n_post``: samples in the transition's post-transition region, where its overshoot
+    and settling are read (the disturbance's extreme grows with it)."""
     reasons = row.setdefault("null_reasons", {})
     rms, peak, basis = disturbance(before, after, fallback_rms)
+    # the largest excursion normal noise of this RMS makes over the post-transition region:
+    # sqrt(2 ln N) deviations (the expected extreme of N normal samples, common practice;
+    # from memory), when that is more than the end windows showed
+    peak = max(peak, rms * math.sqrt(2.0 * math.log(max(n_post, 2))))
     row["disturbance_rms"] = rms
     row["disturbance_peak"] = peak
     row["disturbance_basis"] = basis
@@ -95,9 +107,15 @@ def annotate(row: dict, amp: float, band_pct: float, rate: float, before, after,
     if dur and amp and refs.get("low") is not None:
         slope = abs(refs["high"] - refs["low"]) / dur  # mean slope, units per second
         u_ref = 0.5 * math.hypot(u_i or 0.0, u_f or 0.0)  # mid level = (initial + final) / 2
-        unc["crossing_50_s"] = math.hypot(rms, u_ref) / slope if slope > 0 else None
+        # the crossing found is the last of those the disturbance makes near the level: off
+        # by up to its peak over the slope, not only its RMS
+        unc["crossing_50_s"] = math.hypot(peak, u_ref) / slope if slope > 0 else None
+        # the 10 and 90 % crossings: where a first-order approach is slowest, its slope at 90 %
+        # is 0.27 of the 10-90 % mean slope (from 1 - e^(-t/tau)); SLOPE_FLOOR of it is used
+        unc["transition_duration_s"] = 2.0 * peak / (SLOPE_FLOOR * slope) if slope > 0 else None
     else:
         unc["crossing_50_s"] = None
+        unc["transition_duration_s"] = None
     if amp:
         unc["overshoot_pct"] = 100.0 * (peak + (u_f or 0.0)) / abs(amp)
     row["uncertainty"] = unc

@@ -149,7 +149,8 @@ class Segment:
         return self.end - self.start + 1
 
     def decide(
-        self, amplitude: float, band_pct: float, away: int = 0, disturbance: float = 0.0
+        self, amplitude: float, band_pct: float, away: int = 0, disturbance: float = 0.0,
+        strict: bool = True,
     ) -> None:
         """Choose the level: settled end median, else turning-point extrapolation, else the
         last value of a steady approach, else the end median flagged not settled.
@@ -159,7 +160,8 @@ class Segment:
         level (0: unknown), in which a still-approaching end moves; ``disturbance``: the
         span (peak to peak) that noise and hum give the channel where it is quiet: the
         quarters of a settled end may differ by that much (hum over a quarter shorter than
-        its period) on top of the band.
+        its period) on top of the band; ``strict``: refuse ends at a turning point (see
+        :meth:`_at_turning_point`; off for provisional levels, which are measured again).
         """
         tol = band_pct / 100.0 * abs(amplitude)
         self.note = None
@@ -173,7 +175,7 @@ class Segment:
             )
             return
         near = tol + self.allowance + disturbance
-        if self.drift <= near and not self._at_turning_point(near, away, tol):
+        if self.drift <= near and not (strict and self._at_turning_point(near, away, tol)):
             self.level, self.method, self.settled = self.median, METHOD_END, True
             return
         self.settled = False
@@ -204,21 +206,33 @@ class Segment:
 
     def _at_turning_point(self, near: float, away: int, tol: float = 0.0) -> bool:
         """The end window turns (an inner quarter's median lies beyond both outer ones by
-        more than their noise allows, in the direction the segment travelled) and the segment
+        more than their noise allows, in the direction the segment travelled) or swings back
+        all through (against the way the segment came, past a peak), and the segment
         has been near its end level for less than ``DWELL_FRACTION`` of its length: the record
         ends at a turning point of slow ringing (flat for a moment, then swinging back), not
         at a settled level."""
-        if len(self.quarters) != 4 or self.dwell(near) >= DWELL_FRACTION * self.length:
+        # single samples stray from the end level by their noise (four robust deviations)
+        if len(self.quarters) != 4 or self.dwell(near + 4.0 * self.scatter) >= (
+            DWELL_FRACTION * self.length
+        ):
             return False
         q = np.asarray(self.quarters)
         signs = [away] if away else [1, -1]
+        least = self.allowance + TURN_FRACTION * tol
         for sgn in signs:
             v = sgn * q
             k = int(np.argmax(v))
             # an inner quarter beyond both outer ones by more than their noise allows
-            if k in (1, 2) and v[k] - max(v[0], v[3]) > self.allowance + TURN_FRACTION * tol:
+            if k in (1, 2) and v[k] - max(v[0], v[3]) > least:
                 return True
-        return False
+        # swinging back (against the way it came) all through the end window: past a peak
+        if away and bool(np.all(away * np.diff(q) < 0)) and away * (q[0] - q[3]) > least:
+            return True
+        # near its end level only briefly: only a steady approach (still moving on the way it
+        # came, the tail of a first-order lag) counts as settled; an end whose quarters scatter
+        # (a turn the noise may hide) does not
+        steady = away and bool(np.all(away * np.diff(q) >= 0))
+        return not steady
 
     def dwell(self, within: float) -> int:
         """How many samples, at the end of the segment, lie within ``within`` of its end
