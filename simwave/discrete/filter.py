@@ -38,7 +38,12 @@ from typing import Any
 import numpy as np
 import scipy.signal as sig
 
-from simwave.discrete.realization import expm
+from simwave.discrete.incremental import (
+    IncrementalModel,
+    increment_round_off,
+    section_round_off,
+)
+from simwave.discrete.realization import expm, increment_response
 from simwave.errors import DiscretizationError
 
 __all__ = ["DiscreteSystem", "FilterState", "INITIAL_MODES"]
@@ -48,6 +53,16 @@ INITIAL_MODES: tuple[str, ...] = ("rest", "settled")
 
 #: Longest zero-input response fitted when computing an initial state (samples).
 _MAX_HORIZON = 1 << 16
+
+#: Names accepted by ``realization``.
+REALIZATIONS: tuple[str, ...] = ("auto", "sections", "incremental")
+
+#: ``auto`` runs second-order sections while their expected round-off level
+#: (:func:`simwave.discrete.incremental.section_round_off`) stays at or below
+#: this fraction of the signal, and the incremental form above it. Chosen by
+#: simwave: 1e-12 leaves two decades under the 1e-10 accuracy target for the
+#: round-off that the estimate does not model (state rounding).
+SECTIONS_LIMIT = 1e-12
 
 
 @dataclass(eq=False)
@@ -67,6 +82,8 @@ class FilterState:
         ``"rest"`` or ``"settled"`` while the first input sample is still
         unknown; resolved by the first non-empty block.
     n_channels : int
+    x : ndarray, shape (n_states, n_channels), or None
+        The state of the incremental realization (``zi`` is then empty).
     spent : bool
         True once the state has been passed to ``process``: a state is used
         once, then the returned state takes its place (its buffers may be
@@ -79,6 +96,7 @@ class FilterState:
     pending: str | None
     n_channels: int
     spent: bool = False
+    x: np.ndarray | None = None
 
 
 def _sequence(step, C: np.ndarray, v: np.ndarray, n: int) -> np.ndarray:
@@ -290,6 +308,7 @@ class DiscreteSystem:
         design,
         hold_frac: float = 0.0,
         thiran_d: float | None = None,
+        realization: str = "auto",
     ) -> None:
         zd, pd, kd = zpk
         self.system = system
@@ -309,6 +328,36 @@ class DiscreteSystem:
         self._thiran_d = thiran_d
         self.sos = self._make_sos()
         self._cache: dict[str, Any] = {}
+        self._inc = IncrementalModel(*design.increment) if design.increment is not None else None
+        self._choose_realization(realization)
+
+    def _choose_realization(self, wanted: str) -> None:
+        """Sections where they are exact enough, the incremental form where they are not."""
+        if wanted not in REALIZATIONS:
+            raise DiscretizationError(
+                f"unknown realization {wanted!r}; known: {', '.join(REALIZATIONS)}"
+            )
+        sec_level = section_round_off(self.sos)
+        inc_level = increment_round_off(self._inc.poles_increment()) if self._inc else None
+        if wanted == "auto":
+            use_inc = self._inc is not None and sec_level > SECTIONS_LIMIT
+        else:
+            use_inc = wanted == "incremental"
+            if use_inc and self._inc is None:
+                raise DiscretizationError("this model has no incremental realization")
+        self.realization = "incremental" if use_inc else "sections"
+        self.round_off_level = float(inc_level if use_inc else sec_level)
+        why = (
+            f"second-order sections would round to about {sec_level:.1e} of the signal "
+            f"(limit {SECTIONS_LIMIT:.0e}); incremental state space instead"
+            if use_inc and wanted == "auto"
+            else f"as asked ({wanted})" if wanted != "auto"
+            else f"second-order sections round to about {sec_level:.1e} of the signal"
+        )
+        self.options["realization"] = self.realization
+        self.options["realization_reason"] = why
+        self.options["round_off_level"] = self.round_off_level
+        self.options["sections_round_off_level"] = sec_level
 
     # ----------------------------------------------------------------- construction
     def _make_sos(self) -> np.ndarray:
@@ -330,6 +379,13 @@ class DiscreteSystem:
     @property
     def dc_gain(self) -> float:
         """Gain of the discrete model at z = 1 (inf with a pole there)."""
+        if self.realization == "incremental":
+            with np.errstate(divide="ignore", invalid="ignore"):
+                try:
+                    g = self._inc.dc_gain()
+                except np.linalg.LinAlgError:
+                    return math.inf
+            return g if math.isfinite(g) else math.inf
         b = self.sos[:, :3].sum(axis=1)
         a = self.sos[:, 3:].sum(axis=1)
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -343,6 +399,16 @@ class DiscreteSystem:
         ``dead_time`` the whole-sample delay line is included as e^{-j w n T}.
         """
         f = np.atleast_1d(np.asarray(f_hz, dtype=np.float64))
+        if self.realization == "incremental":
+            # D + C ((z - 1) I - E)^{-1} G with z - 1 = expm1(j w): exact near z = 1.
+            inc = self._inc
+            h = increment_response(
+                inc.E, inc.G[:, None], inc.C[None, :], np.array([[inc.D]]),
+                np.expm1(2j * np.pi * f / self.rate),
+            )
+            if dead_time and self.delay_line:
+                h = h * np.exp(-2j * np.pi * f * self.delay_line / self.rate)
+            return h.reshape(np.shape(f_hz)) if np.ndim(f_hz) else h[0]
         # Each section's (b0 + b1 z^-1 + b2 z^-2) / (a0 + a1 z^-1 + a2 z^-2) at z = e^{jw},
         # multiplied: what scipy.signal.sosfreqz computes, without its per-call overhead.
         # Written out rather than as a matrix product: a BLAS product of this size wakes the
@@ -362,9 +428,13 @@ class DiscreteSystem:
         """Samples over which zero-input responses are fitted: until every mode has decayed."""
         n_min = 8 * self.n_sections + 64
         worst = n_min
-        for row in self.sos:
-            roots = np.roots(row[3:]) if row[5] != 0 or row[4] != 0 else np.zeros(0)
-            for r in np.abs(roots):
+        if self.realization == "incremental":
+            radii = [np.abs(1.0 + self._inc.poles_increment())]
+        else:
+            radii = [np.abs(np.roots(row[3:])) if row[5] != 0 or row[4] != 0 else np.zeros(0)
+                     for row in self.sos]
+        for roots in radii:
+            for r in roots:
                 if r == 0:
                     continue
                 if r < 1 - 1e-15:
@@ -378,6 +448,10 @@ class DiscreteSystem:
 
     def _zir_basis(self, n: int) -> np.ndarray:
         """Zero-input responses of the sections for each unit state, shape (n, 2 m)."""
+        if self.realization == "incremental":
+            k = self._inc.n
+            basis, _ = self._inc.run(np.zeros((n, k)), np.eye(k))
+            return basis
         m = self.n_sections
         zi = np.zeros((m, 2, 2 * m))
         for s in range(m):
@@ -389,7 +463,8 @@ class DiscreteSystem:
     def _fit_state(self, target: np.ndarray) -> np.ndarray:
         """Section states whose zero-input response is ``target`` (shape (n, k)).
 
-        Least squares over the horizon; returns zi of shape (n_sections, 2, k).
+        Least squares over the horizon; returns zi of shape (n_sections, 2, k),
+        or for the incremental realization the state, shape (n_states, k).
         Adds a warning when the fit is not exact to 1e-8 of the target's size.
         """
         n, k = target.shape
@@ -407,6 +482,8 @@ class DiscreteSystem:
             )
             if note not in self.warnings:
                 self.warnings.append(note)
+        if self.realization == "incremental":
+            return coef
         return coef.reshape(self.n_sections, 2, k)
 
     def _rest_correction(self) -> np.ndarray | None:
@@ -426,6 +503,13 @@ class DiscreteSystem:
 
     def _settled_state(self) -> np.ndarray:
         """Section states (per unit input) of the steady state for a constant input."""
+        if "settled" not in self._cache and self.realization == "incremental":
+            if not math.isfinite(self.dc_gain):
+                raise DiscretizationError(
+                    "a settled start needs a finite DC gain, but this model has a pole at "
+                    "z = 1 (an integrator, s = 0); use initial='rest'"
+                )
+            self._cache["settled"] = self._inc.settled_state()
         if "settled" not in self._cache:
             den = self.sos[:, 3:].sum(axis=1)
             if np.any(np.abs(den) <= 1e-14 * np.abs(self.sos[:, 3:]).sum(axis=1)):
@@ -523,8 +607,9 @@ class DiscreteSystem:
         if output_ics is not None:
             ics = self._check_ics(output_ics, initial)
         nch = self._channels(u0, n_channels, ics)
+        incremental = self.realization == "incremental"
         m = self.n_sections
-        zi = np.zeros((m, 2, nch))
+        zi = np.zeros((self._inc.n, nch)) if incremental else np.zeros((m, 2, nch))
         line = np.zeros((self.delay_line, nch)) if self.delay_line else None
         if ics is not None:
             if ics.shape[1] == 1 and nch > 1:
@@ -537,6 +622,15 @@ class DiscreteSystem:
         if initial == "settled":
             self._settled_state()  # fail early on an integrator
         needs_first = initial == "settled" or self._design.correction is not None
+        if incremental:
+            # The exact at-rest start of the ramp-invariant model is applied while the
+            # first sample is processed (it changes y[0] and the state after it).
+            state = FilterState(np.zeros((0, 2, nch)), line, 0,
+                                initial if needs_first else None, nch, x=zi)
+            if initial == "settled" and u0 is not None:
+                state.x, state.line = self._resolve(initial, u0, zi, line)
+                state.pending = None
+            return state
         state = FilterState(zi, line, 0, initial if needs_first else None, nch)
         if needs_first and u0 is not None:
             state.zi, state.line = self._resolve(initial, u0, zi, line)
@@ -593,10 +687,15 @@ class DiscreteSystem:
 
     def _resolve(self, mode: str, u0: np.ndarray, zi: np.ndarray, line):
         """Apply the first-sample part of the initial state (new arrays)."""
-        if u0.size != zi.shape[2]:
+        if u0.size != zi.shape[-1]:
             raise DiscretizationError(
                 f"first sample has {u0.size} channels, the state has {zi.shape[2]}"
             )
+        if mode == "settled" and self.realization == "incremental":
+            x = self._settled_state()[:, None] * u0[None, :]
+            if line is not None:
+                line = np.repeat((self.dc_gain * u0)[None, :], self.delay_line, axis=0)
+            return x, line
         if mode == "settled":
             zi = self._settled_state()[:, :, None] * u0[None, None, :]
             if line is not None:
@@ -661,10 +760,39 @@ class DiscreteSystem:
         zi, line, pos, pending = state.zi, state.line, state.pos, state.pending
         if n == 0:
             out = np.zeros((0, nch))
-            return (out[:, 0] if one_d else out), FilterState(zi, line, pos, pending, nch)
+            return (out[:, 0] if one_d else out), FilterState(zi, line, pos, pending, nch,
+                                                              x=state.x)
+        if self.realization == "incremental":
+            y, xs, line = self._run_incremental(x, state.x, pending, line)
+            out, line, pos = self._delay(y, line, pos)
+            return (out[:, 0] if one_d else out), FilterState(zi, line, pos, None, nch, x=xs)
         if pending is not None:
             zi, line = self._resolve(pending, x[0], zi, line)
         y, zf = sig.sosfilt(self.sos, x, axis=0, zi=zi)
+        out, line, pos = self._delay(y, line, pos)
+        return (out[:, 0] if one_d else out), FilterState(zf, line, pos, None, nch)
+
+    def _run_incremental(self, x: np.ndarray, xs: np.ndarray, pending, line):
+        """The incremental realization on one block, with the first-sample starts."""
+        if pending == "settled":
+            xs, line = self._resolve(pending, x[0], xs, line)
+            pending = None
+        corr = self._design.correction if pending == "rest" else None
+        if corr is None:
+            y, xs = self._inc.run(x, xs)
+            return y, xs, line
+        dy0, dxi1 = corr
+        full = np.zeros(self._inc.n)
+        full[self._inc.n - dxi1.size :] = dxi1  # a delay state, if any, comes first
+        y0, xs = self._inc.run(x[:1], xs)
+        y0 = y0 + dy0 * x[:1]
+        xs = xs + full[:, None] * x[0][None, :]
+        y1, xs = self._inc.run(x[1:], xs)
+        return np.concatenate([y0, y1]), xs, line
+
+    def _delay(self, y: np.ndarray, line, pos: int):
+        """The whole-sample dead time: ring buffer of the next outputs."""
+        n, nch = y.shape
         d = self.delay_line
         if d:
             if n >= d:
@@ -686,7 +814,7 @@ class DiscreteSystem:
                 pos = (pos + n) % d
         else:
             out = y
-        return (out[:, 0] if one_d else out), FilterState(zf, line, pos, None, nch)
+        return out, line, pos
 
     def filter(self, data: Any, initial: str = "rest", output_ics: Any = None) -> np.ndarray:
         """Filter a whole array at once; returns float64 of the same shape.

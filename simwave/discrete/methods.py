@@ -50,10 +50,11 @@ from simwave.errors import DiscretizationError
 from simwave.discrete.names import DEFAULT_METHOD, METHODS  # noqa: F401 - re-exported
 from simwave.discrete.realization import (
     analog_state_space,
-    expm,
-    hold_integrals,
-    matching_gain,
+    delta_gain,
+    exp_increment,
+    hold_increments,
     pencil_zeros,
+    series_state_space,
     tidy_roots,
 )
 
@@ -77,6 +78,11 @@ class Design:
     method, the change a unit first sample makes to the textbook model's
     output at sample 0 and to the analog state at sample 1 (see
     :func:`_hold_design`); ``bilinear_k`` is K of s = K (z - 1)/(z + 1).
+    ``increment`` is the same model as an incremental (delta-operator) state
+    space (E, G, C, D): x[k+1] = x[k] + E x[k] + G u[k], y[k] = C x[k] + D u[k],
+    E = Phi - I block lower triangular with 1 x 1 and 2 x 2 (modal) diagonal
+    blocks, every entry to its own relative accuracy (see
+    :func:`simwave.discrete.realization.exp_increment`).
     """
 
     zeros: np.ndarray
@@ -86,6 +92,7 @@ class Design:
     correction: tuple[float, np.ndarray] | None = None
     bilinear_k: float | None = None
     notes: dict[str, Any] = field(default_factory=dict)
+    increment: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray] | None = None
 
 
 # --------------------------------------------------------------------------- validation
@@ -163,17 +170,18 @@ def _impulse_design(A, B, C, D, T):
     the average of h_c(0-) = 0 and h_c(0+) = C B where the impulse response jumps
     at t = 0 (Jackson 2000), plus the direct term of a biproper H(s). So
     H(z) = (T C B / 2 + D) + C (z I - Phi)^{-1} (T Phi B), Phi = e^{A T}.
+    Returned in increment form: E = Phi - I (exp_increment), G = T (B + E B).
     """
-    Phi = expm(A * T)
-    Gam = T * (Phi @ B)
+    E = exp_increment(A * T)
+    Gam = T * (B + E @ B)
     Dd = D + T * (C @ B) / 2.0
-    return Phi, Gam, C, Dd
+    return E, Gam, C, Dd
 
 
 def _hold_design(A, B, C, D, T, kind, frac):
     """Step- or ramp-invariant model with a fractional input delay frac*T, 0 <= frac < 1.
 
-    Returns (Phi, Gam, Cd, Dd, correction). The input to the plant on
+    Returns (E, Gam, Cd, Dd, correction), E = Phi - I (increment form). The input to the plant on
     [kT, (k+1)T] is the held (step) or linearly interpolated (ramp) input
     delayed by frac*T, so the interval splits at kT + frac*T; integrating each
     piece exactly (hold_integrals) gives the modified z-transform of the held
@@ -191,39 +199,45 @@ def _hold_design(A, B, C, D, T, kind, frac):
     """
     n = A.shape[0]
     if frac == 0.0:
-        Phi, P0, P1 = hold_integrals(A, B, T)
+        E, P0, P1 = hold_increments(A, B, T)
         if kind == "step-invariant":
-            return Phi, P0 + P1, C, D, None
-        Gam = Phi @ P1 + P0
+            return E, P0 + P1, C, D, None
+        Gam = P1 + E @ P1 + P0  # Phi P1 + P0
         Dd = D + C @ P1
         dy0 = float(D[0, 0] - Dd[0, 0])  # true y[0] = D u0 (lsim), textbook D + C P1
         dxi1 = P0[:, 0] - Gam[:, 0]  # true x[1] = P0 u0, textbook xi[1] = (Phi P1 + P0) u0
-        return Phi, Gam, C, Dd, (dy0, dxi1)
-    Phi1, P01, P11 = hold_integrals(A, B, frac * T)
-    Phi2, P02, P12 = hold_integrals(A, B, (1 - frac) * T)
-    Phi = Phi2 @ Phi1
+        return E, Gam, C, Dd, (dy0, dxi1)
+    E1, P01, P11 = hold_increments(A, B, frac * T)
+    E2, P02, P12 = hold_increments(A, B, (1 - frac) * T)
+    E = E1 + E2 + E2 @ E1  # Phi2 Phi1 - I
+
+    def phi2(X):
+        return X + E2 @ X
+
+    # The previous input sample is an extra state, placed first so that the
+    # increment matrix stays block lower triangular: x_d[k+1] = u[k] (E = -1).
+    def augment(Ga, Gu, Cx, Cd):
+        Ea = np.block([[-np.ones((1, 1)), np.zeros((1, n))], [Ga, E]])
+        return Ea, np.vstack([np.ones((1, 1)), Gu]), np.hstack([Cd, C if Cx is None else Cx])
+
     if kind == "step-invariant":
         # u[k-1] acts on [kT, kT + fT), u[k] on [kT + fT, (k+1)T); y[k] = C x + D u[k-1].
-        Ga = Phi2 @ (P01 + P11)
+        Ga = phi2(P01 + P11)
         Gb = P02 + P12
-        Pa = np.block([[Phi, Ga], [np.zeros((1, n)), np.zeros((1, 1))]])
-        Ga_ = np.vstack([Gb, np.ones((1, 1))])
-        Ca = np.hstack([C, D])
-        return Pa, Ga_, Ca, np.zeros((1, 1)), None
+        Ea, Ga_, Ca = augment(Ga, Gb, None, D)
+        return Ea, Ga_, Ca, np.zeros((1, 1)), None
     f = frac
     # First piece: input runs from f u[k-1] + (1-f) u[k] to u[k];
     # second piece: from u[k] to f u[k] + (1-f) u[k+1].
-    Ga = Phi2 @ P01 * f
-    Gb = Phi2 @ (P01 * (1 - f) + P11) + P02 + P12 * f
+    Ga = phi2(P01) * f
+    Gb = phi2(P01 * (1 - f) + P11) + P02 + P12 * f
     Gc = P12 * (1 - f)
-    Pa = np.block([[Phi, Ga], [np.zeros((1, n)), np.zeros((1, 1))]])
-    Gam = np.vstack([Phi @ Gc + Gb, np.ones((1, 1))])
-    Ca = np.hstack([C, D * f])
+    Ea, Gam, Ca = augment(Ga, Gc + E @ Gc + Gb, None, D * f)
     Dd = C @ Gc + D * (1 - f)
     dy0 = float(0.0 - Dd[0, 0])  # the delayed input is still 0 at t = 0
     x1_true = (P02 + P12 * f)[:, 0]  # input jumps to u0 at fT, then ramps towards u[1]
-    dxi1 = x1_true - (Phi @ Gc + Gb)[:, 0]
-    return Pa, Gam, Ca, Dd, (dy0, dxi1)
+    dxi1 = x1_true - Gam[1:, 0]
+    return Ea, Gam, Ca, Dd, (dy0, dxi1)
 
 
 def peak_frequency(zeros, poles, gain, f_lo: float, f_hi: float) -> float:
@@ -249,8 +263,11 @@ def _matched_design(zeros, poles, gain, T, rate, match_hz, dc_gain):
     pd = np.exp(poles * T)
     zd = np.concatenate([zd, -np.ones(poles.size - zeros.size)])
     where = "DC"
+    # z - 1 = expm1(sT): products near z = 1 keep their digits.
+    wz = np.concatenate([np.expm1(zeros * T), -2.0 * np.ones(poles.size - zeros.size)])
+    wp = np.expm1(poles * T)
     if math.isfinite(dc_gain) and dc_gain != 0.0 and match_hz is None:
-        unit = np.prod(1 - zd) / np.prod(1 - pd)
+        unit = np.prod(-wz) / np.prod(-wp)
         kd = float(np.real(dc_gain / unit))
         at = 0.0
     else:
@@ -259,13 +276,13 @@ def _matched_design(zeros, poles, gain, T, rate, match_hz, dc_gain):
         )
         s = 2j * math.pi * at
         ha = gain * np.prod(s - zeros) / np.prod(s - poles)
-        zz = np.exp(s * T)
-        unit = np.prod(zz - zd) / np.prod(zz - pd)
+        ww = np.expm1(s * T)
+        unit = np.prod(ww - wz) / np.prod(ww - wp)
         kd = float(abs(ha) / abs(unit))
         if np.real(ha * np.conj(unit)) < 0:
             kd = -kd
         where = f"{at:.6g} Hz"
-    return zd, pd, kd, at, where
+    return zd, pd, kd, at, where, (wz, wp)
 
 
 def thiran_zpk(d: float):
@@ -317,28 +334,41 @@ def design(
     notes: dict[str, Any] = {}
     if method == "bilinear":
         zd, pd, kd, K = _bilinear_design(zeros, poles, gain, T, prewarp_hz)
-        return Design(zd, pd, kd, (A, B, C, D), bilinear_k=K, notes=notes)
+        # z - 1 = 2 r / (K - r) for z = (K + r)/(K - r); zeros at infinity -> z - 1 = -2.
+        wz = np.concatenate([2 * zeros / (K - zeros), -2.0 * np.ones(poles.size - zeros.size)])
+        wp = 2 * poles / (K - poles)
+        inc = analog_state_space(wz, wp, kd)
+        return Design(zd, pd, kd, (A, B, C, D), bilinear_k=K, notes=notes, increment=inc)
     if method == "matched-z":
         if dc_gain is None:
             dc_gain = _dc_gain(zeros, poles, gain)
-        zd, pd, kd, at, where = _matched_design(zeros, poles, gain, T, rate, match_hz, dc_gain)
+        zd, pd, kd, at, where, (wz, wp) = _matched_design(
+            zeros, poles, gain, T, rate, match_hz, dc_gain
+        )
         notes["gain_matched_at_hz"] = at
         notes["gain_matched_at"] = where
-        return Design(zd, pd, kd, (A, B, C, D), notes=notes)
+        inc = analog_state_space(wz, wp, kd)
+        return Design(zd, pd, kd, (A, B, C, D), notes=notes, increment=inc)
     correction = None
     if method == "impulse-invariant":
-        Phi, Gam, Cd, Dd = _impulse_design(A, B, C, D, T)
-        pd = np.exp(poles * T)
+        E, Gam, Cd, Dd = _impulse_design(A, B, C, D, T)
     else:
-        Phi, Gam, Cd, Dd, correction = _hold_design(A, B, C, D, T, method, frac)
-        pd = np.exp(poles * T)
-        if frac > 0:
-            pd = np.concatenate([pd, [0.0]])
-    zd = pencil_zeros(Phi, Gam, Cd, Dd)
-    kd = matching_gain(Phi, Gam, Cd, Dd, zd, pd)
+        E, Gam, Cd, Dd, correction = _hold_design(A, B, C, D, T, method, frac)
+    wp = tidy_roots(np.expm1(poles * T))
+    if frac > 0:
+        wp = np.concatenate([wp, [-1.0]])
+    # Zeros of the delta-domain model (E/T, G, C, D): its pencil tends to the analog
+    # one as T -> 0, so zeros near z = 1 come out as z - 1 to full relative accuracy.
+    wz = pencil_zeros(E / T, Gam / T, Cd, Dd) * T
+    thetas = np.concatenate([[0.0], np.abs(poles) * T, np.geomspace(1e-9, math.pi, 48)])
+    kd = delta_gain(E, Gam, Cd, Dd, wz, wp, thetas)
     if kd == 0.0:
-        zd = np.zeros(0, dtype=np.complex128)
-    return Design(zd, tidy_roots(pd), kd, (A, B, C, D), correction=correction, notes=notes)
+        wz = np.zeros(0, dtype=np.complex128)
+    pd = np.exp(poles * T)
+    if frac > 0:
+        pd = np.concatenate([pd, [0.0]])
+    return Design(tidy_roots(1.0 + wz), tidy_roots(pd), kd, (A, B, C, D),
+                  correction=correction, notes=notes, increment=(E, Gam, Cd, Dd))
 
 
 def _dc_gain(zeros, poles, gain) -> float:
@@ -444,6 +474,7 @@ def discretize(
     prewarp_hz: float | None = None,
     delay_s: float | None = None,
     match_hz: float | None = None,
+    realization: str = "auto",
     **extra: Any,
 ):
     """Discrete model of ``system`` at ``rate_hz`` by a published method.
@@ -466,6 +497,14 @@ def discretize(
         ``matched-z`` only: frequency (Hz, below Nyquist) where the gain is
         matched. Default: DC when H(0) is finite and non-zero, else where |H|
         peaks between 1e-5 and 0.45 times the rate (stated in ``options``).
+    realization : {"auto", "sections", "incremental"}
+        How the model runs. ``sections``: second-order sections through
+        scipy.signal.sosfilt (fastest). ``incremental``: a delta-operator state
+        space, x[k+1] = x[k] + E x[k] + G u[k], that keeps its digits when poles
+        are near z = 1 (rates far above the system's frequencies, stiff systems,
+        integrators), several times slower. ``auto`` (default) runs sections
+        unless their expected round-off exceeds 1e-12 of the signal; the choice,
+        the reason and the expected round-off level are in ``options``.
 
     Returns
     -------
@@ -527,7 +566,7 @@ def discretize(
     if extra:
         raise DiscretizationError(
             f"unknown discretization option(s) {', '.join(sorted(extra))}; "
-            "known: prewarp_hz, delay_s, match_hz"
+            "known: prewarp_hz, delay_s, match_hz, realization"
         )
     rate = check_rate(rate_hz)
     name = check_method(method)
@@ -585,6 +624,9 @@ def discretize(
         zd = np.concatenate([zd, tz])
         pd = np.concatenate([pd, tp])
         kd = kd * tk
+        des.increment = series_state_space(
+            [des.increment, analog_state_space(tz - 1.0, tp - 1.0, tk)]
+        )
     options: dict[str, Any] = {
         "method": name,
         "rate_hz": rate,
@@ -619,4 +661,5 @@ def discretize(
         design=des,
         hold_frac=hold_frac,
         thiran_d=thiran_d,
+        realization=str(realization),
     )

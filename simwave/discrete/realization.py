@@ -25,6 +25,10 @@ __all__ = [
     "tidy_roots",
     "ss_response",
     "expm",
+    "exp_increment",
+    "hold_increments",
+    "delta_gain",
+    "state_blocks",
 ]
 
 
@@ -278,6 +282,39 @@ def expm(A: np.ndarray) -> np.ndarray:
     return R
 
 
+def exp_increment(M: np.ndarray) -> np.ndarray:
+    """e^M - I, computed without ever forming e^M (the increment form).
+
+    When M is small (a sample period far shorter than the system's time
+    constants) e^M is I plus tiny entries, and forming it rounds those entries
+    to the absolute precision of 1: a pole at 1 - 1e-7 keeps only 9 digits.
+    Here the increment F = e^M - I is computed directly: a Taylor series at
+    M / 2^s with ||M / 2^s||_1 <= 1/8 (11 terms, truncation below 1e-17
+    relative), then s doublings F(2h) = 2 F(h) + F(h)^2, which follow from
+    e^{2hM} = (e^{hM})^2 and never add I back. Every entry keeps its own
+    relative accuracy, which is what the incremental (delta-operator)
+    realization needs (Middleton & Goodwin, *Digital Control and Estimation:
+    A Unified Approach*, 1990, ch. 2, the delta-domain model of a sampled
+    system; Higham, SIAM J. Matrix Anal. Appl. 26(4), 2005, for scaling and
+    squaring).
+    """
+    M = np.asarray(M, dtype=np.float64)
+    n = M.shape[0]
+    if n == 0:
+        return np.zeros((0, 0))
+    norm = float(np.max(np.sum(np.abs(M), axis=0)))
+    s = max(0, int(math.ceil(math.log2(norm * 8.0)))) if norm > 0 else 0
+    X = M / 2.0**s
+    eye = np.eye(n)
+    F = eye + X / 12.0
+    for k in range(11, 1, -1):  # Horner: X (I + X/2 (I + X/3 (... (I + X/12))))
+        F = eye + (X @ F) / k
+    F = X @ F
+    for _ in range(s):
+        F = 2.0 * F + F @ F
+    return F
+
+
 # --------------------------------------------------------------------------- hold integrals
 def hold_integrals(A: np.ndarray, B: np.ndarray, h: float):
     """Matrix exponential and hold integrals over one interval of length h.
@@ -289,7 +326,8 @@ def hold_integrals(A: np.ndarray, B: np.ndarray, h: float):
 
     Computed with one exponential of the block matrix
     [[A h, B h, 0], [0, 0, I], [0, 0, 0]] (Van Loan 1978), the same construction
-    scipy.signal.lsim uses for its first-order-hold interpolation.
+    scipy.signal.lsim uses for its first-order-hold interpolation, taken in
+    increment form (:func:`hold_increments`).
 
     References
     ----------
@@ -298,6 +336,17 @@ def hold_integrals(A: np.ndarray, B: np.ndarray, h: float):
     .. [2] Franklin, Powell & Workman, *Digital Control of Dynamic Systems*,
            3rd ed., sec. 6.3 (zero- and triangle-hold equivalents).
     """
+    E, P0, P1 = hold_increments(A, B, h)
+    return np.eye(A.shape[0]) + E, P0, P1
+
+
+def hold_increments(A: np.ndarray, B: np.ndarray, h: float):
+    """(E, P0, P1) with E = e^{A h} - I and the hold integrals of :func:`hold_integrals`.
+
+    The Van Loan block matrix exponentiated in increment form
+    (:func:`exp_increment`), so that E and the input columns keep their
+    relative accuracy however short h is against the time constants.
+    """
     n = A.shape[0]
     if n == 0:
         return np.zeros((0, 0)), np.zeros((0, 1)), np.zeros((0, 1))
@@ -305,11 +354,11 @@ def hold_integrals(A: np.ndarray, B: np.ndarray, h: float):
     M[:n, :n] = A * h
     M[:n, n : n + 1] = B * h
     M[n, n + 1] = 1.0
-    E = expm(M)
-    Phi = E[:n, :n]
-    Q = E[:n, n : n + 1]  # int_0^h e^{As} ds B (zero-order hold)
-    P1 = E[:n, n + 1 : n + 2]
-    return Phi, Q - P1, P1
+    F = exp_increment(M)
+    E = F[:n, :n]
+    Q = F[:n, n : n + 1]  # int_0^h e^{As} ds B (zero-order hold)
+    P1 = F[:n, n + 1 : n + 2]
+    return E, Q - P1, P1
 
 
 # --------------------------------------------------------------------------- zeros and gain
@@ -390,3 +439,52 @@ def ss_response_many(Phi, Gam, C, D, pts: np.ndarray) -> np.ndarray:
     rhs = np.broadcast_to(Gam.astype(np.complex128), (pts.size, n, 1))
     v = np.linalg.solve(mats, rhs)[:, :, 0]
     return D[0, 0] + v @ C[0]
+
+
+# --------------------------------------------------------------------------- delta domain
+def state_blocks(E: np.ndarray) -> list[tuple[int, int]]:
+    """(start, size) of the diagonal blocks of a block-lower-triangular E.
+
+    A 2 x 2 block is a complex pole pair in modal form (non-zero entry above
+    the diagonal); everything else is 1 x 1.
+    """
+    n = E.shape[0]
+    out, i = [], 0
+    while i < n:
+        size = 2 if i + 1 < n and E[i, i + 1] != 0.0 else 1
+        out.append((i, size))
+        i += size
+    return out
+
+
+def increment_response(E, G, C, D, w: np.ndarray) -> np.ndarray:
+    """D + C (w I - E)^{-1} G at points w = z - 1 (one batched solve)."""
+    return ss_response_many(E, G, C, D, np.asarray(w, dtype=np.complex128) + 0.0)
+
+
+def delta_gain(E, G, C, D, w_zeros, w_poles, theta_candidates) -> float:
+    """Gain k with k prod(w - w_z)/prod(w - w_p) = D + C (w I - E)^{-1} G, w = z - 1.
+
+    Matched at the candidate unit-circle angle (radians per sample) where the
+    model's |H| is largest, among those not on top of a root; ``w = e^{j theta}
+    - 1`` is formed with expm1, so points near z = 1 lose nothing. Matching
+    where |H| is largest keeps the match away from stopband round-off (where
+    |H| can be 1e-19 of its peak, and the gain would be fitted to noise).
+    """
+    w_zeros = np.asarray(w_zeros, dtype=np.complex128)
+    w_poles = np.asarray(w_poles, dtype=np.complex128)
+    th = np.unique(np.clip(np.asarray(theta_candidates, dtype=np.float64), 0.0, math.pi))
+    w = np.expm1(1j * th)
+    roots = np.concatenate([w_zeros, w_poles])
+    if roots.size:
+        scale = np.maximum(np.abs(w), np.max(np.abs(roots)) * 1e-300)
+        near = np.min(np.abs(w[:, None] - roots[None, :]), axis=1)
+        keep = near > 1e-6 * np.maximum(scale, 1e-300)
+        if np.any(keep):
+            w = w[keep]
+    # A direct evaluation of (w I - E) at w = 0 is exact for a nonsingular E.
+    h = increment_response(E, G, C, D, w)
+    h = np.where(np.isfinite(h), h, 0.0)
+    i = int(np.argmax(np.abs(h)))
+    unit = np.prod(w[i] - w_zeros) / np.prod(w[i] - w_poles)
+    return float(np.real(h[i] / unit))
