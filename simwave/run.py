@@ -226,61 +226,29 @@ class _LevelMeter:
 
 
 # --------------------------------------------------------------------------- the pipeline
-#: A model whose magnitude is off by more than this inside the band is called poor.
-POOR_MODEL_DB = 1.0
-#: The band for that check: where |H| is within this many dB of its peak (common practice
-#: would say "the pass band"; 20 dB keeps the transition region in).
-IN_BAND_DB = 20.0
-
-
 def in_band_check(model) -> dict[str, Any]:
-    """Cheap rate safeguard: largest magnitude error of the model where |H| matters.
+    """Cheap rate safeguard: steady-sine error (magnitude and phase) of the model.
 
-    Compares |H_d(e^{j 2 pi f / rate})| with |H(j 2 pi f)| on 96 log-spaced
-    frequencies up to 0.45 x rate, keeping those where |H| is within
-    :data:`IN_BAND_DB` of its peak (dead time does not change magnitudes).
+    See :func:`simwave.discrete.accuracy.method_check` (a grid that includes every
+    resonance and its half-power width; about a millisecond).
     """
-    system = model.system
-    rate = model.rate
-    roots = np.abs(np.concatenate([np.atleast_1d(system.poles), np.atleast_1d(system.zeros)]))
-    roots = roots[roots > 0]
-    lo = min(rate * 1e-4, 0.1 * float(roots.min()) / (2 * np.pi)) if roots.size else rate * 1e-4
-    f = np.geomspace(lo, 0.45 * rate, 96)
-    ha = np.abs(system.frequency_response(f))
-    hd = np.abs(model.frequency_response(f, dead_time=False))
-    keep = np.isfinite(ha) & (ha >= np.max(ha[np.isfinite(ha)]) * 10 ** (-IN_BAND_DB / 20))
-    with np.errstate(divide="ignore", invalid="ignore"):
-        err_db = 20 * np.log10(hd[keep] / ha[keep])
-    err_db = np.where(np.isfinite(err_db), err_db, np.inf)
-    i = int(np.argmax(np.abs(err_db)))
-    worst = float(err_db[i])
-    return {
-        "max_in_band_mag_error_db": worst,
-        "at_hz": float(f[keep][i]),
-        "band_top_hz": float(f[keep].max()),
-        "limit_db": POOR_MODEL_DB,
-        "poor": bool(abs(worst) > POOR_MODEL_DB),
-    }
+    from simwave.discrete.accuracy import method_check
+
+    return method_check(model)
 
 
 def _poor_model_warning(
-    check: dict[str, Any], accuracy: dict[str, Any] | None, factor: int
+    check: dict[str, Any], accuracy: dict[str, Any] | None, factor: int, model=None
 ) -> str:
-    text = (
-        f"the {accuracy['method'] if accuracy else 'discrete'} model is off by "
-        f"{check['max_in_band_mag_error_db']:+.2f} dB at {check['at_hz']:.6g} Hz, inside the "
-        f"band where |H| is within {IN_BAND_DB:g} dB of its peak"
+    from simwave.discrete.accuracy import method_warning
+
+    method = model.method if model is not None else (accuracy or {}).get("method", "discrete")
+    rate = model.rate if model is not None else (accuracy or {}).get("rate_hz", 0.0)
+    return method_warning(
+        check, accuracy, method, rate, factor,
+        system=model.system if model is not None else None,
+        realization=model.options if model is not None else None,
     )
-    if accuracy:
-        rates = {m: r for m, r in (accuracy.get("suggested_rate_hz") or {}).items() if r}
-        own = rates.get(accuracy["method"])
-        if own:
-            text += f"; a rate of {own:.6g} Hz or more brings it under 0.1 dB"
-            # Oversampling helps where the error comes from the s-to-z mapping; the hold
-            # methods read the input the same way at any rate, so there it changes nothing.
-            if factor == 1 and accuracy["method"] in ("bilinear", "impulse-invariant", "matched-z"):
-                text += f" (or oversample >= {int(np.ceil(own / accuracy['rate_hz']))})"
-    return text
 
 
 def _as_system(system: System | str) -> System:
@@ -458,7 +426,7 @@ def simulate(
         if text not in caught:
             caught.append(text)
     if check["poor"]:
-        caught.append(_poor_model_warning(check, accuracy, factor))
+        caught.append(_poor_model_warning(check, accuracy, factor, model))
     over_info = None
     if factor > 1:
         base = _prepared_model(sys_, src.rate, method, prewarp_hz, delay_s, match_hz)

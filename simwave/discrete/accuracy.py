@@ -23,15 +23,202 @@ import numpy as np
 
 from simwave.errors import DiscretizationError
 from simwave.discrete.methods import METHODS, _hold_design, _impulse_design, design, peak_frequency
-from simwave.discrete.realization import analog_state_space, ss_response_many
+from simwave.discrete.realization import analog_state_space, increment_response
 
-__all__ = ["AccuracyReport", "accuracy_report", "DEFAULT_LIMIT_DB"]
+__all__ = ["AccuracyReport", "accuracy_report", "DEFAULT_LIMIT_DB", "method_check",
+           "method_warning", "SINE_ERROR_LIMIT", "check_frequencies"]
 
 #: Default magnitude-error limit for the suggested sample rate (dB).
 DEFAULT_LIMIT_DB = 0.1
 
 #: |H| this far below its peak ends the default band and the evaluated region.
 _FLOOR_DB = 60.0
+
+#: A model is called poor (and warned about) when a steady sine somewhere comes out
+#: off by more than this fraction of the largest steady output, magnitude and phase
+#: together: |H_d - H| / max|H|. simwave's choice: 1 %, about 0.09 dB or 0.6 deg at
+#: the peak.
+SINE_ERROR_LIMIT = 0.01
+
+#: The older magnitude-only rule, kept as a second trigger: more than this many dB
+#: off where |H| is within IN_BAND_DB of its peak.
+POOR_MODEL_DB = 1.0
+IN_BAND_DB = 20.0
+
+#: Offsets, in half-power half-widths, around every resonance put on the grid.
+_WIDTHS = (-4.0, -2.0, -1.0, -0.5, -0.25, 0.0, 0.25, 0.5, 1.0, 2.0, 4.0)
+
+
+def check_frequencies(system, rate: float, lo: float, hi: float, discrete_poles=None,
+                      n_log: int = 96) -> np.ndarray:
+    """Frequencies (Hz) that cannot step over a narrow resonance, within [lo, hi].
+
+    ``n_log`` log-spaced points plus, for every analog pole and zero, its natural
+    frequency f_n and the points f_n (1 + c zeta) for c in +-0.25 ... +-4 half-power
+    half-widths (zeta f_n is the half-power half-width of a resonance, Q = 1/(2 zeta):
+    Ogata, *Modern Control Engineering*, 5th ed., sec. 8-2, from memory), its damped
+    frequency; and the same around the discrete poles (angle theta and radius r:
+    centre theta/(2 pi T), half-width about (1 - r)/(2 pi T)), which is where a method
+    that moves a resonance puts it.
+    """
+    pts = [np.geomspace(lo, hi, n_log)]
+    roots = np.concatenate([np.atleast_1d(system.poles), np.atleast_1d(system.zeros)])
+    for r in roots:
+        wn = abs(r)
+        if wn == 0:
+            continue
+        zeta = min(1.0, abs(r.real) / wn)
+        fn = wn / (2 * math.pi)
+        pts.append(fn * (1.0 + np.array(_WIDTHS) * max(zeta, 1e-12)))
+        pts.append([abs(r.imag) / (2 * math.pi)])
+    if discrete_poles is not None:
+        for q in np.atleast_1d(discrete_poles):
+            rad = abs(q)
+            if rad == 0 or q.imag < 0:
+                continue
+            fc = math.atan2(q.imag, q.real) * rate / (2 * math.pi)
+            half = max(abs(1.0 - rad), 1e-15) * rate / (2 * math.pi)
+            pts.append(fc + np.array(_WIDTHS) * half)
+    f = np.concatenate([np.ravel(p) for p in pts])
+    return np.unique(f[(f >= lo) & (f <= hi)])
+
+
+def _responses(model, f: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(analog, discrete) complex responses at f; dead time: the fraction only, both sides."""
+    system = model.system
+    ha = system.frequency_response(f)
+    if system.delay_s:
+        ha = ha * np.exp(2j * np.pi * f * system.delay_s)  # take the dead time out...
+    frac = model.delay_samples - model.delay_line
+    ha = ha * np.exp(-2j * np.pi * f * frac / model.rate)  # ...and put its fraction back
+    hd = model.frequency_response(f, dead_time=False)
+    return ha, hd
+
+
+def method_check(model) -> dict[str, Any]:
+    """What the model gets wrong for steady sines, magnitude and phase (the rate safeguard).
+
+    On :func:`check_frequencies` up to 0.45 x rate: the steady-sine error
+    |H_d - H| / max|H| (the error of the steady output for a unit sine at that
+    frequency, as a fraction of the largest steady output any unit sine gets), and
+    the magnitude (dB) and phase (deg) errors behind it. ``poor`` when that error
+    exceeds :data:`SINE_ERROR_LIMIT` or the magnitude is off by more than
+    :data:`POOR_MODEL_DB` where |H| is within :data:`IN_BAND_DB` of its peak.
+    Costs about a millisecond (a few hundred frequencies).
+    """
+    system = model.system
+    rate = model.rate
+    roots = np.abs(np.concatenate([np.atleast_1d(system.poles), np.atleast_1d(system.zeros)]))
+    roots = roots[roots > 0]
+    lo = min(rate * 1e-4, 0.1 * float(roots.min()) / (2 * np.pi)) if roots.size else rate * 1e-4
+    f = check_frequencies(system, rate, lo, 0.45 * rate, model.zpk[1])
+    ha, hd = _responses(model, f)
+    aa = np.abs(ha)
+    finite = np.isfinite(aa)
+    peak = float(np.max(aa[finite])) if np.any(finite) else 0.0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        sine = np.where(finite, np.abs(hd - ha) / peak, 0.0) if peak > 0 else np.zeros(f.size)
+        keep = finite & (aa >= peak * 10 ** (-IN_BAND_DB / 20))
+        err_db = 20 * np.log10(np.abs(hd[keep]) / aa[keep])
+        ph = _wrap_deg(np.angle(hd) - np.angle(ha))
+    sine = np.where(np.isfinite(sine), sine, np.inf)
+    err_db = np.where(np.isfinite(err_db), err_db, np.inf)
+    i = int(np.argmax(np.abs(err_db)))
+    j = int(np.argmax(sine))
+    with np.errstate(divide="ignore"):
+        mag_j = float(20 * np.log10(abs(hd[j]) / aa[j])) if aa[j] > 0 else math.inf
+    worst_db = float(err_db[i])
+    worst_sine = float(sine[j])
+    return {
+        "max_in_band_mag_error_db": worst_db,
+        "at_hz": float(f[keep][i]),
+        "band_top_hz": float(f[keep].max()),
+        "limit_db": POOR_MODEL_DB,
+        "max_sine_error": worst_sine,
+        "sine_error_at_hz": float(f[j]),
+        "sine_mag_error_db": mag_j,
+        "sine_phase_error_deg": float(ph[j]),
+        "sine_error_limit": SINE_ERROR_LIMIT,
+        "frequencies_checked": int(f.size),
+        "poor": bool(abs(worst_db) > POOR_MODEL_DB or worst_sine > SINE_ERROR_LIMIT),
+    }
+
+
+def _nearest_resonance(system, f_hz: float) -> tuple[float, float] | None:
+    """(f_n Hz, Q) of the lightly damped analog pole pair nearest f_hz (Q > 2), if any."""
+    best = None
+    for p in np.atleast_1d(system.poles):
+        if p.imag <= 0 or abs(p) == 0:
+            continue
+        zeta = -p.real / abs(p)
+        if zeta <= 0 or zeta >= 0.25:
+            continue
+        fn = abs(p) / (2 * math.pi)
+        d = abs(math.log(fn / f_hz)) if f_hz > 0 else math.inf
+        if best is None or d < best[0]:
+            best = (d, fn, 1 / (2 * zeta))
+    return None if best is None else (best[1], best[2])
+
+
+#: What a method's error means for an input, by method.
+_MEANING = {
+    "step-invariant": "exact at the samples for inputs held constant between samples; "
+                      "smooth inputs (sines, recorded continuous signals) come out lagging "
+                      "by about half a sample",
+    "ramp-invariant": "exact at the samples for inputs linear between samples; content near "
+                      "this frequency is not close to linear over one sample at this rate",
+    "bilinear": "the bilinear map warps the frequency axis, so content near this frequency "
+                "is shaped as the analog system would shape a different frequency",
+    "impulse-invariant": "the response above the Nyquist frequency folds back (aliasing)",
+    "matched-z": "mapping poles and zeros one by one does not keep the response between them",
+}
+
+
+def method_warning(check: dict[str, Any], accuracy: dict[str, Any] | None, method: str,
+                   rate: float, factor: int = 1, system=None,
+                   realization: dict[str, Any] | None = None) -> str:
+    """The one-paragraph warning for a poor model: how far off, what it means, what to do."""
+    f = check["sine_error_at_hz"]
+    text = (
+        f"the {method} model is off for steady sines: at {f:.6g} Hz by "
+        f"{100 * check['max_sine_error']:.3g} % of the largest steady output "
+        f"(magnitude {check['sine_mag_error_db']:+.3g} dB, phase "
+        f"{check['sine_phase_error_deg']:+.3g} deg there; limit "
+        f"{100 * check['sine_error_limit']:g} %)"
+    )
+    if abs(check["max_in_band_mag_error_db"]) > check["limit_db"]:
+        text += (
+            f", and the magnitude by {check['max_in_band_mag_error_db']:+.2f} dB at "
+            f"{check['at_hz']:.6g} Hz"
+        )
+    text += f"; for your input: {_MEANING.get(method, 'the discrete response differs')}"
+    remedies = []
+    sec = (realization or {}).get("sections_round_off_level")
+    if (realization or {}).get("realization") == "sections" and sec and sec >= 0.1 * \
+            check["max_sine_error"]:
+        remedies.append("the error is round-off of the second-order sections at this rate, "
+                        "not the method: use the incremental realization or a lower rate")
+    res = _nearest_resonance(system, f) if system is not None else None
+    if method == "bilinear" and res is not None:
+        remedies.append(f"prewarp at the resonance ({res[0]:.6g} Hz, Q = {res[1]:.3g})")
+    rates = {m: r for m, r in ((accuracy or {}).get("suggested_rate_hz") or {}).items() if r}
+    own = rates.get(method)
+    if own and own > rate:
+        step = f"raise the rate to {own:.6g} Hz or more"
+        if method in ("bilinear", "impulse-invariant", "matched-z"):
+            step += f" (or oversample >= {int(np.ceil(own / rate)) * factor})"
+        remedies.append(step)
+    elif own is None and accuracy is not None:
+        remedies.append("no rate up to 1e6 x the band edge brings this method within the "
+                        "limit")
+    others = [m for m, r in rates.items() if m != method and r is not None and r <= rate]
+    if others:
+        remedies.append(f"use {' or '.join(others)} (within the limit at this rate)")
+    elif method == "step-invariant":
+        remedies.append("for smooth inputs use ramp-invariant")
+    if remedies:
+        text += "; remedy: " + "; or ".join(remedies)
+    return text
 
 
 def _log_response(zeros, poles, gain, pts) -> tuple[np.ndarray, np.ndarray]:
@@ -108,11 +295,10 @@ def _check_band(band_hz: Any, system, rate: float) -> tuple[float, float]:
     return lo, hi
 
 
-def _grid(system, lo: float, hi: float) -> np.ndarray:
-    extra = [abs(r) / (2 * math.pi) for r in np.concatenate([system.poles, system.zeros])]
-    extra = [v for v in extra if lo < v < hi]
-    f = np.concatenate([np.geomspace(lo, hi, 1200), np.linspace(lo, hi, 600)[1:], extra, [hi]])
-    return np.unique(f)
+def _grid(system, lo: float, hi: float, rate: float, discrete_poles=None) -> np.ndarray:
+    dense = np.concatenate([np.geomspace(lo, hi, 1200), np.linspace(lo, hi, 600)[1:], [hi]])
+    return np.unique(np.concatenate([
+        dense, check_frequencies(system, rate, lo, hi, discrete_poles, n_log=2)]))
 
 
 @dataclass
@@ -140,6 +326,10 @@ class AccuracyReport:
     suggested_rate_hz: dict[str, float | None]
     warnings: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
+    max_sine_error: float | None = None
+    max_sine_error_at_hz: float | None = None
+    realization: str | None = None
+    round_off_level: float | None = None
 
     @classmethod
     def from_dict(cls, d: dict[str, Any]) -> AccuracyReport:
@@ -174,6 +364,10 @@ class AccuracyReport:
             "suggested_rate_hz": dict(self.suggested_rate_hz),
             "warnings": list(self.warnings),
             "notes": list(self.notes),
+            "max_sine_error": self.max_sine_error,
+            "max_sine_error_at_hz": self.max_sine_error_at_hz,
+            "realization": self.realization,
+            "round_off_level": self.round_off_level,
         }
 
     def format(self) -> str:
@@ -194,6 +388,16 @@ class AccuracyReport:
             f"  largest phase error     {_deg(self.max_phase_error_deg)} at {ph_at}",
             f"  DC gain error           {dc}",
         ]
+        if self.max_sine_error is not None:
+            lines.append(
+                f"  steady-sine error       {100 * self.max_sine_error:.3g} % of the largest "
+                f"steady output, at {_hz(self.max_sine_error_at_hz)} (magnitude and phase)"
+            )
+        if self.realization is not None:
+            lines.append(
+                f"  realization             {self.realization}, expected round-off about "
+                f"{self.round_off_level:.1e} of the signal (estimate)"
+            )
         if self.dead_time_s > 0:
             lines.append(
                 f"  dead time               {self.dead_time_s:.6g} s = "
@@ -204,7 +408,8 @@ class AccuracyReport:
                 f"{_db(self.dead_time_max_mag_error_db)} (largest in the band)"
             )
         lines.append(
-            f"  lowest rate for |magnitude error| <= {self.error_limit_db:g} dB in this band:"
+            f"  lowest rate for a steady-sine error within {self.error_limit_db:g} dB "
+            "(magnitude and phase) in this band:"
         )
         for name, rate in self.suggested_rate_hz.items():
             mark = " (this model)" if name == self.method else ""
@@ -244,47 +449,49 @@ def _errors(logd, angd, loga, anga, f, mask):
     return float(mag_db[im]), float(f[im]), float(ph[ip]), float(f[ip])
 
 
-#: Methods whose discrete model is a state space (Phi, Gamma, C, D) before it becomes
-#: zeros, poles and gain: the rate search evaluates that state space directly.
+#: Methods whose discrete model is a state space before it becomes zeros, poles and
+#: gain: the rate search evaluates that state space directly.
 _STATE_SPACE_METHODS = ("impulse-invariant", "step-invariant", "ramp-invariant")
 
 
-def _state_space_log_magnitude(system, method: str, rate: float, f: np.ndarray) -> np.ndarray:
-    """log|H_d(e^{j 2 pi f / rate})| of a hold or impulse-invariant model, from its state space.
+def _increment_model(system, method: str, rate: float, prewarp_hz, match_hz):
+    """(E, G, C, D) of ``method`` at ``rate`` in increment form, E = Phi - I.
 
-    The same transfer function :func:`design` returns as zeros, poles and gain,
-    D + C (zI - Phi)^-1 Gamma (Franklin, Powell & Workman, 3rd ed., ch. 6), without
-    the generalized-eigenvalue zeros and the gain matching that make up most of a
-    design's cost: the rate search evaluates ~60 candidate models per report.
+    For the hold and impulse-invariant methods straight from the state space
+    (Franklin, Powell & Workman, 3rd ed., ch. 6), without the generalized-
+    eigenvalue zeros and the gain matching that make up most of a design's
+    cost: the rate search evaluates ~60 candidate models per report.
     """
-    A, B, C, D = analog_state_space(system.zeros, system.poles, system.gain)
-    T = 1.0 / rate
-    if method == "impulse-invariant":
-        Phi, Gam, Cd, Dd = _impulse_design(A, B, C, D, T)
-    else:
-        Phi, Gam, Cd, Dd, _ = _hold_design(A, B, C, D, T, method, 0.0)
-    h = ss_response_many(Phi, Gam, Cd, Dd, np.exp(2j * np.pi * f / rate))
-    with np.errstate(divide="ignore"):
-        return np.log(np.abs(h))
+    if method in _STATE_SPACE_METHODS:
+        A, B, C, D = analog_state_space(system.zeros, system.poles, system.gain)
+        T = 1.0 / rate
+        if method == "impulse-invariant":
+            return _impulse_design(A, B, C, D, T)
+        return _hold_design(A, B, C, D, T, method, 0.0)[:4]
+    des = design(system.zeros, system.poles, system.gain, rate, method,
+                 prewarp_hz=prewarp_hz, match_hz=match_hz, dc_gain=system.dc_gain)
+    return des.increment
 
 
-def _method_error(system, method, rate, f, loga, anga, prewarp_hz, match_hz) -> float:
-    """Largest |magnitude error| (dB) of ``method`` at ``rate`` on the points f."""
+def _method_error(system, method, rate, f, ha, floor, prewarp_hz, match_hz) -> float:
+    """Largest steady-sine error of ``method`` at ``rate`` on the points f.
+
+    |H_d - H| / max(|H|, floor): relative where |H| is above the floor (magnitude
+    and phase together), relative to the floor below it. H_d is evaluated from the
+    model's increment form, exact near z = 1, so a high rate never looks worse
+    than a low one through round-off of the evaluation.
+    """
     pw = mh = None
     if method == "bilinear" and prewarp_hz is not None and prewarp_hz < rate / 2:
         pw = prewarp_hz
     if method == "matched-z" and match_hz is not None and match_hz < rate / 2:
         mh = match_hz
     try:
-        if method in _STATE_SPACE_METHODS:
-            logd = _state_space_log_magnitude(system, method, rate, f)
-        else:
-            des = design(system.zeros, system.poles, system.gain, rate, method,
-                         prewarp_hz=pw, match_hz=mh, dc_gain=system.dc_gain)
-            logd, _ = _digital((des.zeros, des.poles, des.gain), rate, f)
+        E, G, C, D = _increment_model(system, method, rate, pw, mh)
     except DiscretizationError:
         return math.inf
-    err = np.abs(logd - loga) * 20 / math.log(10)
+    hd = increment_response(E, G, C, D, np.expm1(2j * np.pi * f / rate))
+    err = np.abs(hd - ha) / np.maximum(np.abs(ha), floor)
     err = err[np.isfinite(err)]
     return float(np.max(err)) if err.size else math.inf
 
@@ -292,9 +499,12 @@ def _method_error(system, method, rate, f, loga, anga, prewarp_hz, match_hz) -> 
 def suggest_rates(
     system, band, mask_f, limit_db, prewarp_hz=None, match_hz=None
 ) -> dict[str, float | None]:
-    """Lowest rate per method that keeps |magnitude error| under limit_db.
+    """Lowest rate per method whose steady-sine error stays within ``limit_db``.
 
-    Rates are in Hz, rounded up to 3 significant figures.
+    The limit in dB is read as a complex relative error 10^(limit/20) - 1
+    (0.1 dB: 1.16 %), magnitude and phase together, where |H| is within 20 dB
+    of its peak (relative to that level below it). Rates are in Hz, rounded up
+    to 3 significant figures.
 
     The band is fixed in hertz and must lie below 0.45 times the candidate
     rate. Search: doubling from band_high/0.45 until the error is under the
@@ -304,22 +514,27 @@ def suggest_rates(
     """
     f = mask_f
     if f.size > 160:
-        f = f[np.linspace(0, f.size - 1, 160).astype(int)]
-    loga, anga = _analog(system, f)
+        keep = np.linspace(0, f.size - 1, 160).astype(int)
+        f = np.unique(np.concatenate([f[keep], check_frequencies(
+            system, 1.0, f[0], f[-1], None, n_log=2)]))
+    ha = _analog_h(system, f)
+    peak = float(np.max(np.abs(ha[np.isfinite(ha)]))) if np.any(np.isfinite(ha)) else 1.0
+    floor = 0.1 * peak
+    x = 10 ** (limit_db / 20) - 1
     r0 = band[1] / 0.45
     out: dict[str, float | None] = {}
     for method in METHODS:
         def err(r: float, method: str = method) -> float:
-            return _method_error(system, method, r, f, loga, anga, prewarp_hz, match_hz)
+            return _method_error(system, method, r, f, ha, floor, prewarp_hz, match_hz)
 
-        if err(r0) <= limit_db:
+        if err(r0) <= x:
             out[method] = _round_up(r0)
             continue
         lo, hi = r0, None
         r = r0
         for _ in range(20):
             r *= 2
-            if err(r) <= limit_db:
+            if err(r) <= x:
                 hi = r
                 break
             lo = r
@@ -328,12 +543,20 @@ def suggest_rates(
             continue
         for _ in range(8):
             mid = math.sqrt(lo * hi)
-            if err(mid) <= limit_db:
+            if err(mid) <= x:
                 hi = mid
             else:
                 lo = mid
         out[method] = _round_up(hi)
     return out
+
+
+def _analog_h(system, f: np.ndarray) -> np.ndarray:
+    """H(j 2 pi f) without the dead time (complex)."""
+    h = system.frequency_response(f)
+    if system.delay_s:
+        h = h * np.exp(2j * np.pi * f * system.delay_s)
+    return h
 
 
 def _round_up(x: float) -> float:
@@ -374,7 +597,7 @@ def accuracy_report(
     system = model.system
     rate = model.rate
     lo, hi = _check_band(band_hz, system, rate)
-    f = _grid(system, lo, hi)
+    f = _grid(system, lo, hi, rate, model.zpk[1])
     loga, anga = _analog(system, f)
     finite = np.isfinite(loga)
     peak = np.max(loga[finite]) if np.any(finite) else 0.0
@@ -396,6 +619,11 @@ def accuracy_report(
         with np.errstate(divide="ignore"):
             logd, angd = np.log(np.abs(h)), np.angle(h)
     mag, mag_at, ph, ph_at = _errors(logd, angd, loga, anga, f, mask)
+    # Steady-sine error, magnitude and phase together, relative to the peak |H|.
+    with np.errstate(over="ignore", invalid="ignore"):
+        sine = np.abs(np.exp(logd + 1j * angd) - np.exp(loga + 1j * anga)) / math.exp(peak)
+    sine = np.where(finite & np.isfinite(sine), sine, 0.0)
+    i_sine = int(np.argmax(sine))
 
     dc_err = None
     dc_a = system.dc_gain
@@ -456,6 +684,10 @@ def accuracy_report(
         suggested_rate_hz=suggested,
         warnings=list(model.warnings),
         notes=notes,
+        max_sine_error=float(sine[i_sine]),
+        max_sine_error_at_hz=float(f[i_sine]),
+        realization=getattr(model, "realization", None),
+        round_off_level=getattr(model, "round_off_level", None),
     )
 
 
@@ -484,6 +716,15 @@ def discrete_section(
     out = model.accuracy(band_hz=band_hz, limit_db=limit_db).to_dict()
     out["sections"] = model.n_sections
     out["delay_line_samples"] = model.delay_line
+    out["realization_reason"] = model.options.get("realization_reason")
+    check = method_check(model)
+    out["method_check"] = check
+    if check["poor"]:
+        text = method_warning(check, out, model.method, model.rate, 1, system, model.options)
+        out["warnings"].append(text)
+        import warnings as _w
+
+        _w.warn(text, stacklevel=2)
     return out
 
 
@@ -491,6 +732,9 @@ def format_discrete_section(d: dict[str, Any]) -> list[str]:
     """Text lines for :func:`discrete_section` output."""
     lines = AccuracyReport.from_dict(d).format().splitlines()
     lines.insert(1, f"  second-order sections   {d.get('sections')}")
+    if d.get("realization_reason"):
+        at = next(i for i, line in enumerate(lines) if line.startswith("  realization"))
+        lines.insert(at + 1, f"    why: {d['realization_reason']}")
     return lines
 
 

@@ -204,14 +204,16 @@ def increment_round_off(incs: np.ndarray, horizon: int | None = None) -> float:
     """Expected relative round-off level of the refined incremental form.
 
     After the refinement, what remains is the rounding of the increments
-    themselves, a random walk over the slowest mode's memory 1/|e| samples:
-    eps sqrt(1/|e|) (common practice for random round-off; the estimate is
-    simwave's). A pole at z = 1 (an integrator) remembers the whole record:
-    ``horizon`` samples, or 1e6 when not known.
+    themselves, a random walk over the slowest mode's memory 1/(1 - |p|)
+    samples: eps sqrt(1/(1 - |p|)) (common practice for random round-off; the
+    estimate is simwave's). A pole on the unit circle (an integrator)
+    remembers the whole record: ``horizon`` samples, or 1e6 when not known.
     """
-    incs = np.abs(np.asarray(incs, dtype=np.complex128))
-    if incs.size == 0:
+    e = np.asarray(incs, dtype=np.complex128)
+    if e.size == 0:
         return _EPS
-    smallest = float(np.min(incs))
-    memory = 1.0 / smallest if smallest > 0 else float(horizon or 1e6)
+    # 1 - |1 + e| without cancellation: (1 - |p|^2)/(1 + |p|), 1 - |p|^2 = -(2 Re e + |e|^2)
+    decay = -(2 * e.real + np.abs(e) ** 2) / (1 + np.abs(1 + e))
+    slowest = float(np.min(decay))
+    memory = 1.0 / slowest if slowest > 0 else float(horizon or 1e6)
     return _EPS * max(1.0, math.sqrt(memory))

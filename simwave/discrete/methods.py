@@ -436,11 +436,18 @@ def model_warnings(system, rate: float, method: str, des: Design, prewarp_hz) ->
             w_a = abs(p.imag)
             w_d = 2 / T * math.atan(w_a / K)  # inverse of Omega = K tan(w T / 2)
             shift = (w_d - w_a) / w_a
-            if abs(shift) > 0.01:
+            # The resonance's half-power half-width is about zeta w_n (Q = 1/(2 zeta)); a
+            # shift of a quarter of it already changes the response there by ~25 %.
+            widths = abs(w_d - w_a) / max(zeta * abs(p), 1e-300)
+            if abs(shift) > 0.01 or widths > 0.25:
+                f_a = w_a / 2 / math.pi
                 out.append(
-                    f"bilinear frequency warping moves the resonance at {w_a / 2 / math.pi:.4g} Hz "
-                    f"to {w_d / 2 / math.pi:.4g} Hz ({shift * 100:+.1f} %); prewarp at it "
-                    f"(prewarp {w_a / 2 / math.pi:.4g} Hz) or raise the sample rate"
+                    f"bilinear frequency warping moves the resonance at {f_a:.6g} Hz "
+                    f"(Q = {1 / (2 * max(zeta, 1e-300)):.3g}) to {w_d / 2 / math.pi:.6g} Hz "
+                    f"({shift * 100:+.3g} %, {widths:.3g} half-power half-widths): steady "
+                    f"sines near {f_a:.4g} Hz come out wrong in level and phase; prewarp at "
+                    f"the resonance (prewarp {f_a:.6g} Hz), raise the sample rate, or use a "
+                    "hold method (ramp-invariant)"
                 )
     if method == "impulse-invariant":
         f_peak = peak_frequency(zeros, poles, system.gain, rate * 1e-5, nyq)
@@ -503,7 +510,7 @@ def discretize(
         space, x[k+1] = x[k] + E x[k] + G u[k], that keeps its digits when poles
         are near z = 1 (rates far above the system's frequencies, stiff systems,
         integrators), several times slower. ``auto`` (default) runs sections
-        unless their expected round-off exceeds 1e-12 of the signal; the choice,
+        unless their expected round-off exceeds 1e-11 of the signal; the choice,
         the reason and the expected round-off level are in ``options``.
 
     Returns
