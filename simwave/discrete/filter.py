@@ -4,6 +4,10 @@ The model runs as second-order sections through one ``scipy.signal.sosfilt``
 call per block (all channels at once, along axis 0), followed by an exact
 delay line for the whole-sample part of the dead time. Everything else a
 block costs is constant work, so processing is as fast as sosfilt itself.
+Models whose sections would lose digits (poles near z = 1: rates far above
+the system's frequencies, stiff systems, integrators) run instead as an
+incremental (delta-operator) state space, :mod:`simwave.discrete.incremental`;
+``realization`` in :func:`simwave.discrete.discretize` chooses.
 
 Initial state
 -------------
@@ -279,7 +283,14 @@ class DiscreteSystem:
         The analog model it came from.
     options : dict
         What was chosen, for provenance (method, rate, prewarp, dead time
-        split, gain-match frequency, impulse-invariance correction).
+        split, gain-match frequency, impulse-invariance correction, realization,
+        why, expected round-off level).
+    realization : str
+        ``"sections"`` (sosfilt on ``sos``) or ``"incremental"`` (delta-operator
+        state space; ``sos`` is then the same model for reference, not what runs).
+    round_off_level : float
+        Expected round-off of the realization as a fraction of the signal (an
+        estimate, see :mod:`simwave.discrete.incremental`).
 
     Notes
     -----
@@ -735,7 +746,10 @@ class DiscreteSystem:
         One ``scipy.signal.sosfilt`` call on the whole block (axis 0, all
         channels) does the filtering; the whole-sample dead time is a ring
         buffer. Splitting a signal into blocks of any sizes gives bit-for-bit
-        the same output as one call.
+        the same output as one call. The incremental realization (models with
+        poles near z = 1, see ``options["realization"]``) runs instead through
+        :class:`simwave.discrete.incremental.IncrementalModel`; there a different
+        split changes the output at round-off level only.
         """
         x = np.asarray(block, dtype=np.float64)
         one_d = x.ndim == 1
