@@ -88,8 +88,10 @@ class FilterState:
         ``"rest"`` or ``"settled"`` while the first input sample is still
         unknown; resolved by the first non-empty block.
     n_channels : int
-    x : ndarray, shape (n_states, n_channels), or None
-        The state of the incremental realization (``zi`` is then empty).
+    x : ndarray, shape (2, n_states, n_channels), or None
+        The state of the incremental realization (``zi`` is then empty): the
+        first-pass state and its refinement, whose sum is the state proper
+        (see :meth:`simwave.discrete.incremental.IncrementalModel.run`).
     spent : bool
         True once the state has been passed to ``process``: a state is used
         once, then the returned state takes its place (its buffers may be
@@ -463,7 +465,7 @@ class DiscreteSystem:
         """Zero-input responses of the sections for each unit state, shape (n, 2 m)."""
         if self.realization == "incremental":
             k = self._inc.n
-            basis, _ = self._inc.run(np.zeros((n, k)), np.eye(k))
+            basis, _ = self._inc.run(np.zeros((n, k)), self._inc.carried(np.eye(k)))
             return basis
         m = self.n_sections
         zi = np.zeros((m, 2, 2 * m))
@@ -639,9 +641,11 @@ class DiscreteSystem:
             # The exact at-rest start of the ramp-invariant model is applied while the
             # first sample is processed (it changes y[0] and the state after it).
             state = FilterState(np.zeros((0, 2, nch)), line, 0,
-                                initial if needs_first else None, nch, x=zi)
+                                initial if needs_first else None, nch,
+                                x=self._inc.carried(zi))
             if initial == "settled" and u0 is not None:
-                state.x, state.line = self._resolve(initial, u0, zi, line)
+                x, state.line = self._resolve(initial, u0, zi, line)
+                state.x = self._inc.carried(x)
                 state.pending = None
             return state
         state = FilterState(zi, line, 0, initial if needs_first else None, nch)
@@ -748,8 +752,8 @@ class DiscreteSystem:
         buffer. Splitting a signal into blocks of any sizes gives bit-for-bit
         the same output as one call. The incremental realization (models with
         poles near z = 1, see ``options["realization"]``) runs instead through
-        :class:`simwave.discrete.incremental.IncrementalModel`; there a different
-        split changes the output at round-off level only.
+        :class:`simwave.discrete.incremental.IncrementalModel`, also bit for bit
+        the same whatever the split.
         """
         x = np.asarray(block, dtype=np.float64)
         one_d = x.ndim == 1
@@ -791,7 +795,8 @@ class DiscreteSystem:
     def _run_incremental(self, x: np.ndarray, xs: np.ndarray, pending, line):
         """The incremental realization on one block, with the first-sample starts."""
         if pending == "settled":
-            xs, line = self._resolve(pending, x[0], xs, line)
+            x_ss, line = self._resolve(pending, x[0], xs[0], line)
+            xs = self._inc.carried(x_ss)
             pending = None
         corr = self._design.correction if pending == "rest" else None
         if corr is None:
@@ -802,7 +807,8 @@ class DiscreteSystem:
         full[self._inc.n - dxi1.size :] = dxi1  # a delay state, if any, comes first
         y0, xs = self._inc.run(x[:1], xs)
         y0 = y0 + dy0 * x[:1]
-        xs = xs + full[:, None] * x[0][None, :]
+        xs = xs.copy()
+        xs[0] += full[:, None] * x[0][None, :]  # into the first-pass part
         y1, xs = self._inc.run(x[1:], xs)
         return np.concatenate([y0, y1]), xs, line
 

@@ -92,13 +92,14 @@ class IncrementalModel:
         return np.array(self.incs, dtype=np.complex128)
 
     def run(self, u: np.ndarray, x0: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Outputs for inputs u (n_samples, n_ch) from state x0 (n, n_ch); returns (y, x_end).
+        """Outputs for inputs u (n_samples, n_ch) from state x0; returns (y, x_end).
 
-        Works through the samples in pieces of :data:`CHUNK` so that the
-        temporaries stay in cache; the state carried between pieces is the
-        refined one, so the split does not change the result's accuracy (and the
-        pieces depend only on the sample count, so any blocking gives the same
-        numbers up to round-off at the piece boundaries).
+        The state has shape (2, n, n_ch): the first-pass state and its
+        refinement, carried separately so that splitting a signal into blocks
+        (or channels) anywhere gives bit-for-bit the same output: every sample
+        sees the same operations in the same order. The state proper is their
+        sum (:meth:`total`). Works through the samples in pieces so that the
+        temporaries stay in cache.
         """
         ns = u.shape[0]
         y = np.empty(u.shape)
@@ -109,39 +110,50 @@ class IncrementalModel:
             y[s0 : s0 + step], x = self._run_piece(u[s0 : s0 + step], x)
         return y, x
 
+    @staticmethod
+    def total(x: np.ndarray) -> np.ndarray:
+        """The state proper, (n, n_ch), from a carried state (2, n, n_ch)."""
+        return x[0] + x[1]
+
+    @staticmethod
+    def carried(x: np.ndarray) -> np.ndarray:
+        """A carried state (2, n, n_ch) for the state proper x (n, n_ch)."""
+        return np.stack([np.asarray(x, dtype=np.float64), np.zeros(np.shape(x))])
+
     def _run_piece(self, u: np.ndarray, x0: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         ns, nch = u.shape
         y = self.D * u
         if self.n == 0:
             return y, x0.copy()
-        X = np.empty((self.n, ns, nch))  # states at samples 0..ns-1
+        X = np.empty((self.n, ns, nch))  # states proper at samples 0..ns-1
         x_end = np.empty_like(x0)
         for (i, size), e in zip(self.blocks, self.incs, strict=True):
+            # Drives as elementwise multiply-adds in a fixed order (no BLAS: its
+            # kernels may sum in another order for another array shape).
+            drive = []
+            for r in range(i, i + size):
+                d = self.G[r] * u
+                for j in range(i):
+                    if self.E[r, j] != 0.0:
+                        d = d + self.E[r, j] * X[j]
+                drive.append(d)
             if size == 1:
-                d = self.G[i] * u
-                if i:
-                    d += np.tensordot(self.E[i, :i], X[:i], axes=(0, 0))
-                seq = _recursion(e, d, x0[i])
-                X[i] = seq[:-1]
-                x_end[i] = seq[-1]
+                first, corr = _recursion(e, drive[0], x0[0, i], x0[1, i])
+                X[i] = first[:-1] + corr[:-1]
+                x_end[0, i], x_end[1, i] = first[-1], corr[-1]
                 continue
             d = np.empty((ns, nch), dtype=np.complex128)
-            if i:
-                both = np.tensordot(self.E[i : i + 2, :i], X[:i], axes=(1, 0))
-                d.real = both[0] + self.G[i] * u
-                d.imag = both[1] + self.G[i + 1] * u
-            else:
-                d.real = self.G[i] * u
-                d.imag = self.G[i + 1] * u
-            seq = _recursion(e, d, x0[i] + 1j * x0[i + 1])
-            X[i], X[i + 1] = seq[:-1].real, seq[:-1].imag
-            x_end[i], x_end[i + 1] = seq[-1].real, seq[-1].imag
-        y += np.tensordot(self.C, X, axes=(0, 0))
+            d.real, d.imag = drive
+            first, corr = _recursion(e, d, x0[0, i] + 1j * x0[0, i + 1],
+                                     x0[1, i] + 1j * x0[1, i + 1])
+            both = first[:-1] + corr[:-1]
+            X[i], X[i + 1] = both.real, both.imag
+            x_end[0, i], x_end[0, i + 1] = first[-1].real, first[-1].imag
+            x_end[1, i], x_end[1, i + 1] = corr[-1].real, corr[-1].imag
+        for j in range(self.n):
+            if self.C[j] != 0.0:
+                y = y + self.C[j] * X[j]
         return y, x_end
-
-    def step_state(self, x: np.ndarray, u0: np.ndarray) -> np.ndarray:
-        """The state after one sample u0 from x (used for exact starts)."""
-        return x + self.E @ x + self.G[:, None] * u0[None, :]
 
     def settled_state(self) -> np.ndarray:
         """State per unit constant input in steady state: E x + G = 0."""
@@ -151,24 +163,32 @@ class IncrementalModel:
         return float(self.D - self.C @ np.linalg.solve(self.E, self.G))
 
 
-def _recursion(e, d: np.ndarray, x0: np.ndarray) -> np.ndarray:
-    """xi[k+1] = xi[k] + e xi[k] + d[k] for k < n, from xi[0] = x0; returns xi[0..n].
+def _recursion(e, d: np.ndarray, x0: np.ndarray, c0: np.ndarray):
+    """xi[k+1] = xi[k] + e xi[k] + d[k] for k < n; returns (first pass, refinement), n + 1 each.
 
-    One lfilter pass with p = fl(1 + e), then one refinement pass on the
-    residual taken in increment variables (see the module notes).
+    The first pass runs lfilter with p = fl(1 + e) from x0; the refinement, from
+    c0, runs the same recursion on minus the residual taken in increment
+    variables (see the module notes). xi = first + refinement.
     """
     p = 1.0 + e
     a = np.array([1.0, -p])
     one = np.ones(1)
-    x = np.empty((d.shape[0] + 1,) + d.shape[1:], dtype=np.result_type(d, x0, a))
-    x[0] = x0
-    x[1:], _ = sig.lfilter(one, a, d, axis=0, zi=(p * x0)[None])
+    kind = np.result_type(d, x0, a)
+    # The carried value goes in as a leading input sample, so lfilter itself forms
+    # p * x0 for the next step exactly as it would inside one long call (numpy's
+    # complex product may round differently from scipy's C loop): any split of the
+    # signal then gives the same bits.
+    buf = np.empty((d.shape[0] + 1,) + d.shape[1:], dtype=kind)
+    buf[0] = x0
+    buf[1:] = d
+    x = sig.lfilter(one, a, buf, axis=0)
     if abs(e) >= REFINE_BELOW:  # far from z = 1: one pass loses only eps/|e|
-        return x
-    r = (x[1:] - x[:-1]) - e * x[:-1] - d
-    corr = sig.lfilter(one, a, -r, axis=0)
-    x[1:] += corr
-    return x
+        return x, np.zeros_like(x)
+    buf[1:] = d
+    buf[1:] -= x[1:] - x[:-1] - e * x[:-1]  # minus the residual
+    buf[0] = c0
+    c = sig.lfilter(one, a, buf, axis=0)
+    return x, c
 
 
 def section_round_off(sos: np.ndarray) -> float:
