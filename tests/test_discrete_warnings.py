@@ -55,7 +55,7 @@ def test_bilinear_through_a_q_1000_resonance_warns_with_prewarp_remedy():
     out, texts = run_and_collect(system, RATE, "bilinear", x)
     joined = "\n".join(texts)
     assert "half-power half-widths" in joined  # the warping warning, relative to the width
-    assert "off for steady sines" in joined  # the steady-sine check
+    assert "of the largest steady output for a steady sine" in joined  # the steady-sine check
     assert "prewarp at the resonance (1000 Hz" in joined
     # The warning is right: the steady output of a 1 kHz sine is far from the analog one.
     # Analog steady state: amplitude |H(j w0)| = Q = 1000 (Ogata sec. 8-2); the bilinear

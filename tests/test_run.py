@@ -170,9 +170,15 @@ def test_superposition(a, b, seed, method):
         y = simwave.simulate(sys_, Waveform(a * x1 + b * x2, rate), method=method).data
         y1 = simwave.simulate(sys_, Waveform(x1, rate), method=method).data
         y2 = simwave.simulate(sys_, Waveform(x2, rate), method=method).data
-    # |H| at 500 Hz is 39.3 dB below its peak: only impulse invariance warns (aliasing)
-    aliasing = ["impulse invariance aliases" in str(w.message) for w in caught]
-    assert aliasing == ([True] * 3 if method == "impulse-invariant" else [])
+    # |H| at 500 Hz is 39.3 dB below its peak: impulse invariance warns (aliasing); the
+    # step-invariant model lags smooth inputs by half a sample, 2.6 % of the peak steady
+    # output near the 8 Hz resonance (the steady-sine check, magnitude and phase); the
+    # other methods stay under its 1 % limit
+    texts = [str(w.message) for w in caught]
+    aliasing = ["impulse invariance aliases" in t for t in texts]
+    lag = ["half a sample" in t for t in texts]
+    assert aliasing == ([True] * 3 if method == "impulse-invariant" else [False] * len(texts))
+    assert lag == ([True] * 3 if method == "step-invariant" else [False] * len(texts))
     np.testing.assert_allclose(y, a * y1 + b * y2, rtol=0, atol=1e-9 * (1 + abs(a) + abs(b)))
 
 

@@ -180,11 +180,10 @@ def method_warning(check: dict[str, Any], accuracy: dict[str, Any] | None, metho
     """The one-paragraph warning for a poor model: how far off, what it means, what to do."""
     f = check["sine_error_at_hz"]
     text = (
-        f"the {method} model is off for steady sines: at {f:.6g} Hz by "
-        f"{100 * check['max_sine_error']:.3g} % of the largest steady output "
-        f"(magnitude {check['sine_mag_error_db']:+.3g} dB, phase "
-        f"{check['sine_phase_error_deg']:+.3g} deg there; limit "
-        f"{100 * check['sine_error_limit']:g} %)"
+        f"the {method} model is off by {100 * check['max_sine_error']:.3g} % of the largest "
+        f"steady output for a steady sine at {f:.6g} Hz (magnitude "
+        f"{check['sine_mag_error_db']:+.3g} dB, phase {check['sine_phase_error_deg']:+.3g} deg "
+        f"there; limit {100 * check['sine_error_limit']:g} %)"
     )
     if abs(check["max_in_band_mag_error_db"]) > check["limit_db"]:
         text += (

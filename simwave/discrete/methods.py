@@ -442,7 +442,7 @@ def model_warnings(system, rate: float, method: str, des: Design, prewarp_hz) ->
             if abs(shift) > 0.01 or widths > 0.25:
                 f_a = w_a / 2 / math.pi
                 out.append(
-                    f"bilinear frequency warping moves the resonance at {f_a:.6g} Hz "
+                    f"bilinear frequency warping moves the resonance at {f_a:.4g} Hz "
                     f"(Q = {1 / (2 * max(zeta, 1e-300)):.3g}) to {w_d / 2 / math.pi:.6g} Hz "
                     f"({shift * 100:+.3g} %, {widths:.3g} half-power half-widths): steady "
                     f"sines near {f_a:.4g} Hz come out wrong in level and phase; prewarp at "
