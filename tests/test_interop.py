@@ -1,5 +1,6 @@
 """Python interop: numpy arrays in simulate/measure, scipy.signal LTI objects, notebook display."""
 
+import warnings
 from html.parser import HTMLParser
 
 import numpy as np
@@ -22,14 +23,17 @@ def test_simulate_plain_array_with_rate_matches_scipy_lsim():
     x = np.zeros(400)
     x[100:] = 1.0
     tau = 1e-3
-    y = simwave.simulate("1/(1m*s + 1)", x, rate=rate, method="ramp-invariant")
+    with warnings.catch_warnings(record=True) as caught:  # the rate safeguard may advise
+        warnings.simplefilter("always")
+        y = simwave.simulate("1/(1m*s + 1)", x, rate=rate, method="ramp-invariant")
+        two = simwave.simulate("1/(1m*s + 1)", np.column_stack([x, 2 * x]), rate=rate)
+    assert all("model is off by" in str(w.message) for w in caught)
     # scipy.signal.lsim with linear interpolation (first-order hold) is the independent
     # reference for inputs linear between samples (scipy docs, lsim: interp=True)
     t = np.arange(400) / rate
     _, ref, _ = signal.lsim(([1.0], [tau, 1.0]), x, t, interp=True)
     assert y.rate == rate and y.n_channels == 1
     np.testing.assert_allclose(y.data[:, 0], ref, rtol=0, atol=1e-9)
-    two = simwave.simulate("1/(1m*s + 1)", np.column_stack([x, 2 * x]), rate=rate)
     np.testing.assert_allclose(two.data[:, 1], 2 * y.data[:, 0], rtol=0, atol=1e-12)
 
 
