@@ -59,3 +59,18 @@ def test_inspect_unstable_system_warns_and_reports():
     result = run("-s", "1/(s-2)", "--rate", "100")
     assert result.exit_code == 0, result.output
     assert "unstable" in result.stderr
+
+
+def test_inspect_rate_shows_realization_and_round_off():
+    # 1 Hz at 1 MHz: sections would round to ~3e-5 of the signal (their coefficients
+    # lose 1/(w T)^2 of their digits near z = 1: Oppenheim & Schafer, Discrete-Time Signal
+    # Processing, 3rd ed., coefficient quantization of direct-form sections); the
+    # incremental form is chosen and said, with its expected round-off (an estimate).
+    result = run("--design", "butterworth lowpass order=4 cutoff_hz=1", "--rate", "1M")
+    assert result.exit_code == 0, result.output
+    assert "realization             incremental, expected round-off about" in result.stdout
+    assert "second-order sections would round to about 3.1e-05" in result.stdout
+    result = run("--design", BUTTER4, "--rate", "48k", "--json")
+    d = json.loads(result.stdout)["discrete"]
+    assert d["realization"] == "sections" and 0 < d["round_off_level"] < 1e-11
+    assert d["method_check"]["poor"] is False and d["max_sine_error"] < 0.01

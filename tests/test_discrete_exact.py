@@ -329,3 +329,18 @@ def test_ode_initial_conditions_far_above_the_natural_frequency(method):
     wd = w * np.sqrt(1 - zeta**2)
     ref = np.exp(-zeta * w * t) * (np.cos(wd * t) + zeta / np.sqrt(1 - zeta**2) * np.sin(wd * t))
     assert np.max(np.abs(y - ref)) <= TARGET
+
+
+def test_a_fast_and_a_very_slow_pole_in_one_section_is_never_run():
+    # Poles at 1 - 1e-9 and 1 - 1e-6 in one section: its denominator sums to 1e-15 at z = 1,
+    # so float64 coefficients (relative 1.1e-16 each, summing to ~4.4e-16) move the slow
+    # pole by tens of percent (Oppenheim & Schafer, 3rd ed., pole sensitivity of direct-form
+    # sections). The round-off estimate sees it, and such a system runs incrementally.
+    from simwave.discrete.incremental import section_round_off
+
+    a = np.poly([1 - 1e-9, 1 - 1e-6])
+    assert section_round_off(np.array([[1.0, 0.0, 0.0, *a]])) > 1e-2
+    rate = 1e6
+    taus = np.array([1e3, 1.0, 1e-6])  # slow poles at 1 - 1e-9 and 1 - 1e-6 at 1 MHz
+    model = quiet(System.from_zpk([], -1 / taus, 1 / np.prod(taus)), rate, "step-invariant")
+    assert model.realization == "incremental"
