@@ -40,6 +40,9 @@ COMMANDS: dict[str, tuple[str, str]] = {
                 "peak, settling; per pulse for pulse trains), steady state (final value, gain, "
                 "error, mean, RMS, ripple), sine and multi-tone gain and phase, THD and SINAD; "
                 "and, with a system, what H(s) predicts beside each."),
+    "report": ("simwave.cli.cmd_report",
+               "Write one HTML page for the batch or tolerance study in DIR: comparison, all "
+               "rows, each pair."),
     "run": ("simwave.cli.cmd_run", "Run INPUT through the system and write the output."),
     "tolerance": ("simwave.cli.cmd_tolerance",
                   "Run a tolerance study: every build of a toleranced design on your inputs."),

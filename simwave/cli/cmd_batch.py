@@ -54,10 +54,14 @@ _QUICK_ONLY = {"method": "--method", "output_format": "--format", "name_template
 @click.option("--plot", "plot_path", metavar="FILE", default=None,
               help="Also draw the per-system comparison (worst overshoot and longest settling "
                    "time per input) to FILE (.png or .svg).")
+@click.option("--report", "with_report", is_flag=True,
+              help="Also write report.html in the output folder: one self-contained page "
+                   "with the comparison, every row and each pair's figures.")
 @click.option("--json", "as_json", is_flag=True,
               help="Print the counts, summary paths and per-system comparison as JSON.")
 def batch_command(items, systems, designs, output_dir, jobs, scheduler, connect_timeout, force,
-                  method, output_format, name_template, settling_band, plot_path, as_json,
+                  method, output_format, name_template, settling_band, plot_path, with_report,
+                  as_json,
                   **kwargs):
     """Run every input through every candidate system; write outputs, metrics and a summary.
 
@@ -142,11 +146,17 @@ def batch_command(items, systems, designs, output_dir, jobs, scheduler, connect_
         if "bar" in bar:
             bar["bar"].close()
     c = result.counts
+    report = None
+    if with_report:
+        from simwave.report import write_report
+
+        report = write_report(result)
     if as_json:
         click.echo(json.dumps({
             "counts": c, "engine": result.engine, "elapsed_s": result.elapsed_s,
             "interrupted": result.interrupted, "summary_csv": result.summary_csv,
             "summary_json": result.summary_json, "comparison": result.comparison,
+            "report": report,
         }, indent=2, default=str))
     else:
         click.echo(f"{c['pairs']} pairs: {c['ok']} ok, {c['failed']} failed, "
@@ -160,6 +170,8 @@ def batch_command(items, systems, designs, output_dir, jobs, scheduler, connect_
         if result.outside_limits:
             click.echo(f"limits: {result.outside_limits} pair(s) outside their tolerance bands "
                        f"(exit code 3; see the summary's limits column)")
+        if report:
+            click.echo(f"report: {report}")
         table = format_comparison(result.comparison)
         if table:
             click.echo("\nPer-system comparison (worst case across inputs, pairs that ran ok):")

@@ -210,10 +210,12 @@ def _format_summary(result: dict) -> str:
               help="Settling tolerance band in percent of the transition (default 2).")
 @click.option("--plot", "plot_path", metavar="FILE", default=None,
               help="Draw input and output with the first transition's metrics (.png or .svg).")
+@click.option("--report", "report_path", metavar="FILE.html", default=None,
+              help="Write a self-contained HTML page of the run: metrics, figures, cautions.")
 @click.option("--json", "as_json", is_flag=True, help="Print the run report as JSON.")
 def run_command(source, system_spec, output, method, prewarp, match_frequency, initial,
                 initial_output, oversample, with_input, subtype, on_clip, normalize_level,
-                compression, keep_going, metrics, settling_band, plot_path, as_json,
+                compression, keep_going, metrics, settling_band, plot_path, report_path, as_json,
                 **reader_kwargs):
     """Run INPUT through the system and write the output.
 
@@ -235,6 +237,10 @@ def run_command(source, system_spec, output, method, prewarp, match_frequency, i
         from simwave.plots import check_plot_path
 
         check_plot_path(plot_path)  # a bad plot name fails before any work
+    if report_path is not None:
+        from simwave.report import check_report_path
+
+        check_report_path(report_path)
     write_options = {}
     if subtype is not None:
         write_options["subtype"] = subtype
@@ -278,6 +284,10 @@ def run_command(source, system_spec, output, method, prewarp, match_frequency, i
         plot_run(output, source, result.get("metrics"), plot_path,
                  read_options=output_read_options(job, len(result["run"]["channels"])),
                  input_read_options=input_read_options(job))
+    if report_path is not None:
+        from simwave.report import write_run_report
+
+        write_run_report(result, job, report_path)
     if as_json:
         click.echo(json.dumps(result, indent=2, default=str))
     else:
@@ -286,6 +296,8 @@ def run_command(source, system_spec, output, method, prewarp, match_frequency, i
             click.echo(f"wrote      {metrics}")
         if plot_path:
             click.echo(f"wrote      {plot_path}")
+        if report_path:
+            click.echo(f"wrote      {report_path}")
     shown = set()
     for w in caught:
         text = str(w.message)
