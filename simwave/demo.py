@@ -93,7 +93,7 @@ class DemoResult:
         The demo folder (absolute).
     files : dict
         Role -> list of paths (absolute): ``inputs``, ``systems``, ``description``,
-        ``outputs``, ``metrics``, ``summary``, ``plots``.
+        ``outputs``, ``metrics``, ``summary``, ``plots``, ``report``.
     comparison : dict
         Candidate -> ``{"overshoot_pct", "settling_time_s", "hum_gain_db",
         "not_settled", "description"}`` taken from the batch summary rows.
@@ -120,6 +120,8 @@ class DemoResult:
             f"{rel(os.path.dirname(self.files['summary'][0]))}",
             f"summary    {', '.join(rel(p) for p in self.files['summary'])}",
             f"plots      {', '.join(rel(p) for p in self.files['plots'])}",
+            *([f"report     {rel(self.files['report'][0])} (one self-contained page: open it "
+               "in a browser)"] if self.files.get("report") else []),
             "",
             f"Key comparison (worst case over the parcel records; {SETTLING_DEFINITION}; "
             "hum gain on the empty-belt record):",
@@ -277,6 +279,7 @@ inputs/      the recordings (CSV, HDF5, WAV): two test-weight runs and the empty
 systems/     one TOML system file per candidate filter
 batch.toml   the batch description that ran every input through every candidate
 results/     outputs (same format as each input), *.metrics.json, summary.csv/json
+results/report.html  the whole comparison on one page (open it in a browser)
 plots/       step-*.png: input and output with the measured first transition;
              frequency-*.png: analog and discrete response, pole-zero maps;
              comparison.png: the candidates across the inputs
@@ -415,6 +418,10 @@ def build_demo(
                      f"({SETTLING_DEFINITION})")
     res.files["plots"].append(comparison_png)
 
+    say("writing the report page")
+    from simwave.report import write_report
+
+    res.files["report"] = [write_report(batch)]
     res.comparison = key_comparison(batch)
     res.elapsed_s = time.perf_counter() - started
     return res

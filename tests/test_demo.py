@@ -43,6 +43,7 @@ def test_demo_writes_everything_it_announces(demo):
             assert f"{stem}__{cand}{ext}" in results
             assert f"{stem}__{cand}.metrics.json" in results
     assert "summary.csv" in results and "summary.json" in results
+    assert "report.html" in results and "results/report.html" in out
     plots = sorted(os.listdir(folder / "plots"))
     assert plots == sorted(["comparison.png"] + [f"{kind}-{c}.png" for c in CANDIDATES
                                                  for kind in ("step", "frequency")])

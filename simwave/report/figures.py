@@ -6,8 +6,8 @@ discrete model against the analog H(j2πf)), drawn with matplotlib's SVG backend
 so their lines stay sharp at any zoom and in print. To put many of them in one
 page:
 
-* each figure gets its own hash salt, so the element ids matplotlib writes
-  (clip paths, markers) are unique in the page;
+* each figure's element ids (clip paths, markers, the artists' names) and the
+  references to them get a prefix of its own, so they are unique in the page;
 * the XML prolog, DOCTYPE and metadata (a creation date) are dropped, and path
   coordinates are rounded to 0.1 pt (a tenth of a printer's point, far below
   what a screen or a printer resolves), which takes about a quarter off the size;
@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import io
 import re
+import warnings
 from typing import Any, Mapping
 
 #: Coordinates in path data are rounded to this many decimals (points).
@@ -50,12 +51,40 @@ def svg_text(fig: Any, salt: str, alt: str) -> str:
     text = text[start:]
     text = re.sub(r"<metadata>.*?</metadata>\s*", "", text, flags=re.S)
     text = _PATH_D.sub(lambda m: m.group(1) + _NUMBER.sub(r"\1", m.group(2)) + m.group(3), text)
+    text = _prefix_ids(text, salt)
     label = (alt.replace("&", "&amp;").replace('"', "&quot;").replace("<", "&lt;")
              .replace(">", "&gt;"))
     text = text.replace("<svg ", f'<svg role="img" aria-label="{label}" focusable="false" ', 1)
     # the figure scales with the page (its own width/height would fix it in points)
     text = re.sub(r'(<svg[^>]*?)\swidth="[^"]*"\sheight="[^"]*"', r"\1", text, count=1)
     return text.strip()
+
+
+def _prefix_ids(text: str, prefix: str) -> str:
+    """Every element id of one figure, and every reference to it, prefixed (unique in a page).
+
+    matplotlib names elements by their artists' ``gid`` (``axes_1``, ``patch_2``,
+    the plots' own ``analog``, ``output``...), which repeat from figure to figure.
+    """
+    ids = set(re.findall(r'\sid="([^"]+)"', text))
+    if not ids:
+        return text
+
+    def fix(m: re.Match) -> str:
+        name = m.group(2)
+        return f"{m.group(1)}{prefix}-{name}{m.group(3)}" if name in ids else m.group(0)
+
+    text = re.sub(r"(url\(#)([^)]+)(\))", fix, text)
+    text = re.sub(r'((?:xlink:)?href="#)([^"]+)(")', fix, text)
+    seen: dict[str, int] = {}
+
+    def number(m: re.Match) -> str:  # a name given to several artists (magnitude and phase)
+        name = m.group(2)
+        seen[name] = seen.get(name, 0) + 1
+        tail = "" if seen[name] == 1 else f"-{seen[name]}"
+        return f"{m.group(1)}{prefix}-{name}{tail}{m.group(3)}"
+
+    return re.sub(r'(\sid=")([^"]+)(")', number, text)
 
 
 def system_from_provenance(prov: Mapping[str, Any]):
@@ -85,9 +114,11 @@ def frequency_svg(prov: Mapping[str, Any], salt: str) -> tuple[str, str]:
     rate = float(prov["model_rate_hz"])
     method = str(prov.get("method") or "ramp-invariant")
     opts = {k: float(prov[k]) for k in ("prewarp_hz", "match_hz") if prov.get(k) is not None}
-    fig = plot_frequency(system, rate=rate, method=method,
-                         title=f"{prov.get('system_name') or 'system'}: {method} model at "
-                               f"{format_hz(rate)} against the analog H(s)", **opts)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # the run recorded the model's warnings already
+        fig = plot_frequency(system, rate=rate, method=method,
+                             title=f"{prov.get('system_name') or 'system'}: {method} model at "
+                                   f"{format_hz(rate)} against the analog H(s)", **opts)
     alt = (f"Frequency response of {prov.get('system_name') or 'the system'}: magnitude in dB "
            f"and phase in degrees against frequency on a log axis, the analog H(j2\u03c0f) as a "
            f"solid line and the {method} model at {format_hz(rate)} dashed, Nyquist marked; "

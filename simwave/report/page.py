@@ -35,6 +35,10 @@ KEY_COLUMNS = ("input", "system", "channel", "status", "verdict", "kind",
                "not_settled", "rise_time_s_mean", "delay_s_mean", "steady_state_gain",
                "steady_state_error", "gain_db", "thd_pct", "tone_gain_error_db_worst",
                "record_peak", "flags")
+#: Columns of the results table kept on paper (A4 portrait has room for about ten).
+PRINT_COLUMNS = ("input", "system", "channel", "verdict", "overshoot_pct_worst",
+                 "settling_time_s_longest", "rise_time_s_mean", "delay_s_mean",
+                 "steady_state_error", "gain_db", "thd_pct")
 #: Columns about the run rather than the result (shown with "all columns").
 RUN_COLUMNS = ("reused", "elapsed_s", "samples", "duration_s", "rate_hz", "output",
                "metrics_file", "record_rms", "warnings", "limits", "error")
@@ -146,7 +150,9 @@ footer{margin-top:3rem;font-size:.85rem;color:var(--muted)}
  nav,.controls,.noprint{display:none}
  h2{break-after:avoid}h3{break-after:avoid}
  table{font-size:7.5pt}th,td{padding:1px 3px}.scroll{overflow:visible}
- .extra,.show-all .extra{display:none}
+ .extra,.show-all .extra,.screen-only{display:none}
+ td,th{overflow-wrap:anywhere;word-break:break-word}
+ #rows-table td.num{white-space:normal}
  th button::after,th[aria-sort] button::after{content:""}
  figure{break-inside:avoid}figure svg{max-width:100%}
  .pair{break-before:auto}a{color:inherit;text-decoration:none}
@@ -622,7 +628,8 @@ class Page:
         notes = Footnotes("why")
         heads = []
         for c in shown + extra:
-            cls = ' class="extra"' if c in extra else ""
+            cls = ' class="extra"' if c in extra else (
+                ' class="screen-only"' if c not in PRINT_COLUMNS else "")
             heads.append(f'<th scope="col"{cls} data-col="{esc(c)}"><button type="button">'
                          f"{esc(HEADINGS.get(c, c))}</button></th>")
         body = []
@@ -667,7 +674,7 @@ class Page:
 
     def _row_cell(self, row: Mapping[str, Any], c: str, extra: bool, notes: Footnotes,
                   kind: str) -> str:
-        cls = ["extra"] if extra else []
+        cls = ["extra"] if extra else ([] if c in PRINT_COLUMNS else ["screen-only"])
         if c == "verdict":
             return (f'<td data-s="{esc(VERDICTS[kind][0])}">{badge(kind)}</td>')
         cell = self.cell(row, c)
@@ -683,10 +690,8 @@ class Page:
             content = self.pair_link(pair).replace(esc(pair.label), esc(row[c])) if pair \
                 else esc(row[c])
         elif c in ("output", "metrics_file") and cell.value:
-            path = os.path.join(self.study.folder, str(cell.value)) if self.study.kind == "batch" \
-                else None
-            content = (f'<a href="{esc(self.rel(path))}">{esc(cell.value)}</a>' if path
-                       else esc(cell.value))
+            path = os.path.join(self.study.data_dir or self.study.folder, str(cell.value))
+            content = f'<a href="{esc(self.rel(path))}">{esc(cell.value)}</a>'
         elif c == "status":
             content = esc(cell.value or "")
         elif cell.value is None and not cell.reason:

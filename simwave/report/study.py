@@ -127,6 +127,8 @@ class Study:
     description: str | None = None
     summary_files: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
+    #: The folder the rows' ``output`` and ``metrics_file`` names are relative to.
+    data_dir: str = ""
 
     def pair_of(self, row: Mapping[str, Any]) -> PairView | None:
         for p in self.pairs:
@@ -248,7 +250,7 @@ def _from_summary_doc(doc: Mapping[str, Any], out_dir: str, plan: Any = None) ->
         pairs=pairs, counts=dict(doc.get("counts") or {}),
         measure_options=dict(doc.get("measure_options") or {}), engine=doc.get("engine"),
         elapsed_s=doc.get("elapsed_s"), interrupted=bool(doc.get("interrupted")),
-        description=doc.get("description"),
+        description=doc.get("description"), data_dir=out_dir,
     )
 
 
@@ -327,7 +329,8 @@ def from_run(result: Mapping[str, Any], job: Any, folder: str) -> Study:
                  systems=systems, pairs=[view],
                  counts={"pairs": 1, "ok": 1, "failed": 0, "not_run": 0},
                  measure_options=dict(job.measure_options), elapsed_s=run.get("elapsed_s"),
-                 summary_files=[os.path.abspath(job.metrics)] if job.metrics else [])
+                 summary_files=[os.path.abspath(job.metrics)] if job.metrics else [],
+                 data_dir=folder)
 
 
 def _source_label(source: str) -> str:
