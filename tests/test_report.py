@@ -150,17 +150,20 @@ def test_verdicts_by_word_and_shape(batch):
     verdicts = [cells[p.table_cols.index("verdict")]["data-s"] for cells in p.table_rows]
     assert sorted(set(verdicts)) == ["fail", "not measured", "pass", "run failed"]
     # each verdict word sits beside its own shape; pass, fail and not measured differ in shape
-    shapes = dict(re.findall(r'<use href="#(i-[a-z]+)"/></svg><span[^>]*>([a-z ]+)</span>', page))
-    by_word = {w: s for s, w in re.findall(
-        r'<use href="#(i-[a-z]+)"/></svg><span[^>]*>([a-z ]+)</span>', page)}
-    assert shapes
-    assert len({by_word["pass"], by_word["fail"], by_word["not measured"]}) == 3
+    pairs = re.findall(r'<use href="#(i-[a-z]+)"/></svg><span[^>]*>([a-z ]+)</span>', page)
+    by_word: dict[str, set] = {}
+    for icon, word in pairs:
+        by_word.setdefault(word, set()).add(icon)
+    assert all(len(icons) == 1 for icons in by_word.values())  # one shape per word
+    assert len(set.union(by_word["pass"], by_word["fail"], by_word["not measured"])) == 3
+    for icon in ("i-pass", "i-fail", "i-none"):
+        assert f'<symbol id="{icon}"' in page
 
 
 def test_nothing_is_fetched(batch):
     _, _, page, _ = batch
     p = parse(page)
-    for tag, key, url in p.urls:
+    for _tag, _key, url in p.urls:
         assert url.startswith(("#", "data:")) or not re.match(r"^[a-z][a-z0-9+.-]*:", url), url
         assert not url.startswith("//"), url
     assert all("src" not in s for s in p.scripts)
@@ -182,7 +185,7 @@ def test_headings_in_order_and_figures_have_alt_text(batch):
     p = parse(page)
     levels = [lvl for lvl, _ in p.headings]
     assert levels[0] == 1 and levels.count(1) == 1
-    for before, after in zip(levels, levels[1:]):
+    for before, after in zip(levels, levels[1:], strict=False):
         assert after <= before + 1, p.headings
     figures = [s for s in p.svgs if s.get("role") == "img"]
     ok_pairs = sum(1 for r in result.results.values() if r["status"] == "ok")
@@ -204,7 +207,8 @@ def test_cautions_are_on_the_page(batch):
 def test_folder_report_matches_the_report_written_after_the_batch(batch):
     result, path, page, _ = batch
     study = load_folder(os.path.dirname(path))
-    assert study.rows == json.load(open(result.summary_json, encoding="utf-8"))["rows"]
+    with open(result.summary_json, encoding="utf-8") as fh:
+        assert study.rows == json.load(fh)["rows"]
     assert [p.source for p in study.pairs if p.status == "ok"] == [
         p.input.source for p in result.plan.pairs
         if result.results[p.index]["status"] == "ok"]
@@ -213,7 +217,8 @@ def test_folder_report_matches_the_report_written_after_the_batch(batch):
 def test_large_batch_draws_the_worst_cases_and_links_the_rest(batch, tmp_path):
     result, _, _, summary = batch
     out = write_report(result, str(tmp_path / "small.html"), max_detailed=1)
-    page = open(out, encoding="utf-8").read()
+    with open(out, encoding="utf-8") as fh:
+        page = fh.read()
     p = parse(page)
     sections = re.findall(r'<section class="pair" id="(pair-\d+)"', page)
     assert len(sections) == 1
@@ -316,3 +321,45 @@ def test_run_and_batch_write_a_report(tmp_path):
     r = CliRunner().invoke(main, ["run", src, "-s", system, "-o", str(tmp_path / "x.csv"),
                                   "--report", str(tmp_path / "x.pdf")])
     assert r.exit_code == 2 and not (tmp_path / "x.csv").exists()
+
+
+# ----------------------------------------------------------------------------- size
+SIXTY_PAIRS_TOML = """
+[batch]
+jobs = 2
+
+[output]
+dir = "results"
+
+[systems.bessel4]
+design = { family = "bessel-magnitude", kind = "lowpass", order = 4, cutoff_hz = "200" }
+[systems.butterworth4]
+design = { family = "butterworth", kind = "lowpass", order = 4, cutoff_hz = "200" }
+[systems.chebyshev4]
+design = { family = "chebyshev1", kind = "lowpass", order = 4, cutoff_hz = "200", ripple_db = 1 }
+
+[[inputs]]
+signal = [{signals}]
+"""
+
+
+@pytest.mark.slow
+def test_sixty_pair_report_stays_under_10_mb(tmp_path):
+    # 3 candidate filters x 20 recordings, as in a typical comparison: 0.5 s records at
+    # 10 kHz (5000 samples), pulse trains of different widths and noisy steps.
+    from simwave.batch import load_description, run_batch
+
+    signals = [f'"pulse-train:rate=10k,duration=0.5,width={w}m,period={2 * w}m,count=3,'
+               f'delay=20m,edge=1m"' for w in range(40, 80, 4)]
+    signals += [f'"step:rate=10k,duration=0.5,time={t}m"' for t in range(20, 120, 10)]
+    (tmp_path / "batch.toml").write_text(
+        SIXTY_PAIRS_TOML.replace("{signals}", ", ".join(signals)), encoding="utf-8")
+    result = run_batch(load_description(str(tmp_path / "batch.toml")))
+    assert result.counts == {**result.counts, "pairs": 60, "ok": 60}
+    path = write_report(result)
+    size = os.path.getsize(path)
+    print(f"60-pair report: {size / 1e6:.2f} MB")
+    assert size < 10e6
+    with open(path, encoding="utf-8") as fh:
+        page = fh.read()
+    assert page.count('<section class="pair"') == 60  # every pair drawn in full

@@ -117,5 +117,5 @@ def check_report_path(path: str | os.PathLike[str]) -> str:
     return p
 
 
-__all__ = ["write_report", "write_run_report", "check_report_path", "load_folder", "from_batch", "from_run",
-           "Study", "ReportError", "REPORT_NAME", "MAX_DETAILED"]
+__all__ = ["write_report", "write_run_report", "check_report_path", "load_folder",
+           "from_batch", "from_run", "Study", "ReportError", "REPORT_NAME", "MAX_DETAILED"]
