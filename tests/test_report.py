@@ -363,3 +363,14 @@ def test_sixty_pair_report_stays_under_10_mb(tmp_path):
     with open(path, encoding="utf-8") as fh:
         page = fh.read()
     assert page.count('<section class="pair"') == 60  # every pair drawn in full
+
+
+def test_bounds_and_reasons_as_the_key_metrics_write_them():
+    # key_metrics writes which values are bounds and why others are missing as text columns
+    row = {"settling_time_s_longest": 0.4, "bounds": "settling_time_s_longest lower",
+           "gain_db": None, "missing": "gain_db: no sine found in the record", "status": "ok"}
+    c = read_cell(row, "settling_time_s_longest")
+    assert c.bound == "lower" and cell_text(c, "s") == "\u2265 400 ms"
+    assert read_cell(row, "gain_db").reason == "no sine found in the record"
+    both = read_cell({"x": 2.0, "bounds": "x lower and upper"}, "x")
+    assert cell_text(both) == "~ 2"

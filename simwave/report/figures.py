@@ -144,6 +144,7 @@ def overlay_svg(pair: Any, salt: str) -> tuple[str, str]:
     inp = _read_input(source, pair) if source else None
     fig = plot_run(pair.output, inp, doc.get("metrics"), read_options=pair.output_read or None,
                    title=f"{pair.input} through {pair.system}")
+    thin_lines(fig)
     chans = ((doc.get("metrics") or {}).get("channels") or [])
     first = next((c for c in chans if c.get("transitions")), None)
     if first is not None:
@@ -160,6 +161,29 @@ def overlay_svg(pair: Any, salt: str) -> tuple[str, str]:
         return svg_text(fig, salt, alt), alt
     finally:
         _close(fig)
+
+
+#: Most points per drawn line in a report figure: a min/max pair per bucket of ~1/1000 of
+#: the axis keeps every peak visible at any width a page is read or printed at.
+MAX_LINE_POINTS = 2400
+
+
+def thin_lines(fig: Any, max_points: int = MAX_LINE_POINTS) -> None:
+    """Redraw every long line of ``fig`` as its min/max envelope of ``max_points`` points.
+
+    :func:`simwave.plots.plot_run` keeps up to 8000 points per line (for a figure on its
+    own); sixty such figures of noisy records would pass 10 MB as SVG.
+    """
+    import numpy as np
+
+    from simwave.plots import _envelope
+
+    for ax in fig.axes:
+        for line in ax.get_lines():
+            x = np.asarray(line.get_xdata(), dtype=float)
+            y = np.asarray(line.get_ydata(), dtype=float)
+            if x.size > max_points and x.size == y.size:
+                line.set_data(*_envelope(x, y, max_points))
 
 
 def _read_input(source: str, pair: Any):

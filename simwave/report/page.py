@@ -565,8 +565,16 @@ class Page:
 
         unit = column_unit(key)
         if isinstance(entry, Mapping) and entry.get("value") is not None:
-            cell = Cell(entry, entry.get("value"), bound_kind(entry.get("bound")),
-                        entry.get("reason"))
+            column = {k: col for k, _, col, _ in COMPARISON}.get(key, key)
+            source = next((r for r in self.study.rows if r.get("system") == system
+                           and r.get("input") == entry.get("input")
+                           and r.get("channel") == entry.get("channel")), None)
+            from_row = self.cell(source, column) if source is not None else None
+            bound = bound_kind(entry.get("bound")) or (
+                from_row.bound if from_row is not None and from_row.value == entry["value"]
+                else "")
+            cell = Cell(entry, entry.get("value"), bound,
+                        entry.get("reason") or (from_row.reason if from_row else None))
             where = entry.get("input_name") or entry.get("input")
             pair = self.study.pair_of({"input": entry.get("input"), "system": system})
             link = self.pair_link(pair) if pair else esc(where)
@@ -819,6 +827,9 @@ class Page:
                 out.append(f"<figure>{svg}<figcaption>{esc(alt)}</figcaption></figure>")
             except (SimwaveError, OSError, ValueError) as exc:
                 out.append(f"<p>Input/output figure not drawn: {esc(exc)}</p>")
+            except (TypeError, KeyError, IndexError) as exc:  # a plotting bug: say so, go on
+                out.append(f"<p>Input/output figure not drawn: the plot failed "
+                           f"({esc(type(exc).__name__)}: {esc(exc)}); please report it.</p>")
         if prov.get("poles") is not None and prov.get("model_rate_hz"):
             m = self.models.get(model_key(prov))
             if m:
@@ -843,7 +854,8 @@ class Page:
         if row.get("status") != "ok":
             return ""
         shown, extra = self.table_columns()
-        skip = {"input", "system", "channel", "status", "verdict", "kind"} | set(RUN_COLUMNS)
+        skip = ({"input", "system", "channel", "status", "verdict", "kind", "bounds", "missing"}
+                | set(RUN_COLUMNS))
         lines = []
         for c in [c for c in shown + extra if c not in skip]:
             cell = self.cell(row, c)

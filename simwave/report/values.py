@@ -71,10 +71,13 @@ class Cell:
 
 
 def bound_kind(word: Any) -> str:
-    """``"lower"``, ``"upper"`` or ``""`` for the ways a file may say which bound a value is."""
+    """``"lower"``, ``"upper"``, ``"both"`` or ``""`` for the ways a file may say which bound
+    a value is (``"both"``: bounded on both sides, shown as approximate)."""
     if word is True:
         return "lower"  # a bare flag: the measurement's bounds are lower bounds (still moving)
     text = str(word or "").strip().lower()
+    if "lower" in text and "upper" in text:
+        return "both"
     if text in LOWER_WORDS or text.startswith("lower") or text.startswith("at least"):
         return "lower"
     if text in UPPER_WORDS or text.startswith("upper") or text.startswith("at most"):
@@ -110,16 +113,31 @@ def read_cell(row: Mapping[str, Any], column: str,
         reason = _first(raw, REASON_KEYS)
     bound = bound or bound_kind(row.get(f"{column}_bound"))
     for holder in ("bounds", "bound_kinds"):
-        if not bound and isinstance(row.get(holder), Mapping):
-            bound = bound_kind(row[holder].get(column))
+        if not bound:
+            bound = bound_kind(_keyed(row.get(holder), "bounds").get(column))
     reason = reason or row.get(f"{column}_reason")
-    if not reason and isinstance(row.get("null_reasons"), Mapping):
-        reason = row["null_reasons"].get(column)
+    for holder in ("null_reasons", "missing"):
+        if not reason:
+            reason = _keyed(row.get(holder), "missing").get(column)
     cell = Cell(raw, value, bound, reason)
     if cell.missing and not reason:
         reason = _reason_from_metrics(column, reasons) or _reason_from_row(row, column)
         cell = Cell(raw, value, bound, reason)
     return cell
+
+
+def _keyed(value: Any, what: str) -> Mapping[str, Any]:
+    """A row's per-column qualifiers as a mapping: given as one, or as the text the key
+    metrics write (``bounds``: ``"settling_time_s_longest lower; ..."``, ``missing``:
+    ``"gain_db: no sine found; ..."``, read by the measurement's own parsers)."""
+    if isinstance(value, Mapping):
+        return value
+    if not isinstance(value, str) or not value.strip():
+        return {}
+    from simwave.measure import result as measured
+
+    parse = measured.key_bounds if what == "bounds" else measured.key_missing
+    return parse({what: value})
 
 
 def _base_names(column: str) -> list[str]:
@@ -238,4 +256,6 @@ def cell_text(cell: Cell, unit: str = "") -> str:
         return "\u2265 " + text
     if cell.bound == "upper":
         return "\u2264 " + text
+    if cell.bound == "both":
+        return "~ " + text
     return text
