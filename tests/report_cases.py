@@ -56,3 +56,39 @@ def make_batch(folder: str):
         fh.write(BROKEN_CSV)
     plan = load_description(os.path.join(folder, "batch.toml"))
     return run_batch(plan, jobs=1)
+
+
+#: A tolerance study with every kind of build a page must show: corners of an H(s)
+#: where a = 0 makes it improper (not realizable) and b < 0 unstable, a limit that some
+#: builds fail.
+TOLERANCE_TOML = """
+[study]
+analysis = "corners"
+jobs = 1
+
+[system]
+expression = "(s^2 + 1)/(a*s^2 + b*s + 1)"
+name = "notch"
+
+[system.parameters]
+a = "0.5 ±0.5"
+b = "0.2 ±0.3"
+
+[limits]
+final_value = [0.9, 1.1]
+
+[[inputs]]
+signal = "step:rate=1k,duration=2,time=0.1"
+name = "step"
+"""
+
+
+def make_tolerance(folder: str):
+    """Run :data:`TOLERANCE_TOML` in ``folder`` (in this process); return the study result."""
+    from simwave.batch.engines import InlineEngine
+    from simwave.tolerance import load_study, run_study
+
+    path = os.path.join(folder, "study.toml")
+    with open(path, "w", encoding="utf-8") as fh:
+        fh.write(TOLERANCE_TOML)
+    return run_study(load_study(path), engine=InlineEngine())

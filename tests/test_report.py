@@ -18,7 +18,7 @@ from html.parser import HTMLParser
 
 import pytest
 from click.testing import CliRunner
-from report_cases import make_batch
+from report_cases import make_batch, make_tolerance
 
 from simwave.cli import main
 from simwave.report import write_report
@@ -374,3 +374,37 @@ def test_bounds_and_reasons_as_the_key_metrics_write_them():
     assert read_cell(row, "gain_db").reason == "no sine found in the record"
     both = read_cell({"x": 2.0, "bounds": "x lower and upper"}, "x")
     assert cell_text(both) == "~ 2"
+
+
+# ----------------------------------------------------------------------------- tolerance
+def test_tolerance_report_rows_and_problem_builds(tmp_path):
+    result = make_tolerance(str(tmp_path))
+    r = CliRunner().invoke(main, ["report", str(tmp_path)])  # the study folder is one down
+    assert r.exit_code == 0, r.output
+    out_dir = result.study.output_dir
+    with open(os.path.join(out_dir, "report.html"), encoding="utf-8") as fh:
+        page = fh.read()
+    with open(os.path.join(out_dir, "tolerance-summary.json"), encoding="utf-8") as fh:
+        summary = json.load(fh)
+    p = parse(page)
+    rows = summary["model"] + summary["metrics"]
+    assert len(p.table_rows) == len(rows)
+    for row, cells in zip(rows, p.table_rows, strict=True):
+        by_col = dict(zip(p.table_cols, cells, strict=True))
+        for c in p.table_cols:
+            if c != "verdict":
+                assert json.loads(by_col[c]["data-v"]) == row.get(c), (row["metric"], c)
+    problems = " ".join(p.section_text["problems"])
+    assert summary["problem_builds"]
+    for b in summary["problem_builds"]:
+        assert b["reason"] in problems and b["status"] in problems
+    # the limited metric: its unstable and improper corners do not meet it (the study
+    # counts them as not meeting), so the row fails, and says how many builds
+    final = next(i for i, r in enumerate(rows) if r["metric"] == "final_value"
+                 and r["input"] == "step")
+    assert summary["all_limits"]["meeting"] < summary["all_limits"]["builds"]
+    assert p.table_rows[final][p.table_cols.index("verdict")]["data-s"] == "fail"
+    caution = " ".join(p.section_text["cautions"])
+    assert "covers only the parameters and distributions given" in caution
+    figures = re.findall(r'<img src="data:image/png;base64,[^"]+" alt="([^"]+)"', page)
+    assert len(figures) == len([f for f in os.listdir(out_dir) if f.endswith(".png")]) >= 1

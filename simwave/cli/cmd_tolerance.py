@@ -35,9 +35,12 @@ from simwave.errors import BatchError
               help="How long to try to reach the scheduler (default 10 s).")
 @click.option("--force", is_flag=True,
               help="Rerun builds an earlier run of the same study finished (default: reuse).")
+@click.option("--report", "with_report", is_flag=True,
+              help="Also write report.html in the output folder: one self-contained page of "
+                   "the study.")
 @click.option("--json", "as_json", is_flag=True, help="Print the summary document as JSON.")
 def tolerance_command(study_file, analysis, draws, seed, settings, output_dir, jobs, scheduler,
-                      connect_timeout, force, as_json) -> None:
+                      connect_timeout, force, with_report, as_json) -> None:
     """Run a tolerance study: every build of a toleranced design on your inputs.
 
     \b
@@ -70,6 +73,11 @@ def tolerance_command(study_file, analysis, draws, seed, settings, output_dir, j
         click.echo("Interrupted: finished builds are kept in the journal; run the same "
                    "command again to resume.", err=True)
         sys.exit(130)
+    if with_report:
+        from simwave.report import write_report
+
+        report = write_report(study.output_dir)
+        click.echo(f"report: {report}", err=as_json)
     if as_json:
         click.echo(json.dumps(result.summary, indent=1))
     else:

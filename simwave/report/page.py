@@ -293,6 +293,18 @@ def value_html(cell: Cell, unit: str, notes: Footnotes | None) -> str:
 class Page:
     """Builds the page of one :class:`~simwave.report.study.Study`."""
 
+    #: The verdict of a row (kind, detail); a study of another kind brings its own.
+    verdict = staticmethod(verdict_of)
+    results_heading = "All results: one row per input, system and output channel"
+
+    def heading(self, column: str) -> str:
+        """A column's heading for people."""
+        return HEADINGS.get(column, column)
+
+    def display(self, row: Mapping[str, Any], column: str) -> str | None:
+        """Text for a cell the generic number/bound/gap reading does not cover (None: none)."""
+        return None
+
     def __init__(self, study: Any, *, max_detailed: int = MAX_DETAILED,
                  figures: bool = True, log: Any = None) -> None:
         self.study = study
@@ -350,7 +362,7 @@ class Page:
                 if isinstance(value, Mapping) and "input" in value:
                     add(self.study.pair_of({"input": value["input"], "system": name}))
         for row in self.study.rows:
-            kind, _ = verdict_of(row)
+            kind, _ = self.verdict(row)
             if kind == "fail" or (row.get("not_settled") or 0) or (row.get("flags") or 0):
                 add(self.study.pair_of(row))
         return chosen[: self.max_detailed]
@@ -370,7 +382,7 @@ class Page:
             f'<p class="job">{self.job_line()}</p>',
             self.nav(),
             "</header><main>",
-            self.comparison() if s.kind == "batch" else "",
+            self.comparison() if s.kind != "run" else "",
             self.problems(),
             self.cautions(),
             self.rows_table(),
@@ -480,7 +492,7 @@ class Page:
             for w in pair.warnings:
                 warned.append(f"<li>{link}: {esc(w)}</li>")
         for row in s.rows:
-            kind, detail = verdict_of(row)
+            kind, detail = self.verdict(row)
             if kind == "fail":
                 pair = s.pair_of(row)
                 where = self.pair_link(pair) if pair else esc(row["input"])
@@ -534,12 +546,9 @@ class Page:
         body.append(self._cmp_row("tolerance verdicts (rows)",
                                   [self.verdict_counts(n) for n in names], raw=True))
         for key in quantities:
-            cells = []
-            for n in names:
-                cells.append(self._cmp_cell(n, key, comp[n].get(key), notes))
-            if all(c.startswith("n/a") for c in cells) and all(comp[n].get(key) is None
-                                                                for n in names):
-                continue
+            if all(comp[n].get(key) is None for n in names):
+                continue  # no system has it (a sine quantity in a batch of steps)
+            cells = [self._cmp_cell(n, key, comp[n].get(key), notes) for n in names]
             body.append(self._cmp_row(labels.get(key, key).replace(" (s)", ""), cells, raw=True))
         body.append(self._cmp_row("channels never settled",
                                   [str(comp[n].get("not_settled", 0)) for n in names]))
@@ -613,7 +622,7 @@ class Page:
         counts: dict[str, int] = {}
         for row in self.study.rows:
             if row.get("system") == system:
-                kind, _ = verdict_of(row)
+                kind, _ = self.verdict(row)
                 counts[kind] = counts.get(kind, 0) + 1
         return " ".join(f"{badge(k)}\u00a0{counts[k]}" for k in VERDICTS if counts.get(k))
 
@@ -639,10 +648,10 @@ class Page:
             cls = ' class="extra"' if c in extra else (
                 ' class="screen-only"' if c not in PRINT_COLUMNS else "")
             heads.append(f'<th scope="col"{cls} data-col="{esc(c)}"><button type="button">'
-                         f"{esc(HEADINGS.get(c, c))}</button></th>")
+                         f"{esc(self.heading(c))}</button></th>")
         body = []
         for row in self.study.rows:
-            kind, _ = verdict_of(row)
+            kind, _ = self.verdict(row)
             text = " ".join(str(row.get(c) or "") for c in ("input", "system", "channel",
                                                              "status")) + " " + kind
             tds = [self._row_cell(row, c, c in extra, notes, kind) for c in shown + extra]
@@ -655,10 +664,10 @@ class Page:
         empty_note = (f"<p class=\"muted\">Columns with no value in any row (left out): "
                       f"{esc(', '.join(empty))}.</p>" if empty else "")
         return (
-            '<section id="results" aria-labelledby="h-results"><h2 id="h-results">All results: '
-            "one row per input, system and output channel</h2>"
+            '<section id="results" aria-labelledby="h-results"><h2 id="h-results">'
+            f"{esc(self.results_heading)}</h2>"
             f"<p>{_count(len(self.study.rows), 'row')}"
-            + (", exactly as the summary holds them" if self.study.kind == "batch" else "")
+            + (", exactly as the summary holds them" if self.study.kind != "run" else "")
             + (f" ({files})" if files else "") + ". Values to 4 significant digits; "
             "\u2265 and \u2264 mark bounds, n/a a value that could not be measured, each with "
             "its reason in the numbered notes below the table.</p>"
@@ -685,9 +694,16 @@ class Page:
         cls = ["extra"] if extra else ([] if c in PRINT_COLUMNS else ["screen-only"])
         if c == "verdict":
             return (f'<td data-s="{esc(VERDICTS[kind][0])}">{badge(kind)}</td>')
-        cell = self.cell(row, c)
         raw = row.get(c)
         data_v = esc(json.dumps(raw, allow_nan=False, sort_keys=True)) if _jsonable(raw) else ""
+        special = self.display(row, c)
+        if special is not None:
+            first = raw[0] if isinstance(raw, list) and raw else raw
+            numeric = isinstance(first, (int, float)) and not isinstance(first, bool)
+            sort = repr(float(first)) if numeric else special
+            attr = ' class="num"' if numeric and not extra else (' class="extra"' if extra else "")
+            return f'<td{attr} data-s="{esc(sort)}" data-v="{data_v}">{esc(special)}</td>'
+        cell = self.cell(row, c)
         if isinstance(cell.value, (int, float)) and not isinstance(cell.value, bool):
             cls.append("num")
             sort = repr(float(cell.value)) if not cell.missing else ""
@@ -864,7 +880,7 @@ class Page:
                 continue
             lines.append(f'<tr><th scope="row">{esc(HEADINGS.get(c, c))}</th>'
                          f"<td>{value_html(cell, column_unit(c), None)}</td></tr>")
-        kind, detail = verdict_of(row)
+        kind, detail = self.verdict(row)
         lines.append(f'<tr><th scope="row">tolerance verdict</th><td>{badge(kind)}'
                      + (f" {esc(detail)}" if detail and detail != "pass" else "") + "</td></tr>")
         ch = pair.channel(row.get("channel"))
@@ -950,4 +966,8 @@ def _when(stamp: str) -> str:
 
 def render(study: Any, **options: Any) -> str:
     """The page of a study as HTML text (see :class:`Page` for the options)."""
+    if study.kind == "tolerance":
+        from simwave.report.tolerance import TolerancePage
+
+        return TolerancePage(study, **options).build()
     return Page(study, **options).build()

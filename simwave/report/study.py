@@ -129,6 +129,8 @@ class Study:
     notes: list[str] = field(default_factory=list)
     #: The folder the rows' ``output`` and ``metrics_file`` names are relative to.
     data_dir: str = ""
+    #: What a study of another kind brings (a tolerance study: its summary document).
+    extra: dict[str, Any] = field(default_factory=dict)
 
     def pair_of(self, row: Mapping[str, Any]) -> PairView | None:
         for p in self.pairs:
@@ -160,8 +162,8 @@ def find_summary(folder: str) -> str:
         names = ", ".join(os.path.relpath(p, folder) for p in below)
         raise ReportError(f"{folder}: holds several batch summaries ({names}); give the one "
                           "folder to report on")
-    raise ReportError(f"{folder}: no {SUMMARY_JSON} here or one folder down; give the output "
-                      "folder of a batch")
+    raise ReportError(f"{folder}: no {SUMMARY_JSON} (batch) or tolerance-summary.json here or "
+                      "one folder down; give the output folder of a batch or tolerance study")
 
 
 def _read_summary(path: str) -> dict[str, Any]:
@@ -181,13 +183,20 @@ def _read_summary(path: str) -> dict[str, Any]:
 
 
 def load_folder(folder: str) -> Study:
-    """The study of a batch output folder (or a folder holding one, such as the demo's).
+    """The study of a batch or tolerance-study output folder (or a folder holding one).
 
     Reader options for each input come from the summary's ``inputs`` list when
     it has one, else from the batch description it names (when it still loads),
     else the input is read with the summary row's rate as a fallback.
     """
-    summary = find_summary(os.fspath(folder))
+    folder = os.fspath(folder)
+    if os.path.isdir(folder) and not os.path.isfile(os.path.join(folder, SUMMARY_JSON)):
+        from simwave.report.tolerance import is_tolerance_folder, load_tolerance
+
+        found = is_tolerance_folder(folder)
+        if found:
+            return load_tolerance(found)
+    summary = find_summary(folder)
     doc = _read_summary(summary)
     out_dir = os.path.dirname(os.path.abspath(summary))
     plan = _plan_of(doc, out_dir)

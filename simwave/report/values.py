@@ -33,7 +33,8 @@ BOUND_KEYS = ("bound", "bound_kind", "relation", "is_bound")
 #: Keys under which a value's reason may be given.
 REASON_KEYS = ("reason", "null_reason", "note", "why")
 #: Column suffixes that summarize a per-transition or per-tone quantity.
-SUMMARY_SUFFIXES = ("_mean", "_worst", "_longest", "_first", "_largest")
+SUMMARY_SUFFIXES = ("_mean", "_worst", "_longest", "_first", "_largest", "_slowest",
+                    "_fastest")
 #: Summary columns that exist only for a measured sine (a steady tone).
 SINE_COLUMNS = {"frequency_hz", "gain_db", "phase_deg", "predicted_gain_db",
                 "predicted_phase_deg", "thd_pct", "sinad_db"}
