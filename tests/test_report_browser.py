@@ -55,8 +55,10 @@ def column_keys(browser, column: str) -> list:
         "(function(){var t=document.getElementById('rows-table');"
         "var heads=[].slice.call(t.tHead.rows[0].cells).map(function(h){return h.dataset.col});"
         f"var i=heads.indexOf({json.dumps(column)});"
-        "return [].slice.call(t.tBodies[0].rows).map(function(r){"
-        "var s=r.cells[i].getAttribute('data-s');return s===''?null:Number(s);});})()")
+        "return [].slice.call(t.tBodies[0].rows).map(function(r){var c=r.cells[i];"
+        "var s=c.getAttribute('data-s');if(s!==null){return s===''?null:Number(s);}"
+        "var v=JSON.parse(c.getAttribute('data-v')||'null');"
+        "return typeof v==='number'?v:null;});})()")
 
 
 def test_loads_without_errors_or_requests(page):

@@ -23,7 +23,7 @@ import hashlib
 import html
 import json
 import os
-from typing import Any, Mapping, Sequence
+from typing import Any, Iterable, Mapping, Sequence
 
 from simwave.report.values import (
     Cell, bound_kind, cell_text, column_unit, null_reasons_in, number_text, read_cell,
@@ -77,6 +77,8 @@ VERDICTS = {
 #: Most pairs drawn in full in one page; beyond it the worst cases are drawn and the
 #: rest link to their files.
 MAX_DETAILED = 60
+#: Most pairs drawn when a batch has more than MAX_DETAILED: its worst cases.
+MAX_WORST = 30
 #: Most frequency-response figures (one per system, method and rate).
 MAX_MODELS = 24
 
@@ -150,7 +152,7 @@ footer{margin-top:3rem;font-size:.85rem;color:var(--muted)}
  nav,.controls,.noprint{display:none}
  h2{break-after:avoid}h3{break-after:avoid}
  table{font-size:7.5pt}th,td{padding:1px 3px}.scroll{overflow:visible}
- .extra,.show-all .extra,.screen-only{display:none}
+ .extra,.show-all .extra{display:none}
  td,th{overflow-wrap:anywhere;word-break:break-word}
  #rows-table td.num{white-space:normal}
  th button::after,th[aria-sort] button::after{content:""}
@@ -171,8 +173,15 @@ SCRIPT = """
   var heads = Array.prototype.slice.call(table.tHead.rows[0].cells);
   var count = document.getElementById("rows-count");
   function key(row, i) {
-    var s = row.cells[i].getAttribute("data-s");
-    if (s === null || s === "") { return null; }
+    var cell = row.cells[i];
+    var s = cell.getAttribute("data-s");
+    if (s === null) {
+      var v = JSON.parse(cell.getAttribute("data-v") || "null");
+      if (v !== null && typeof v === "object") { v = "value" in v ? v.value : null; }
+      if (v === null || v === "") { return null; }
+      return typeof v === "number" ? v : String(v).toLowerCase();
+    }
+    if (s === "") { return null; }
     var n = Number(s);
     return isNaN(n) ? s.toLowerCase() : n;
   }
@@ -269,8 +278,7 @@ class Footnotes:
 
     def mark(self, reason: str) -> str:
         n = self.numbers.setdefault(reason, len(self.numbers) + 1)
-        return (f'<a class="why" href="#{self.prefix}-{n}" title="{esc(reason)}" '
-                f'aria-label="why: {esc(reason)}">{n}</a>')
+        return f'<a class="why" href="#{self.prefix}-{n}" aria-label="note {n}">{n}</a>'
 
     def html(self, heading: str) -> str:
         if not self.numbers:
@@ -365,7 +373,7 @@ class Page:
             kind, _ = self.verdict(row)
             if kind == "fail" or (row.get("not_settled") or 0) or (row.get("flags") or 0):
                 add(self.study.pair_of(row))
-        return chosen[: self.max_detailed]
+        return chosen[: min(self.max_detailed, MAX_WORST)]
 
     def cell(self, row: Mapping[str, Any], column: str) -> Cell:
         pair = self.study.pair_of(row)
@@ -645,9 +653,7 @@ class Page:
         notes = Footnotes("why")
         heads = []
         for c in shown + extra:
-            cls = ' class="extra"' if c in extra else (
-                ' class="screen-only"' if c not in PRINT_COLUMNS else "")
-            heads.append(f'<th scope="col"{cls} data-col="{esc(c)}"><button type="button">'
+            heads.append(f'<th scope="col" data-col="{esc(c)}"><button type="button">'
                          f"{esc(self.heading(c))}</button></th>")
         body = []
         for row in self.study.rows:
@@ -684,14 +690,43 @@ class Page:
             "its header button.</span></div>"
             '<noscript><p class="muted">Sorting and filtering need JavaScript; the table '
             "reads the same without it.</p></noscript>"
-            '<div class="scroll"><table id="rows-table"><thead><tr>' + "".join(heads)
+            + self.column_styles(shown, extra)
+            + '<div class="scroll"><table id="rows-table"><thead><tr>' + "".join(heads)
             + "</tr></thead><tbody>" + "\n".join(body) + "</tbody></table></div>"
             + notes.html("Why a value is missing or only a bound") + empty_note + "</section>"
         )
 
+    def column_styles(self, shown: list[str], extra: list[str]) -> str:
+        """Which columns are extra, screen-only or numeric, as CSS rules by position.
+
+        One rule per column instead of a class on each of thousands of cells.
+        """
+        cols = shown + extra
+        numeric = {c for c in cols if any(
+            isinstance(self.cell_value(r, c), (int, float))
+            and not isinstance(self.cell_value(r, c), bool) for r in self.study.rows)}
+
+        def sel(names: Iterable[str], tags: str = "td,th", table: str = "#rows-table") -> str:
+            return ",".join(f"{table} {t}:nth-child({cols.index(c) + 1})"
+                            for c in names for t in tags.split(","))
+
+        rules = []
+        if extra:
+            rules.append(f"{sel(extra, table='#rows-table:not(.show-all)')}{{display:none}}")
+        if numeric:
+            rules.append(f"{sel(numeric, 'td')}{{text-align:right;white-space:nowrap}}")
+        hidden = [c for c in cols if c in extra or c not in PRINT_COLUMNS]
+        if hidden:
+            rules.append(f"@media print{{{sel(hidden)}{{display:none}}}}")
+        return "<style>" + "".join(rules) + "</style>"
+
+    @staticmethod
+    def cell_value(row: Mapping[str, Any], c: str) -> Any:
+        v = row.get(c)
+        return v.get("value") if isinstance(v, Mapping) else v
+
     def _row_cell(self, row: Mapping[str, Any], c: str, extra: bool, notes: Footnotes,
                   kind: str) -> str:
-        cls = ["extra"] if extra else ([] if c in PRINT_COLUMNS else ["screen-only"])
         if c == "verdict":
             return (f'<td data-s="{esc(VERDICTS[kind][0])}">{badge(kind)}</td>')
         raw = row.get(c)
@@ -701,14 +736,12 @@ class Page:
             first = raw[0] if isinstance(raw, list) and raw else raw
             numeric = isinstance(first, (int, float)) and not isinstance(first, bool)
             sort = repr(float(first)) if numeric else special
-            attr = ' class="num"' if numeric and not extra else (' class="extra"' if extra else "")
-            return f'<td{attr} data-s="{esc(sort)}" data-v="{data_v}">{esc(special)}</td>'
+            return f'<td data-s="{esc(sort)}" data-v="{data_v}">{esc(special)}</td>'
         cell = self.cell(row, c)
-        if isinstance(cell.value, (int, float)) and not isinstance(cell.value, bool):
-            cls.append("num")
-            sort = repr(float(cell.value)) if not cell.missing else ""
-        else:
-            sort = "" if cell.value is None else str(cell.value)
+        # the sort key is the JSON value itself unless the value sits inside a dictionary
+        sort = None
+        if isinstance(raw, Mapping):
+            sort = "" if cell.missing or cell.value is None else str(cell.value)
         if c == "input":
             pair = self.study.pair_of(row)
             content = self.pair_link(pair).replace(esc(pair.label), esc(row[c])) if pair \
@@ -722,8 +755,8 @@ class Page:
             content = ""
         else:
             content = value_html(cell, column_unit(c), notes)
-        attr = f' class="{" ".join(cls)}"' if cls else ""
-        return f'<td{attr} data-s="{esc(sort)}" data-v="{data_v}">{content}</td>'
+        data_s = "" if sort is None else f' data-s="{esc(sort)}"'
+        return f'<td{data_s} data-v="{data_v}">{content}</td>'
 
     # ---------------------------------------------------------------- systems
     def systems_section(self) -> str:

@@ -133,10 +133,11 @@ class Study:
     extra: dict[str, Any] = field(default_factory=dict)
 
     def pair_of(self, row: Mapping[str, Any]) -> PairView | None:
-        for p in self.pairs:
-            if p.input == row.get("input") and p.system == row.get("system"):
-                return p
-        return None
+        """The pair a row belongs to (by input and system), or None."""
+        index = getattr(self, "_index", None)
+        if index is None or len(index) != len(self.pairs):
+            index = self._index = {(p.input, p.system): p for p in self.pairs}
+        return index.get((row.get("input"), row.get("system")))
 
 
 # ----------------------------------------------------------------------------- folders
