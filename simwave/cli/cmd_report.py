@@ -1,4 +1,4 @@
-"""``simwave report``: one self-contained HTML page for a batch output folder."""
+"""``simwave report``: one self-contained HTML page for a batch or tolerance-study folder."""
 
 from __future__ import annotations
 
@@ -17,11 +17,13 @@ from simwave.cli.app import main
               help="Most pairs drawn in full (default 60); beyond it the worst cases are "
                    "drawn and the rest link to their files.")
 def report_command(folder: str, output: str | None, max_detailed: int | None) -> None:
-    """Write one HTML page for the batch in DIR: comparison, all rows, each pair.
+    """Write one HTML page for the batch or tolerance study in DIR: comparison, all rows,
+    each pair.
 
-    DIR is a batch output folder (where summary.json is) or a folder holding
-    one, such as the demo's. The page is self-contained (styles, script and
-    figures inline; nothing fetched) and opens from a file or an e-mail.
+    DIR is a batch output folder (where summary.json is), a tolerance-study
+    output folder (tolerance-summary.json), or a folder holding one, such as
+    the demo's. The page is self-contained (styles, script and figures inline;
+    nothing fetched) and opens from a file or an e-mail.
     """
     from simwave.report import MAX_DETAILED, check_report_path, write_report
 
