@@ -295,7 +295,7 @@ def _finish(plan: BatchPlan, engine_text: str, results: dict[int, dict], reused:
                     for s in plan.systems},
         "measure_options": plan.measure_options,
         # how each input and output is read back (the report draws them)
-        "inputs": [{"label": e.label, "source": e.source, "rate": e.rate,
+        "inputs": [{"label": e.label, "name": e.stem, "source": e.source, "rate": e.rate,
                     "channels": list(e.channels) if e.channels else None,
                     "read_options": dict(e.read_options)} for e in plan.inputs],
         "include_input": plan.include_input,

@@ -234,9 +234,16 @@ def _group_rows(rows: list[dict[str, Any]]) -> list[tuple[str, str, list[dict[st
 def _from_summary_doc(doc: Mapping[str, Any], out_dir: str, plan: Any = None) -> Study:
     rows = list(doc["rows"])
     by_label = {}
-    if plan is not None:
-        by_label = {(p.input.label, p.system.name): p for p in plan.pairs}
-    recorded = {str(e.get("label")): e for e in doc.get("inputs") or [] if isinstance(e, dict)}
+    if plan is not None:  # rows name a file input by its label, a generated one by its name
+        for p in plan.pairs:
+            by_label[(p.input.label, p.system.name)] = p
+            by_label.setdefault((p.input.stem, p.system.name), p)
+    recorded = {}
+    for e in doc.get("inputs") or []:
+        if isinstance(e, dict):
+            recorded[str(e.get("label"))] = e
+            if e.get("name"):
+                recorded.setdefault(str(e["name"]), e)
     pairs = []
     for k, (inp, sysname, prs) in enumerate(_group_rows(rows)):
         first = prs[0]
