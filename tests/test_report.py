@@ -306,9 +306,9 @@ def test_run_and_batch_write_a_report(tmp_path):
     here = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
     src = os.path.join(here, "waveforms", "strain-step.csv")
     system = os.path.join(here, "examples", "strain_gauge_front_end.toml")
-    page = tmp_path / "run.html"
+    page = tmp_path / "out.report.html"
     r = CliRunner().invoke(main, ["run", src, "-s", system, "-o", str(tmp_path / "out.csv"),
-                                  "--report", str(page)])
+                                  "--report"])
     assert r.exit_code == 0, r.output
     text = page.read_text(encoding="utf-8")
     assert "strain-step.csv" in text and 'role="img"' in text
@@ -317,10 +317,11 @@ def test_run_and_batch_write_a_report(tmp_path):
                                   str(tmp_path / "b"), "-j", "1", "--report"])
     assert r.exit_code == 0, r.output
     assert (tmp_path / "b" / "report.html").is_file() and "report:" in r.output
-    # a bad report name is refused before any work is done
-    r = CliRunner().invoke(main, ["run", src, "-s", system, "-o", str(tmp_path / "x.csv"),
-                                  "--report", str(tmp_path / "x.pdf")])
-    assert r.exit_code == 2 and not (tmp_path / "x.csv").exists()
+    # a report that cannot be written is refused before any work is done
+    r = CliRunner().invoke(main, ["run", src, "-s", system, "-o",
+                                  str(tmp_path / "missing" / "x.csv"), "--report"])
+    assert r.exit_code == 2 and "does not exist" in r.output
+    assert not (tmp_path / "missing").exists()
 
 
 # ----------------------------------------------------------------------------- size

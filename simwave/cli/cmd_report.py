@@ -11,8 +11,9 @@ from simwave.cli.app import main
 
 @main.command("report")
 @click.argument("folder", metavar="DIR")
-@click.option("-o", "--output", metavar="FILE.html", default=None,
-              help="Where to write the page (default DIR/report.html, beside summary.json).")
+@click.option("-o", "--output", metavar="FILE", default=None,
+              help="Where to write the page, a .html name (default DIR/report.html, beside "
+                   "the summary).")
 @click.option("--max-detailed", type=click.IntRange(min=0), default=None,
               help="Most pairs drawn in full (default 60); beyond it the worst cases are "
                    "drawn and the rest link to their files.")

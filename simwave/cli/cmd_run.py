@@ -210,12 +210,13 @@ def _format_summary(result: dict) -> str:
               help="Settling tolerance band in percent of the transition (default 2).")
 @click.option("--plot", "plot_path", metavar="FILE", default=None,
               help="Draw input and output with the first transition's metrics (.png or .svg).")
-@click.option("--report", "report_path", metavar="FILE.html", default=None,
-              help="Write a self-contained HTML page of the run: metrics, figures, cautions.")
+@click.option("--report", "with_report", is_flag=True,
+              help="Also write OUTPUT's name with .report.html: one self-contained page of "
+                   "the run (metrics, figures, cautions).")
 @click.option("--json", "as_json", is_flag=True, help="Print the run report as JSON.")
 def run_command(source, system_spec, output, method, prewarp, match_frequency, initial,
                 initial_output, oversample, with_input, subtype, on_clip, normalize_level,
-                compression, keep_going, metrics, settling_band, plot_path, report_path, as_json,
+                compression, keep_going, metrics, settling_band, plot_path, with_report, as_json,
                 **reader_kwargs):
     """Run INPUT through the system and write the output.
 
@@ -237,10 +238,11 @@ def run_command(source, system_spec, output, method, prewarp, match_frequency, i
         from simwave.plots import check_plot_path
 
         check_plot_path(plot_path)  # a bad plot name fails before any work
-    if report_path is not None:
-        from simwave.report import check_report_path
+    report_path = None
+    if with_report:
+        from simwave.report import check_report_path, run_report_path
 
-        check_report_path(report_path)
+        report_path = check_report_path(run_report_path(output))
     write_options = {}
     if subtype is not None:
         write_options["subtype"] = subtype

@@ -80,6 +80,12 @@ def write_report(
     return target
 
 
+def run_report_path(output: str | os.PathLike[str]) -> str:
+    """Where ``simwave run --report`` writes the page: the output's name with ``.report.html``."""
+    stem, _ = os.path.splitext(os.fspath(output))
+    return stem + ".report.html"
+
+
 def write_run_report(result: dict, job: Any, path: str | os.PathLike[str]) -> str:
     """Write the report page of one ``simwave run`` (the dict of :func:`simwave.run.execute`).
 
@@ -117,5 +123,6 @@ def check_report_path(path: str | os.PathLike[str]) -> str:
     return p
 
 
-__all__ = ["write_report", "write_run_report", "check_report_path", "load_folder",
-           "from_batch", "from_run", "Study", "ReportError", "REPORT_NAME", "MAX_DETAILED"]
+__all__ = ["write_report", "write_run_report", "run_report_path", "check_report_path",
+           "load_folder", "from_batch", "from_run", "Study", "ReportError", "REPORT_NAME",
+           "MAX_DETAILED"]
