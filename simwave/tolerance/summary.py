@@ -24,7 +24,7 @@ layout (schema 1)::
     notes[...]
 
     row = {input, channel, metric, nominal, min, max, mean, std, p5, p50, p95,
-           builds, measured, not_measured, not_run, limit_min, limit_max,
+           builds, measured, not_measured, not_measured_reason, not_run, limit_min, limit_max,
            inside, share_inside, share_interval_95[low, high] | null, share_note,
            sensitivity{parameter: S | null}, sensitivity_notes{parameter: reason},
            moves_most{parameter, sensitivity, swing} | null}
@@ -75,6 +75,29 @@ def _numeric_keys(results: dict[int, dict]) -> list[tuple[str, str, str]]:
                     if isinstance(v, (int, float)) and not isinstance(v, bool):
                         seen.setdefault((label, ch, k), None)
     return list(seen)
+
+
+def _limited_keys(study: Any, results: dict[int, dict],
+                  keys: list[tuple[str, str, str]]) -> list[tuple[str, str, str]]:
+    """``keys`` plus every limited metric of every (input, channel) seen, numeric or not:
+    a limit on a metric that no build could measure is a row with its reason, not a gap."""
+    out = dict.fromkeys(keys)
+    for r in results.values():
+        for label, entry in (r.get("inputs") or {}).items():
+            for ch in entry.get("metrics") or {}:
+                for metric in study.limits:
+                    out.setdefault((label, ch, metric), None)
+    return list(out)
+
+
+def missing_reason(r: dict | None, label: str, ch: str, metric: str) -> str | None:
+    """Why ``metric`` has no value in build ``r`` (the measurement's own reason), if known."""
+    from simwave.measure.result import key_missing
+
+    if not r or r.get("status") != "ok" or label == MODEL_INPUT:
+        return None
+    m = (((r.get("inputs") or {}).get(label) or {}).get("metrics") or {}).get(ch) or {}
+    return key_missing(m).get(metric)
 
 
 def metric_value(r: dict | None, label: str, ch: str, metric: str) -> float | None:
@@ -149,10 +172,17 @@ def summarize(study: Any, builds: list[B.Build], results: dict[int, dict],
         if best is not None and best["swing"] == 0:
             best = None
         out["sensitivity"], out["sensitivity_notes"], out["moves_most"] = sens, why, best
+        out["not_measured_reason"] = None
+        if out["not_measured"]:
+            for r in [nominal, *(results.get(b.index) for b in analysis)]:
+                reason = missing_reason(r, label, ch, metric) if getter(r) is None else None
+                if reason:
+                    out["not_measured_reason"] = reason
+                    break
         return out
 
     metrics = []
-    for label, ch, metric in _numeric_keys(results):
+    for label, ch, metric in _limited_keys(study, results, _numeric_keys(results)):
         metrics.append(row(label, ch, metric,
                            lambda r, a=label, c=ch, m=metric: metric_value(r, a, c, m)))
     model = [row(MODEL_INPUT, "", m, lambda r, m=m: model_value(r, m)) for m in MODEL_FIGURES
@@ -217,7 +247,8 @@ def meets_all(study: Any, r: dict | None, labels: list[str]) -> tuple[bool, dict
         if m is None:
             ok = False
             cand = {"input": label, "channel": ch, "metric": metric, "value": None,
-                    "margin": None, "relative_margin": None, "note": "not measured"}
+                    "margin": None, "relative_margin": None,
+                    "note": missing_reason(r, label, ch, metric) or "not measured"}
             if worst is None or worst.get("relative_margin") is not None:
                 worst = cand
             continue
@@ -285,8 +316,10 @@ def worst_build(study: Any, analysis: list, results: dict, metrics: list[dict]) 
                 continue
             key = -math.inf if w.get("relative_margin") is None else w["relative_margin"]
             if best is None or key < best[0]:
-                best = (key, b, {"why": f"tightest margin: {w['metric']} on {w['input']}",
-                                 "input": w["input"], "margin": w})
+                why = (f"tightest margin: {w['metric']} on {w['input']}"
+                       if w.get("relative_margin") is not None else
+                       f"{w['metric']} not measured on {w['input']} ({w['note']})")
+                best = (key, b, {"why": why, "input": w["input"], "margin": w})
     else:
         nominal = results.get(0)
         for b in analysis:
@@ -366,7 +399,8 @@ def design_search(study: Any, analysis: list, results: dict, labels: list[str],
 SUMMARY_COLUMNS = ("input", "channel", "metric", "nominal", "min", "p5", "p50", "p95", "max",
                    "mean", "std", "builds", "measured", "not_measured", "not_run", "limit_min",
                    "limit_max", "inside", "share_inside", "share_low_95", "share_high_95",
-                   "moves_most", "moves_most_sensitivity", "moves_most_swing", "sensitivities")
+                   "moves_most", "moves_most_sensitivity", "moves_most_swing", "sensitivities",
+                   "not_measured_reason")
 
 
 def _cell(v: Any) -> str:
@@ -391,7 +425,7 @@ def summary_csv(doc: dict[str, Any]) -> str:
             r["p95"], r["max"], r["mean"], r["std"], r["builds"], r["measured"],
             r["not_measured"], r["not_run"], r["limit_min"], r["limit_max"], r["inside"],
             r["share_inside"], iv[0], iv[1], mm.get("parameter"), mm.get("sensitivity"),
-            mm.get("swing"), sens)])
+            mm.get("swing"), sens, r.get("not_measured_reason"))])
     return buf.getvalue()
 
 

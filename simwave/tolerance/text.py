@@ -63,7 +63,8 @@ def _rows(rows: list[dict[str, Any]]) -> list[list[str]]:
         limited = r["limit_min"] is not None or r["limit_max"] is not None
         if not (varies or limited):
             continue
-        out.append([r["metric"], _g(r["nominal"]), _g(r["min"]), _g(r["p50"]), _g(r["max"]),
+        out.append([r["metric"], *(("n/a" if r[k] is None else _g(r[k]))
+                                   for k in ("nominal", "min", "p50", "max")),
                     _limits(r), _inside(r), _moves(r)])
     return out
 
@@ -105,6 +106,13 @@ def format_summary(doc: dict[str, Any], files: dict[str, str] | None = None) -> 
         if label == MODEL_INPUT or not table:
             continue
         lines += ["", f"input {label}, channel {ch}:"] + _table(HEADER, table)
+        for r in rows:  # a value a build could not measure is n/a with the measurement's reason
+            if r.get("not_measured") and (r["limit_min"] is not None
+                                          or r["limit_max"] is not None or r["nominal"] is None):
+                lines.append(f"  {r['metric']}: not measured in {r['not_measured']} of "
+                             f"{r['builds']} builds"
+                             + (f": {r['not_measured_reason']}" if r.get("not_measured_reason")
+                                else ""))
     lines.append("")
     al = doc.get("all_limits")
     if al:
