@@ -534,3 +534,35 @@ def test_an_interrupted_study_resumes_where_it_stopped(tmp_path):
     fresh = _rc_study(tmp_path, "monte-carlo", draws=12, sub="fresh")
     run_study(load_study(fresh), engine=InlineEngine())
     assert _summary_bytes(path) == _summary_bytes(fresh)
+
+
+# ----------------------------------------------------------------------------- not measurable
+def test_a_limited_metric_no_build_can_measure_is_a_row_with_its_reason(tmp_path):
+    # A noisy step (Gaussian, sigma 5 % of the step) through RC = 1 ms: the output's noise
+    # (RMS about 0.0035) reaches beyond a ±0.5 % settling band, so `measure` reports settling
+    # as not measurable. The study must show that row as n/a with the reason and must not
+    # call the unmeasured limit a "margin".
+    import simwave
+
+    fs = 100e3
+    t = np.arange(int(0.04 * fs)) / fs
+    x = (t >= 2e-3).astype(float) + np.random.default_rng(1).normal(0, 0.05, t.size)
+    simwave.write(str(tmp_path / "noisy.csv"), simwave.Waveform(x[:, None], fs, channels=["v"]))
+    study = RC_STUDY.format(analysis="corners", draws=4, plots="false").replace(
+        'rise_time_s_mean = { max = "2.3m" }', 'settling_time_s_longest = { max = "10m" }'
+    ).replace('signal = "step:rate=100k,duration=20m,time=1m"\nname = "step"',
+              'files = ["noisy.csv"]')
+    study = study.replace("[limits]", "[measure]\nsettling_band_pct = 0.5\n\n[limits]")
+    result = run_study(load_study(_write(tmp_path, study)), engine=InlineEngine())
+    row = next(r for r in result.summary["metrics"] if r["metric"] == "settling_time_s_longest")
+    assert row["nominal"] is None and row["measured"] == 0 and row["not_measured"] == 4
+    assert "band" in row["not_measured_reason"] and "cannot be measured" in row[
+        "not_measured_reason"]
+    assert row["inside"] == 0
+    assert "not measured on" in result.summary["worst_build"]["why"]
+    from simwave.tolerance.text import format_summary
+
+    text = format_summary(result.summary)
+    line = next(s for s in text.splitlines() if s.startswith("settling_time_s_longest"))
+    assert line.split()[1:5] == ["n/a"] * 4
+    assert "settling_time_s_longest: not measured in 4 of 4 builds: " in text
