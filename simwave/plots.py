@@ -128,24 +128,15 @@ def save_figure(fig: Figure, path: str | os.PathLike[str]) -> str:
         Bad extension or folder (see :func:`check_plot_path`), or the file cannot
         be written; nothing is left under the target name then.
     """
-    from simwave.signals.atomic import AtomicTarget
+    from simwave.signals.atomic import atomic_file
 
     p = check_plot_path(path)
     fmt = FORMATS[os.path.splitext(p)[1].lower()]
     try:
-        target = AtomicTarget(p)
+        with atomic_file(p) as tmp, rc_context(_STYLE):
+            fig.savefig(tmp, format=fmt)
     except SimwaveError as exc:
         raise PlotError(str(exc)) from None
-    try:
-        with rc_context(_STYLE):
-            fig.savefig(target.tmp, format=fmt)
-        target.commit()
-    except OSError as exc:
-        target.abort()
-        raise PlotError(f"{p}: cannot write the plot ({exc.strerror or exc})") from None
-    except BaseException:
-        target.abort()
-        raise
     return p
 
 

@@ -706,10 +706,20 @@ def execute(job: RunJob, progress: Callable[[int, int | None], None] | None = No
     )
     result: dict[str, Any] = {"run": report.to_dict(), "metrics": None}
     if job.metrics is not None:
-        metrics = measure_run(job, system, len(report.channels)).to_dict()
-        result["metrics"] = metrics
-        write_json(job.metrics, {"run": result["run"], "metrics": metrics},
-                   protect=[job.source, job.output])
+        # The rule for the measuring step (README, "Exit codes"): every path was checked
+        # before the run; once the output is complete, a measuring or metrics-writing
+        # failure does not undo it. It becomes a warning with the reason, recorded in
+        # result["metrics_error"], and no metrics file is written.
+        try:
+            metrics = measure_run(job, system, len(report.channels)).to_dict()
+            write_json(job.metrics, {"run": result["run"], "metrics": metrics},
+                       protect=[job.source, job.output])
+        except SimwaveError as exc:
+            result["metrics_error"] = str(exc)
+            warnings.warn(f"{job.metrics}: metrics not written: {exc} (the output "
+                          f"{job.output} is complete)", stacklevel=2)
+        else:
+            result["metrics"] = metrics
     return result
 
 
@@ -753,17 +763,10 @@ def write_json(path: str | os.PathLike, data: Any, protect: Sequence[str] = ()) 
     """Write JSON atomically (temporary file beside the target, then os.replace)."""
     import json
 
-    from simwave.signals.atomic import AtomicTarget
+    from simwave.signals.atomic import write_text_atomic
 
-    target = AtomicTarget(os.fspath(path), protect=[p for p in protect if p])
-    try:
-        with open(target.tmp, "w", encoding="utf-8") as fh:
-            json.dump(data, fh, indent=2, allow_nan=False, default=_json_default)
-            fh.write("\n")
-        target.commit()
-    except BaseException:
-        target.abort()
-        raise
+    text = json.dumps(data, indent=2, allow_nan=False, default=_json_default) + "\n"
+    write_text_atomic(os.fspath(path), text, protect=[p for p in protect if p])
 
 
 def _json_default(value: Any) -> Any:

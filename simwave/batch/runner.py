@@ -20,7 +20,6 @@ summary lists the rest as ``not run``.
 
 from __future__ import annotations
 
-import glob
 import json
 import os
 import stat
@@ -35,6 +34,7 @@ from simwave.batch.summary import (
 )
 from simwave.batch.tasks import PairTask
 from simwave.errors import BatchError
+from simwave.signals.atomic import sweep_stale_parts
 
 #: Exit codes of ``simwave batch``.
 EXIT_OK, EXIT_FAILED, EXIT_INTERRUPTED = 0, 1, 130
@@ -93,20 +93,37 @@ class BatchResult:
 
 # ----------------------------------------------------------------------------- journal
 def read_journal(path: str) -> dict[str, dict]:
-    """Output name -> latest journal entry (a torn last line is ignored)."""
+    """Output name -> latest journal entry.
+
+    The journal only saves work: a line that is torn, not UTF-8, not JSON, or not
+    shaped like an entry (``output`` text, ``result`` table with a table of
+    ``metrics``) is skipped, and its pair simply runs again. A journal that cannot
+    be read at all (a folder in its place, no permission) is a one-line error.
+    """
     entries: dict[str, dict] = {}
     try:
-        with open(path, encoding="utf-8") as fh:
+        with open(path, encoding="utf-8", errors="replace") as fh:
             for line in fh:
                 try:
                     entry = json.loads(line)
                 except ValueError:
                     continue
-                if isinstance(entry, dict) and "output" in entry:
+                if _is_entry(entry):
                     entries[entry["output"]] = entry
     except FileNotFoundError:
         pass
+    except OSError as exc:
+        raise BatchError(f"{path}: cannot read the batch journal ({exc.strerror}); remove "
+                         "it or choose another output directory") from None
     return entries
+
+
+def _is_entry(entry: Any) -> bool:
+    if not isinstance(entry, dict) or not isinstance(entry.get("output"), str):
+        return False
+    result = entry.get("result")
+    return (isinstance(result, dict) and isinstance(result.get("status"), str)
+            and isinstance(result.get("metrics") or {}, dict))
 
 
 def _mtime(path: str) -> int | None:
@@ -137,18 +154,26 @@ def _remove_temporaries(pair: Pair) -> None:
     """Delete temporary files an abandoned pair may have left beside its targets.
 
     The name pattern is that of :class:`simwave.signals.atomic.AtomicTarget`
-    (``.NAME.XXXX.partEXT`` in the target's directory).
+    (``.NAME.XXXX.partEXT`` in the target's directory); a file some live process
+    still holds open is left alone (see :func:`simwave.signals.atomic.sweep_stale_parts`).
     """
-    for target in (pair.output, pair.metrics):
-        directory, base = os.path.split(target)
-        ext = os.path.splitext(base)[1]
-        pattern = os.path.join(glob.escape(directory), "." + glob.escape(base) + ".*.part"
-                               + glob.escape(ext))
-        for tmp in glob.glob(pattern):
-            try:
-                os.unlink(tmp)
-            except OSError:
-                pass
+    targets = [t for t in (pair.output, pair.metrics) if t]
+    sweep_stale_parts({os.path.dirname(os.path.abspath(t)) for t in targets},
+                      targets=targets, min_age_s=0.0)
+
+
+def sweep_plan_folders(plan: BatchPlan) -> list[str]:
+    """Remove stale temporaries of killed runs from every folder the batch writes to.
+
+    Before a batch starts: files of this tool's temporary pattern that no process
+    holds open and that have not changed for a minute
+    (:func:`simwave.signals.atomic.sweep_stale_parts`).
+    """
+    folders = {plan.output_dir}
+    for pair in plan.pairs:
+        folders.update(os.path.dirname(os.path.abspath(t))
+                       for t in (pair.output, pair.metrics) if t)
+    return sweep_stale_parts(folders)
 
 
 # ----------------------------------------------------------------------------- run
@@ -253,6 +278,11 @@ def run_batch(
                     for pair in in_flight:
                         if pair.index not in results:
                             _remove_temporaries(pair)
+        if not interrupted and getattr(eng, "removes_temporaries", True):
+            # Every pair has ended: a temporary file still beside a target was left by a
+            # worker that died (killed, crashed) and is not held open by anyone.
+            for pair in todo:
+                _remove_temporaries(pair)
     finally:
         try:
             eng.close()

@@ -130,16 +130,9 @@ def rows_csv(rows: Iterable[Mapping[str, Any]], cols: Sequence[str]) -> str:
 
 def write_text_atomic(path: str, text: str) -> None:
     """Write text through a temporary file beside ``path`` and rename it over (atomic)."""
-    from simwave.signals.atomic import AtomicTarget
+    from simwave.signals.atomic import write_text_atomic as write
 
-    target = AtomicTarget(path)
-    try:
-        with open(target.tmp, "w", encoding="utf-8", newline="") as fh:
-            fh.write(text)
-        target.commit()
-    except BaseException:
-        target.abort()
-        raise
+    write(path, text)
 
 
 # ----------------------------------------------------------------------------- comparison

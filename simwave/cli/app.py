@@ -9,7 +9,9 @@ summary here is the first paragraph of its command's docstring.
 from __future__ import annotations
 
 import importlib
+import signal
 import sys
+import threading
 import warnings
 
 import click
@@ -48,6 +50,55 @@ COMMANDS: dict[str, tuple[str, str]] = {
                   "Run a tolerance study: every build of a toleranced design on your inputs."),
 }
 
+#: Signals that stop a command the way Ctrl-C (SIGINT) does: temporary files removed,
+#: batch workers ended, nothing left under an output name.
+STOP_SIGNALS = ("SIGTERM", "SIGHUP")
+
+
+class Stopped(KeyboardInterrupt):
+    """Raised in the main thread by SIGTERM or SIGHUP; handled wherever Ctrl-C is."""
+
+    def __init__(self, signum: int) -> None:
+        super().__init__(signum)
+        self.signum = signum
+
+
+def _raise_stopped(signum: int, frame) -> None:
+    raise Stopped(signum)
+
+
+def handle_stop_signals() -> None:
+    """Make SIGTERM and SIGHUP raise :class:`Stopped` (a KeyboardInterrupt) in this process.
+
+    Every clean-up path written for Ctrl-C (atomic writers deleting their temporary
+    files, batch stopping its workers) then serves these signals too. A signal that
+    was ignored when the process started (``nohup``) stays ignored.
+    """
+    if threading.current_thread() is not threading.main_thread():
+        return
+    for name in STOP_SIGNALS:
+        sig = getattr(signal, name, None)
+        if sig is not None and signal.getsignal(sig) is not signal.SIG_IGN:
+            signal.signal(sig, _raise_stopped)
+
+
+def stopped_exit_code(exc: KeyboardInterrupt) -> int:
+    """128 + the signal number (the shell's convention): 130 for Ctrl-C, 143 for SIGTERM."""
+    return 128 + getattr(exc, "signum", signal.SIGINT)
+
+
+def sweep_output_folders(paths) -> None:
+    """Remove stale temporary files of killed runs from the folders of ``paths`` (a note)."""
+    import os
+
+    from simwave.signals.atomic import sweep_note, sweep_stale_parts
+
+    folders = {os.path.dirname(os.path.abspath(p)) for p in paths if p is not None}
+    note = sweep_note(sweep_stale_parts(folders))
+    if note:
+        click.echo(note, err=True)
+
+
 class SimwaveGroup(click.Group):
     """A click group that imports its commands lazily and prints a SimwaveError as one
     line with exit code 2."""
@@ -74,14 +125,16 @@ class SimwaveGroup(click.Group):
             self.commands = saved
 
     def invoke(self, ctx: click.Context):
+        handle_stop_signals()
         try:
             return super().invoke(ctx)
         except SimwaveError as exc:
             click.echo(f"Error: {exc}", err=True)
             sys.exit(EXIT_BAD_INPUT)
-        except KeyboardInterrupt:
-            click.echo("Interrupted.", err=True)
-            sys.exit(130)
+        except KeyboardInterrupt as exc:
+            name = signal.Signals(getattr(exc, "signum", signal.SIGINT)).name
+            click.echo("Interrupted." if name == "SIGINT" else f"Stopped ({name}).", err=True)
+            sys.exit(stopped_exit_code(exc))
 
 
 @click.group(cls=SimwaveGroup, context_settings={"help_option_names": ["-h", "--help"]})

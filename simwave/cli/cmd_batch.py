@@ -125,6 +125,12 @@ def batch_command(items, systems, designs, output_dir, jobs, scheduler, connect_
     for note in plan.warnings:
         click.echo(f"Warning: {note}", err=True)
 
+    from simwave.batch.runner import sweep_plan_folders
+    from simwave.signals.atomic import sweep_note
+
+    note = sweep_note(sweep_plan_folders(plan)) if os.path.isdir(plan.output_dir) else None
+    if note:
+        click.echo(note, err=True)
     bar: dict[str, BatchProgress] = {}
 
     def progress(done: int, total: int, failed: int) -> None:

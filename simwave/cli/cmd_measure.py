@@ -24,16 +24,9 @@ def _numbers(text: str, what: str) -> list[float]:
 
 
 def _write_json(path: str, text: str, protect: list[str]) -> None:
-    from simwave.signals.atomic import AtomicTarget
+    from simwave.signals.atomic import write_text_atomic
 
-    target = AtomicTarget(path, protect=protect)
-    try:
-        with open(target.tmp, "w", encoding="utf-8") as fh:
-            fh.write(text + "\n")
-        target.commit()
-    except BaseException:
-        target.abort()
-        raise
+    write_text_atomic(path, text + "\n", protect=protect)
 
 
 @main.command("measure")

@@ -10,6 +10,8 @@ import warnings
 
 import click
 
+from simwave.errors import SimwaveError
+
 from simwave.cli.app import main
 from simwave.cli.input_options import input_options, read_options
 from simwave.cli.model_options import method_options, model_kwargs
@@ -225,6 +227,7 @@ def run_command(source, system_spec, output, method, prewarp, match_frequency, i
     """
     from simwave.model.parse import parse_number
     from simwave.run import RunJob, execute
+    from simwave.cli.app import sweep_output_folders
     from simwave.signals.atomic import guard_outputs
 
     # Every path this command writes, checked together before any work: none is an
@@ -232,6 +235,7 @@ def run_command(source, system_spec, output, method, prewarp, match_frequency, i
     guard_outputs({"-o/--output": output, "--metrics": metrics, "--plot": plot_path},
                   {"the input": source if os.path.exists(source) else None,
                    "the system file": system_spec.file})
+    sweep_output_folders([output, metrics, plot_path])
     system = resolve_system(system_spec)
     reader = read_options(reader_kwargs)
     if plot_path is not None:
@@ -283,9 +287,15 @@ def run_command(source, system_spec, output, method, prewarp, match_frequency, i
         from simwave.plots import plot_run
         from simwave.run import input_read_options, output_read_options
 
-        plot_run(output, source, result.get("metrics"), plot_path,
-                 read_options=output_read_options(job, len(result["run"]["channels"])),
-                 input_read_options=input_read_options(job))
+        try:
+            plot_run(output, source, result.get("metrics"), plot_path,
+                     read_options=output_read_options(job, len(result["run"]["channels"])),
+                     input_read_options=input_read_options(job))
+        except SimwaveError as exc:  # same rule as the metrics step: the output stands
+            caught_plot = f"{plot_path}: plot not written: {exc} (the output {output} is complete)"
+            result["plot_error"] = str(exc)
+            plot_path = None
+            click.echo(f"Warning: {caught_plot}", err=True)
     if report_path is not None:
         from simwave.report import write_run_report
 
@@ -294,7 +304,7 @@ def run_command(source, system_spec, output, method, prewarp, match_frequency, i
         click.echo(json.dumps(result, indent=2, default=str))
     else:
         click.echo(_format_summary(result))
-        if metrics:
+        if metrics and result.get("metrics") is not None:
             click.echo(f"wrote      {metrics}")
         if plot_path:
             click.echo(f"wrote      {plot_path}")

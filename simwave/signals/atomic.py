@@ -9,11 +9,29 @@ deletes the temporary file and leaves any existing target untouched.
 
 from __future__ import annotations
 
+import contextlib
+import errno
+import io
 import os
+import re
+import stat
 import tempfile
-from typing import Iterable, Mapping
+import time
+from typing import Iterable, Iterator, Mapping
 
 from simwave.errors import WaveformError
+
+#: Names of this tool's own temporary files: ``.NAME.XXXXXXXX.partEXT`` beside a target
+#: (:class:`AtomicTarget`) and ``.spool.XXXXXXXX.f64`` (the audio normalizing spool). The
+#: eight characters are those of :func:`tempfile.mkstemp` (letters, digits, underscore).
+TEMP_NAME = re.compile(r"^\.(?:.+\.[a-z0-9_]{8}\.part(?:\.[^./]+)?|spool\.[a-z0-9_]{8}\.f64)$")
+#: A temporary file no process holds open is stale once unchanged this long (seconds). The
+#: tool holds its temporary files open from creation to rename, so the age only guards
+#: against writers this process cannot see (another user's processes, no /proc).
+STALE_AFTER_S = 60.0
+#: Without a way to see which files other processes hold (no readable /proc), only
+#: temporary files unchanged this long are removed.
+STALE_BLIND_AFTER_S = 24 * 3600.0
 
 
 def _same_path(a: str, b: str) -> bool:
@@ -111,12 +129,19 @@ class AtomicTarget:
         base = os.path.basename(self.path)
         _, ext = os.path.splitext(base)
         try:
-            fd, self.tmp = tempfile.mkstemp(prefix=f".{base}.", suffix=f".part{ext}", dir=directory)
+            self._fd, self.tmp = tempfile.mkstemp(prefix=f".{base}.", suffix=f".part{ext}",
+                                                  dir=directory)
         except OSError as exc:
             raise WaveformError(
                 f"{self.path}: cannot create a file there ({exc.strerror})") from None
-        os.close(fd)
+        # The descriptor stays open until the rename or the removal: a temporary file held
+        # open by a live process is never taken for a stale one (see sweep_stale_parts).
         self.done = False
+
+    def _release(self) -> None:
+        fd, self._fd = self._fd, None
+        if fd is not None:
+            os.close(fd)
 
     def commit(self) -> None:
         """Give the temporary file the target's permissions and rename it over the target."""
@@ -133,8 +158,9 @@ class AtomicTarget:
             os.replace(self.tmp, self.path)
         except OSError as exc:
             self.abort()
-            raise WaveformError(f"{self.path}: cannot finish writing ({exc.strerror})") from None
+            raise write_failure(self.path, exc) from None
         self.done = True
+        self._release()
 
     def abort(self) -> None:
         """Delete the temporary file; the target is left as it was."""
@@ -145,3 +171,250 @@ class AtomicTarget:
             os.unlink(self.tmp)
         except FileNotFoundError:
             pass
+        finally:
+            self._release()
+
+
+# --------------------------------------------------------------------- write failures
+#: errno values of a full disk, a quota, or the process's file size limit (RLIMIT_FSIZE).
+_FULL = {errno.ENOSPC, errno.EFBIG, getattr(errno, "EDQUOT", errno.ENOSPC)}
+_FULL_TEXT = ("no space left", "file too large", "quota exceeded", "errno = 27", "errno = 28")
+
+
+def _room_exhausted(path: str) -> bool:
+    """True when the folder of ``path`` is (nearly) full or the file reached RLIMIT_FSIZE."""
+    try:
+        import resource
+
+        soft, _ = resource.getrlimit(resource.RLIMIT_FSIZE)
+        if soft != resource.RLIM_INFINITY:
+            return True  # a finite limit was set on this process: the likely cause
+    except (ImportError, OSError, ValueError):
+        pass
+    try:
+        st = os.statvfs(os.path.dirname(os.path.abspath(path)))
+        return st.f_bavail * st.f_frsize < (1 << 20)
+    except (OSError, AttributeError):
+        return False
+
+
+def is_disk_full(exc: BaseException, path: str | None = None) -> bool:
+    """Whether a failed write means: disk full, quota, or the process's file size limit.
+
+    libsndfile reports only "System error" for a failed write; for it the folder's
+    free space and the process's file size limit decide.
+    """
+    if isinstance(exc, OSError) and exc.errno in _FULL:
+        return True
+    text = str(exc).lower()
+    if any(t in text for t in _FULL_TEXT):
+        return True
+    return path is not None and "system error" in text and _room_exhausted(path)
+
+
+def write_failure(path: str, exc: BaseException) -> WaveformError:
+    """The one-line error for a write that failed at the operating-system level."""
+    if is_disk_full(exc, path):
+        return WaveformError(f"{path}: cannot write: disk full / file size limit reached "
+                             f"(nothing was left under this name)")
+    reason = getattr(exc, "strerror", None) or str(exc).splitlines()[0] or type(exc).__name__
+    return WaveformError(f"{path}: cannot write ({reason}; nothing was left under this name)")
+
+
+def is_write_error(exc: BaseException) -> bool:
+    """An operating-system level failure of a write: OSError (Python, h5py) or
+    libsndfile's error (soundfile.LibsndfileError, not imported here)."""
+    return isinstance(exc, OSError) or any(
+        c.__name__ == "LibsndfileError" for c in type(exc).__mro__)
+
+
+@contextlib.contextmanager
+def atomic_file(path: str, protect: Iterable[str] | None = None) -> Iterator[str]:
+    """Yield a temporary path beside ``path``; rename it over ``path`` on a clean exit.
+
+    On any error the temporary file is removed and the target left as it was; an
+    operating-system write error (disk full, file size limit, ...) becomes one
+    :class:`WaveformError` line naming the target.
+    """
+    target = AtomicTarget(path, protect)
+    try:
+        yield target.tmp
+        target.commit()
+    except BaseException as exc:
+        target.abort()
+        if is_write_error(exc):
+            raise write_failure(target.path, exc) from None
+        raise
+
+
+def write_text_atomic(path: str, text: str, protect: Iterable[str] | None = None) -> None:
+    """Write ``text`` (UTF-8) to ``path`` atomically (see :func:`atomic_file`)."""
+    with atomic_file(path, protect) as tmp, open(tmp, "w", encoding="utf-8", newline="") as fh:
+        fh.write(text)
+
+
+class GuardedFile(io.RawIOBase):
+    """A binary file that remembers its first failed write and discards the rest.
+
+    HDF5 cannot be closed cleanly after a write failed under it (closing retries the
+    write, and the library crashes at exit when that fails too). Through this file
+    object (h5py's ``fileobj`` driver) a failed write is recorded in :attr:`failure`,
+    later writes succeed without effect so the library closes normally, and the
+    caller raises the recorded error and deletes the file.
+    """
+
+    def __init__(self, path: str, mode: str = "w+b") -> None:
+        super().__init__()
+        self._fh = open(path, mode, buffering=0)  # noqa: SIM115 - closed by close()
+        self.failure: OSError | None = None
+
+    def readable(self) -> bool:
+        return True
+
+    def writable(self) -> bool:
+        return True
+
+    def seekable(self) -> bool:
+        return True
+
+    def seek(self, pos: int, whence: int = 0) -> int:
+        return self._fh.seek(pos, whence)
+
+    def tell(self) -> int:
+        return self._fh.tell()
+
+    def readinto(self, b) -> int:
+        return self._fh.readinto(b)
+
+    def write(self, b) -> int:
+        view = memoryview(b).cast("B")
+        n = len(view)
+        start = self._fh.tell()
+        if self.failure is None:
+            try:
+                done = 0
+                while done < n:  # an unbuffered write may be short just below a limit
+                    k = self._fh.write(view[done:])
+                    if not k:
+                        raise OSError(errno.EIO, "write made no progress")
+                    done += k
+                return n
+            except OSError as exc:
+                self.failure = exc
+        self._fh.seek(start + n)  # as if written: the library's offsets stay right
+        return n
+
+    def truncate(self, size: int | None = None) -> int:
+        if self.failure is None:
+            try:
+                return self._fh.truncate(size)
+            except OSError as exc:
+                self.failure = exc
+        return self._fh.tell() if size is None else size
+
+    def flush(self) -> None:
+        pass  # unbuffered
+
+    def close(self) -> None:
+        if not self._fh.closed:
+            self._fh.close()
+        super().close()
+
+
+# --------------------------------------------------------------------- stale temporaries
+def _open_elsewhere(paths: set[str]) -> tuple[set[str], bool]:
+    """Which of ``paths`` a live process holds open (Linux /proc); and whether all were seen."""
+    held: set[str] = set()
+    complete = os.path.isdir("/proc/self/fd")
+    if not complete:
+        return held, False
+    for pid in os.listdir("/proc"):
+        if not pid.isdigit():
+            continue
+        fd_dir = f"/proc/{pid}/fd"
+        try:
+            fds = os.listdir(fd_dir)
+        except FileNotFoundError:
+            continue  # the process ended meanwhile
+        except PermissionError:
+            complete = False  # another user's process: cannot see its files
+            continue
+        for fd in fds:
+            try:
+                link = os.readlink(f"{fd_dir}/{fd}")
+            except OSError:
+                continue
+            if link in paths:
+                held.add(link)
+    return held, complete
+
+
+def sweep_stale_parts(directories: Iterable[str], *, targets: Iterable[str] | None = None,
+                      min_age_s: float | None = None, now: float | None = None) -> list[str]:
+    """Remove this tool's temporary files left in ``directories`` by runs that were killed.
+
+    Only names of the tool's own pattern (:data:`TEMP_NAME`) are considered, only
+    regular files (never a link), and only when no live process holds the file open
+    (``/proc/PID/fd``; the tool keeps its temporaries open from creation to rename)
+    and it has not changed for ``min_age_s`` seconds (default :data:`STALE_AFTER_S`).
+    When some processes' open files cannot be seen (another user's, no /proc),
+    only files unchanged for :data:`STALE_BLIND_AFTER_S` are removed.
+
+    Parameters
+    ----------
+    directories : iterable of str
+        Folders to look in (not recursively).
+    targets : iterable of str, optional
+        Only the temporaries of these target file names (``.NAME.XXXXXXXX.partEXT``).
+    min_age_s : float, optional
+        Age below which a file not held open is still left alone.
+
+    Returns
+    -------
+    list of str
+        The files removed.
+    """
+    now = time.time() if now is None else now
+    prefixes = None if targets is None else tuple(f".{os.path.basename(t)}." for t in targets)
+    found: dict[str, float] = {}
+    for d in {os.path.realpath(d or ".") for d in directories}:
+        try:
+            names = os.listdir(d)
+        except OSError:
+            continue
+        for name in names:
+            if not TEMP_NAME.match(name) or (prefixes is not None
+                                             and not name.startswith(prefixes)):
+                continue
+            p = os.path.join(d, name)
+            try:
+                st = os.lstat(p)
+            except OSError:
+                continue
+            if stat.S_ISREG(st.st_mode):
+                found[p] = now - st.st_mtime
+    if not found:
+        return []
+    held, complete = _open_elsewhere(set(found))
+    limit = (STALE_AFTER_S if min_age_s is None else min_age_s) if complete \
+        else STALE_BLIND_AFTER_S
+    removed = []
+    for p, age in sorted(found.items()):
+        if p in held or age < limit:
+            continue
+        try:
+            os.unlink(p)
+            removed.append(p)
+        except OSError:
+            pass
+    return removed
+
+
+def sweep_note(removed: list[str]) -> str | None:
+    """The line telling the user which stale temporary files were removed (or None)."""
+    if not removed:
+        return None
+    names = ", ".join(os.path.basename(p) for p in removed[:3])
+    more = f" and {len(removed) - 3} more" if len(removed) > 3 else ""
+    return (f"Note: removed {len(removed)} temporary file(s) left by an interrupted simwave "
+            f"run in {os.path.dirname(removed[0]) or '.'}: {names}{more}")

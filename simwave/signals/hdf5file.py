@@ -37,6 +37,7 @@ import numpy as np
 
 from simwave import __version__
 from simwave.errors import WaveformError
+from simwave.signals.atomic import GuardedFile
 from simwave.signals.common import (INTERVAL_ATTRS, RATE_ATTRS, T0_ATTRS, WriteResult, dumps,
                                     snap_rate, to_jsonable)
 from simwave.signals.stream import JITTER_TOLERANCE, Rows, TimeAxis, sample_places
@@ -312,15 +313,21 @@ class Hdf5Sink:
             compression = None
         if dtype not in ("float64", "float32"):
             raise WaveformError(f"dtype must be 'float64' or 'float32', got {dtype!r}")
+        # Through a GuardedFile: a failed write (disk full, file size limit) is recorded and
+        # the rest discarded, so HDF5 still closes cleanly (closing after a failed write
+        # under the default driver retries it and crashes the process at exit).
         if mode == "add" and original is not None:
             shutil.copyfile(original, tmp)
+            self.file = GuardedFile(tmp, "r+b")
             try:
-                self.f = h5py.File(tmp, "r+")
+                self.f = h5py.File(self.file, "r+")
             except OSError as exc:
+                self.file.close()
                 raise WaveformError(f"{self.where}: cannot add to it: not an HDF5 file ({exc})") \
                     from None
         else:
-            self.f = h5py.File(tmp, "w")
+            self.file = GuardedFile(tmp, "w+b")
+            self.f = h5py.File(self.file, "w")
         self.datasets: dict[str, h5py.Dataset] = {}
         self.buffers: dict[str, list[np.ndarray]] = {}
         self.main = next(iter(streams))
@@ -333,8 +340,14 @@ class Hdf5Sink:
             for name, spec in streams.items():
                 self._create(name, spec, rate, t0, compression, dtype)
         except BaseException:
-            self.f.close()
+            self.abort()
             raise
+        self._check_io()
+
+    def _check_io(self) -> None:
+        """Raise the first write failure under the file (it discards what follows)."""
+        if self.file.failure is not None:
+            raise self.file.failure
 
     def _create(self, name: str, spec: dict[str, Any], rate: float, t0: float,
                 compression: str | None, dtype: str) -> None:
@@ -393,6 +406,7 @@ class Hdf5Sink:
         n0 = ds.shape[0]
         ds.resize(n0 + data.shape[0], axis=0)
         ds[n0:] = data
+        self._check_io()
 
     def close(self) -> WriteResult:
         for name in self.datasets:
@@ -402,10 +416,16 @@ class Hdf5Sink:
         nch = int(main.shape[1])
         dtype = str(main.dtype)
         self.f.close()
+        self.file.close()
+        self._check_io()
         return WriteResult(self.where, "HDF5", dtype, self.count, nch, self.peak, datasets=names)
 
     def abort(self) -> None:
         try:
-            self.f.close()
+            f = getattr(self, "f", None)
+            if f is not None:
+                f.close()
         except Exception:  # noqa: BLE001 - already failing; the temp file is deleted next
             pass
+        finally:
+            self.file.close()

@@ -46,7 +46,7 @@ from typing import Any, Iterator, Mapping, Sequence
 import numpy as np
 
 from simwave.errors import WaveformError
-from simwave.signals.atomic import AtomicTarget
+from simwave.signals.atomic import AtomicTarget, is_write_error, write_failure
 from simwave.signals.common import WriteResult, check_readable, dbfs
 from simwave.signals.formats import resolve_format
 from simwave.signals.quantity import parse_quantity
@@ -552,8 +552,10 @@ class WaveformWriter:
                 self.sink = Hdf5Sink(self.target.tmp, streams, r, t0, mode=mode,
                                      original=original, compression=compression, dtype=dtype,
                                      target=path)
-        except BaseException:
+        except BaseException as exc:
             self.target.abort()
+            if is_write_error(exc):
+                raise write_failure(path, exc) from None
             raise
         self.result: WriteResult | None = None
         self._closed = False
@@ -599,8 +601,10 @@ class WaveformWriter:
                 if parts:
                     data = np.hstack([data] + list(parts.values()))
                 self.sink.write(data)
-        except BaseException:
+        except BaseException as exc:
             self.abort()
+            if is_write_error(exc):
+                raise write_failure(self.path, exc) from None
             raise
 
     def close(self) -> WriteResult:
@@ -610,8 +614,10 @@ class WaveformWriter:
         try:
             result = self.sink.close()
             self.target.commit()
-        except BaseException:
+        except BaseException as exc:
             self.abort()
+            if is_write_error(exc):
+                raise write_failure(self.path, exc) from None
             raise
         self._closed = True
         result.path = self.path
@@ -627,6 +633,8 @@ class WaveformWriter:
         self._closed = True
         try:
             self.sink.abort()
+        except Exception:  # noqa: BLE001, S110 - the failure being handled is the one to report
+            pass
         finally:
             self.target.abort()
 
