@@ -25,6 +25,9 @@ import numpy as np
 
 import simwave
 from simwave.errors import SimwaveError
+from simwave.guards import (
+    measuring_failures, model_failures, null_reasons_note, with_null_reasons,
+)
 from simwave.model.system import System
 from simwave.oversample import Decimator, Upsampler
 from simwave.pipeline import WriteBehind, WriteNow, read_ahead
@@ -415,12 +418,13 @@ def simulate(
     if block_size < 1:
         raise SimwaveError(f"block size must be >= 1, got {block_size}")
     model_rate = src.rate * factor
-    prep = _prepared_model(sys_, model_rate, method, prewarp_hz, delay_s, match_hz)
-    model, check = prep.model, copy.deepcopy(prep.check)
-    # The full report (with the suggested-rate search) costs tens of milliseconds:
-    # made for file runs, whose summary prints it, and whenever the model is poor.
-    full = output is not None or check["poor"]
-    accuracy = prep.full_accuracy() if full else None
+    with model_failures(sys_, model_rate, method):
+        prep = _prepared_model(sys_, model_rate, method, prewarp_hz, delay_s, match_hz)
+        model, check = prep.model, copy.deepcopy(prep.check)
+        # The full report (with the suggested-rate search) costs tens of milliseconds:
+        # made for file runs, whose summary prints it, and whenever the model is poor.
+        full = output is not None or check["poor"]
+        accuracy = prep.full_accuracy() if full else None
     caught: list[str] = list(prep.warnings) + (list(prep.accuracy_warnings) if full else [])
     for text in prep.model_warnings:
         if text not in caught:
@@ -482,9 +486,10 @@ def simulate(
             if block.shape[0] == 0:
                 continue
             if state is None:
-                state = model.initial_state(
-                    block[0], initial=initial, n_channels=block.shape[1], output_ics=output_ics
-                )
+                with model_failures(sys_, model_rate, method):
+                    state = model.initial_state(
+                        block[0], initial=initial, n_channels=block.shape[1],
+                        output_ics=output_ics)
             n_in += block.shape[0]
             # input peak per channel (max and -min: no temporary for abs)
             in_peak = np.maximum(in_peak, np.maximum(block.max(axis=0), -block.min(axis=0)))
@@ -752,11 +757,12 @@ def measure_run(job: RunJob, system: System, n_channels: int):
     opts = dict(job.measure_options)
     # the at-rest convention holds only for runs that start at rest
     opts.setdefault("rest_before_record", job.initial == "rest" and job.initial_output is None)
-    return measure(
-        job.output, reference=job.source, system=system,
-        read_options=output_read_options(job, n_channels),
-        reference_read_options=input_read_options(job), **opts,
-    )
+    with measuring_failures(job.output):
+        return measure(
+            job.output, reference=job.source, system=system,
+            read_options=output_read_options(job, n_channels),
+            reference_read_options=input_read_options(job), **opts,
+        )
 
 
 def write_json(path: str | os.PathLike, data: Any, protect: Sequence[str] = ()) -> None:
@@ -765,7 +771,11 @@ def write_json(path: str | os.PathLike, data: Any, protect: Sequence[str] = ()) 
 
     from simwave.signals.atomic import write_text_atomic
 
-    text = json.dumps(data, indent=2, allow_nan=False, default=_json_default) + "\n"
+    clean, reasons = with_null_reasons(json.loads(json.dumps(data, default=_json_default)))
+    note = null_reasons_note(reasons)
+    if note:
+        warnings.warn(f"{path}: {note}", stacklevel=2)
+    text = json.dumps(clean, indent=2, allow_nan=False) + "\n"
     write_text_atomic(os.fspath(path), text, protect=[p for p in protect if p])
 
 

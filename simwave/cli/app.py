@@ -67,19 +67,28 @@ def _raise_stopped(signum: int, frame) -> None:
     raise Stopped(signum)
 
 
-def handle_stop_signals() -> None:
+def handle_stop_signals() -> dict[int, object]:
     """Make SIGTERM and SIGHUP raise :class:`Stopped` (a KeyboardInterrupt) in this process.
 
     Every clean-up path written for Ctrl-C (atomic writers deleting their temporary
     files, batch stopping its workers) then serves these signals too. A signal that
-    was ignored when the process started (``nohup``) stays ignored.
+    was ignored when the process started (``nohup``) stays ignored. Returns the
+    handlers replaced (for :func:`restore_signals`).
     """
+    previous: dict[int, object] = {}
     if threading.current_thread() is not threading.main_thread():
-        return
+        return previous
     for name in STOP_SIGNALS:
         sig = getattr(signal, name, None)
         if sig is not None and signal.getsignal(sig) is not signal.SIG_IGN:
-            signal.signal(sig, _raise_stopped)
+            previous[sig] = signal.signal(sig, _raise_stopped)
+    return previous
+
+
+def restore_signals(previous: dict[int, object]) -> None:
+    """Put back the handlers :func:`handle_stop_signals` replaced (commands run in-process)."""
+    for sig, handler in previous.items():
+        signal.signal(sig, handler if handler is not None else signal.SIG_DFL)
 
 
 def stopped_exit_code(exc: KeyboardInterrupt) -> int:
@@ -125,7 +134,7 @@ class SimwaveGroup(click.Group):
             self.commands = saved
 
     def invoke(self, ctx: click.Context):
-        handle_stop_signals()
+        previous = handle_stop_signals()
         try:
             return super().invoke(ctx)
         except SimwaveError as exc:
@@ -135,6 +144,8 @@ class SimwaveGroup(click.Group):
             name = signal.Signals(getattr(exc, "signum", signal.SIGINT)).name
             click.echo("Interrupted." if name == "SIGINT" else f"Stopped ({name}).", err=True)
             sys.exit(stopped_exit_code(exc))
+        finally:
+            restore_signals(previous)
 
 
 @click.group(cls=SimwaveGroup, context_settings={"help_option_names": ["-h", "--help"]})

@@ -311,10 +311,14 @@ def inspect_command(system_spec, at_hz: str | None, rate: str | None, method: st
             raise SimwaveError(f"--at-hz: frequencies must be >= 0 Hz, got {bad[0]:g}")
     report = build_report(system, at_hz=freqs)
     if rate is not None:
-        with warnings.catch_warnings(record=True) as caught:
+        from simwave.guards import check_rate, model_failures
+
+        rate_hz = check_rate(parse_number(rate, "--rate"), "--rate")
+        with warnings.catch_warnings(record=True) as caught, \
+                model_failures(system, rate_hz, method or "ramp-invariant"):
             warnings.simplefilter("always")
             report["discrete"] = discrete_section(
-                system, parse_number(rate, "--rate"), method,
+                system, rate_hz, method,
                 **model_kwargs(prewarp, match_frequency),
                 band_hz=parse_number_list(band, "--band-hz") if band else None,
                 limit_db=parse_number(error_limit, "--error-limit") if error_limit else 0.1,
@@ -325,7 +329,15 @@ def inspect_command(system_spec, at_hz: str | None, rate: str | None, method: st
         raise SimwaveError(
             "--method, --prewarp, --match-hz, --band-hz and --error-limit need --rate"
         )
-    click.echo(json.dumps(report, indent=2) if as_json else format_report(report))
+    if as_json:
+        from simwave.guards import null_reasons_note, with_null_reasons
+
+        report, reasons = with_null_reasons(report)
+        note = null_reasons_note(reasons)
+        if note:
+            click.echo(f"Warning: {note}", err=True)
+    click.echo(json.dumps(report, indent=2, allow_nan=False) if as_json
+               else format_report(report))
     if plot_path is not None:
         _plot(system, plot_path, rate, method, prewarp, match_frequency)
 

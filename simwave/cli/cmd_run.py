@@ -301,7 +301,13 @@ def run_command(source, system_spec, output, method, prewarp, match_frequency, i
 
         write_run_report(result, job, report_path)
     if as_json:
-        click.echo(json.dumps(result, indent=2, default=str))
+        from simwave.guards import null_reasons_note, with_null_reasons
+
+        clean, reasons = with_null_reasons(json.loads(json.dumps(result, default=str)))
+        note = null_reasons_note(reasons)
+        if note:
+            click.echo(f"Warning: {note}", err=True)
+        click.echo(json.dumps(clean, indent=2, allow_nan=False))
     else:
         click.echo(_format_summary(result))
         if metrics and result.get("metrics") is not None:

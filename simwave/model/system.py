@@ -818,8 +818,13 @@ class System:
         (``prewarp_hz``, ``delay_s``, ``match_hz``); ``ramp-invariant`` by default.
         """
         from simwave.discrete import discretize
+        from simwave.guards import check_delay_line, check_rate, model_failures
 
-        return discretize(self, rate_hz, method, **options)
+        where = f"H(s) = {self.text}" if self.text else "the system"
+        rate = check_rate(rate_hz, where)
+        check_delay_line(self.delay_s + float(options.get("delay_s") or 0.0), rate, where)
+        with model_failures(self, rate, method):
+            return discretize(self, rate, method, **options)
 
     def __repr__(self) -> str:
         label = self.text or (
