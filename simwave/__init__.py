@@ -15,11 +15,19 @@ does not load numpy and scipy until they are needed.
 
 from __future__ import annotations
 
+import os as _os
 from typing import TYPE_CHECKING
 
 from simwave.lazy import lazy_exports
 
 __version__ = "0.1.0"
+
+# HDF5 datasets with external raw storage name their raw files relative to the working
+# directory, by the library's default. A reader of a file expects them beside the file:
+# "${ORIGIN}" is HDF5's name for the file's own folder (HDF5 docs, H5Pset_efile_prefix;
+# the HDF5_EXTFILE_PREFIX variable is read when the library starts, so it is set before
+# h5py is first imported). A value the user set is kept.
+_os.environ.setdefault("HDF5_EXTFILE_PREFIX", "${ORIGIN}")
 
 __all__ = [
     "System", "Waveform", "SimwaveError", "__version__",

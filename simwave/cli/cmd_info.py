@@ -73,7 +73,13 @@ def info(file, no_stats, as_json, **kwargs):
     opts = read_options(kwargs)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        result = file_info(file, stats=not no_stats, **opts)
+        from simwave.cli.cmd_run import _Progress
+
+        progress = _Progress("reading")
+        try:
+            result = file_info(file, stats=not no_stats, progress=progress, **opts)
+        finally:
+            progress.close()
     d = result.to_dict()
     for w in caught:
         if str(w.message) not in d["notes"]:

@@ -65,7 +65,8 @@ def audio_level_lines(run: dict) -> tuple[str | None, str | None]:
 class _Progress:
     """A progress bar on stderr, only on a terminal and only once a run passes ~1 s."""
 
-    def __init__(self) -> None:
+    def __init__(self, label: str = "simulating") -> None:
+        self.label = label
         self.enabled = sys.stderr.isatty()
         self.started = time.monotonic()
         self.bar = None
@@ -77,7 +78,7 @@ class _Progress:
         if self.bar is None:
             if time.monotonic() - self.started < 1.0:
                 return
-            self.bar = click.progressbar(length=total, label="simulating", file=sys.stderr)
+            self.bar = click.progressbar(length=total, label=self.label, file=sys.stderr)
             self.bar.__enter__()
         self.bar.update(done - self.shown)
         self.shown = done

@@ -157,6 +157,7 @@ class AudioSource:
             self.units = [units] * nch
         self.time_axis = None
         self.notes: list[str] = []
+        self._started = False
 
     def _metadata(self) -> dict[str, Any]:
         try:
@@ -174,7 +175,15 @@ class AudioSource:
 
     def rows(self, select: list[int]) -> Iterator[Rows]:
         got = 0
-        self.f.seek(0)
+        # Some codecs cannot seek (GSM 6.10, G.721, G.723, NMS ADPCM: libsndfile's "Seek
+        # attempted on unseekable file type"): a second pass reopens the file instead.
+        if self._started:
+            self.f.close()
+            try:
+                self.f = sf.SoundFile(self.path)
+            except (sf.LibsndfileError, RuntimeError, TypeError) as exc:
+                raise _open_error(self.path, exc) from None
+        self._started = True
         while True:
             try:
                 data = self.f.read(READ_CHUNK, dtype="float64", always_2d=True)

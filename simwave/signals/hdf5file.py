@@ -28,6 +28,7 @@ Attributes written: ``rate``, ``t0``, ``channels``, ``units``, ``attrs_json``,
 from __future__ import annotations
 
 import json
+import os
 import math
 import shutil
 from typing import Any, Iterator
@@ -58,6 +59,31 @@ def _plain(value: Any) -> Any:
     if isinstance(value, np.generic):
         return value.item()
     return value
+
+
+def _attr_number(value: Any, what: str, unit: str, where: str) -> float:
+    """One finite number > 0 from an attribute (text holding a number is accepted)."""
+    shown = repr(value) if not isinstance(value, str) else f"text {value!r}"
+    if isinstance(value, list):
+        if len(value) != 1:
+            raise WaveformError(f"{where}: the {what} attribute holds {len(value)} values; "
+                                f"one number in {unit} is expected")
+        value = value[0]
+    if isinstance(value, (bool, np.bool_)):
+        raise WaveformError(f"{where}: the {what} attribute is a true/false value ({value}); "
+                            f"a number in {unit} is expected")
+    if isinstance(value, (complex, np.complexfloating)):
+        raise WaveformError(f"{where}: the {what} attribute is complex ({value}); a real "
+                            f"number in {unit} is expected")
+    try:
+        number = float(value.strip()) if isinstance(value, str) else float(value)
+    except (TypeError, ValueError):
+        raise WaveformError(f"{where}: the {what} attribute is {shown}; a number in {unit} "
+                            f"is expected") from None
+    if not (math.isfinite(number) and number > 0):
+        raise WaveformError(f"{where}: the {what} attribute is {number:g} {unit}; it must be "
+                            f"finite and > 0")
+    return number
 
 
 def _find_attr(groups: list[Any], names: tuple[str, ...]) -> Any:
@@ -123,6 +149,8 @@ class Hdf5Source:
         self.dataset = ds.name
         where = f"{path}, dataset {ds.name}"
         self.where = where
+        if ds.external:
+            ds = self._external(ds, where)
         if not _is_numeric(ds):
             raise WaveformError(
                 f"{where}: not numeric (type {ds.dtype}); a signal must hold numbers")
@@ -165,14 +193,12 @@ class Hdf5Source:
         self.time_ds = None
         self.notes: list[str] = []
         file_rate = _find_attr(groups, RATE_ATTRS)
-        if file_rate is None:
+        if file_rate is not None:
+            file_rate = _attr_number(file_rate, "rate", "Hz", where)
+        else:
             interval = _find_attr(groups, INTERVAL_ATTRS)
             if interval is not None:
-                file_rate = 1.0 / float(interval) if float(interval) > 0 else float("nan")
-        if file_rate is not None:
-            file_rate = float(file_rate)
-            if not file_rate > 0 or not np.isfinite(file_rate):
-                raise WaveformError(f"{where}: rate attribute is {file_rate}; it must be > 0")
+                file_rate = 1.0 / _attr_number(interval, "sample interval", "s", where)
         if file_rate is None:
             file_rate = self._time_dataset(ds, rate is None or resample)
         self.file_rate = file_rate
@@ -191,6 +217,21 @@ class Hdf5Source:
         if self.time_ds is not None:
             self.time_axis = TimeAxis(where, 1.0 / self.rate, self.t0, resample=resample,
                                       check=rate is None or resample)
+
+    def _external(self, ds: Any, where: str) -> Any:
+        """Check that the external raw files of a dataset exist beside this file.
+
+        simwave sets ``HDF5_EXTFILE_PREFIX=${ORIGIN}`` (unless set) before h5py starts,
+        so HDF5 looks for them in the file's own folder (see ``simwave/__init__.py``).
+        """
+        folder = os.path.dirname(os.path.abspath(self.path))
+        for name, _offset, _size in ds.external:
+            text = name.decode() if isinstance(name, bytes) else str(name)
+            full = text if os.path.isabs(text) else os.path.join(folder, text)
+            if not os.path.isfile(full):
+                raise WaveformError(f"{where}: its samples are stored in the external file "
+                                    f"{text!r}, not found at {full}")
+        return ds
 
     def _choose(self, dataset: str | None) -> h5py.Dataset:
         f = self.f
@@ -261,7 +302,11 @@ class Hdf5Source:
         if ds.chunks:
             step = max(ds.chunks[0], READ_ROWS // ds.chunks[0] * ds.chunks[0])
         for i in range(0, self.n_samples, step):
-            block = np.asarray(ds[i:i + step], dtype=np.float64)
+            try:
+                block = np.asarray(ds[i:i + step], dtype=np.float64)
+            except OSError as exc:
+                raise WaveformError(f"{self.where}, sample {i}: cannot read the samples "
+                                    f"({str(exc).splitlines()[0]})") from None
             if block.ndim == 1:
                 block = block[:, np.newaxis]
             t = None

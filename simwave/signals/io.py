@@ -41,7 +41,7 @@ import os
 import warnings
 from contextlib import closing
 from dataclasses import dataclass, field
-from typing import Any, Iterator, Mapping, Sequence
+from typing import Any, Callable, Iterator, Mapping, Sequence
 
 import numpy as np
 
@@ -382,7 +382,8 @@ class WaveformInfo:
         return to_jsonable(out)
 
 
-def info(path: Any, *, stats: bool = False, **opts: Any) -> WaveformInfo:
+def info(path: Any, *, stats: bool = False,
+         progress: Callable[[int, int | None], None] | None = None, **opts: Any) -> WaveformInfo:
     """Describe a waveform file without loading its samples.
 
     Audio and HDF5 answer from their headers. CSV needs one streaming pass
@@ -394,6 +395,9 @@ def info(path: Any, *, stats: bool = False, **opts: Any) -> WaveformInfo:
     path : str or path-like
     stats : bool
         Also compute per-channel statistics (one pass, constant memory).
+    progress : callable, optional
+        ``progress(samples_done, samples_total_or_None)`` during a pass over the
+        samples (a pass can be long; Ctrl-C or SIGTERM stops it).
     **opts
         Reader options as for :func:`read`.
 
@@ -403,18 +407,27 @@ def info(path: Any, *, stats: bool = False, **opts: Any) -> WaveformInfo:
     """
     spec = _spec_source(path)
     if spec is not None:
-        from simwave.signals.generate import generate_blocks
+        from simwave.signals.generate import _n_samples, generate_blocks
 
         rate, duration = _spec_rate(spec, opts)
+        total = _n_samples(rate, duration)[2]
+        if total < 1:
+            raise WaveformError(f"{path}: the signal holds no samples (duration x rate < 0.5)")
         acc = None
         n = 0
         first = None
-        for b in generate_blocks(spec[0], rate, duration, BLOCK, **spec[3]):
+        # Without statistics only the first sample is made: the length is known from the text.
+        size = BLOCK if stats else 1
+        for b in generate_blocks(spec[0], rate, duration, size, **spec[3]):
             first = first or b
             n += b.n_samples
-            if stats:
-                acc = acc or ChannelStats(b.n_channels)
-                acc.add(b.data)
+            if not stats:
+                n = total
+                break
+            acc = acc or ChannelStats(b.n_channels)
+            acc.add(b.data)
+            if progress is not None:
+                progress(n, total)
         return WaveformInfo(path, "generated", spec[0], rate, n, first.n_channels,
                             first.channels, first.units, 0.0, n / rate, first.attrs,
                             stats=acc.result() if acc else None)
@@ -423,6 +436,13 @@ def info(path: Any, *, stats: bool = False, **opts: Any) -> WaveformInfo:
         src = pipe.src
         n = src.n_samples
         acc = ChannelStats(len(pipe.sel)) if stats else None
+        notes_extra: list[str] = []
+        sparse = _sparse_hdf5(src, pipe)
+        if sparse is not None:
+            notes_extra.append(sparse)
+            if acc is not None:
+                _sparse_stats(src, pipe.sel, acc, progress)
+                stats = False  # done from the stored chunks and the fill value
         if stats or n is None or src.time_axis is not None:
             n = 0
             with warnings.catch_warnings():
@@ -431,7 +451,9 @@ def info(path: Any, *, stats: bool = False, **opts: Any) -> WaveformInfo:
                     n += arr.shape[0]
                     if acc is not None:
                         acc.add(arr)
-        notes = list(src.notes)
+                    if progress is not None:
+                        progress(n, src.n_samples)
+        notes = list(src.notes) + notes_extra
         for k, v in pipe.counts().items():
             notes.append(f"{k.replace('_', ' ')}: {v}")
         result = acc.result() if acc else None
@@ -445,6 +467,47 @@ def info(path: Any, *, stats: bool = False, **opts: Any) -> WaveformInfo:
             pipe.units, src.t0, n / src.rate, pipe.attrs(), getattr(src, "dataset", None),
             result, notes,
         )
+
+
+def _sparse_hdf5(src: Any, pipe: Any) -> str | None:
+    """A note when an HDF5 dataset stores under 1 % of its chunks (the rest is fill value).
+
+    Such a file can be a few kilobytes and declare 1e12 samples; statistics are then
+    computed exactly from the stored chunks plus the fill value (:func:`_sparse_stats`)
+    instead of reading every sample.
+    """
+    ds = getattr(src, "ds", None)
+    if (ds is None or src.time_axis is not None or ds.chunks is None or ds.ndim != 2
+            or ds.dtype.kind != "f"):
+        return None
+    n = int(ds.shape[0])
+    stored = ds.id.get_num_chunks()
+    rows = stored * ds.chunks[0]
+    if n < 1 << 24 or rows * 100 >= n:
+        return None
+    return (f"sparse dataset: {stored} chunk(s) of {ds.chunks[0]} rows stored, the other "
+            f"{n - min(rows, n)} samples are the fill value {_fill_value(ds):g}")
+
+
+def _sparse_stats(src: Any, sel: Sequence[int], acc: ChannelStats,
+                  progress: Callable[[int, int | None], None] | None) -> None:
+    ds = src.ds
+    n, rows = int(ds.shape[0]), ds.chunks[0]
+    starts = sorted({ds.id.get_chunk_info(i).chunk_offset[0]
+                     for i in range(ds.id.get_num_chunks())})
+    covered = 0
+    for r0 in starts:
+        block = np.asarray(ds[r0:min(r0 + rows, n)], dtype=np.float64)[:, list(sel)]
+        acc.add(block)
+        covered += block.shape[0]
+        if progress is not None:
+            progress(covered, None)
+    acc.add_constant(np.full(len(sel), _fill_value(ds)), n - covered)
+
+
+def _fill_value(ds: Any) -> float:
+    value = np.asarray(ds.fillvalue).ravel()
+    return float(value[0]) if value.size else 0.0
 
 
 # ---------------------------------------------------------------- writing ----

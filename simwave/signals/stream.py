@@ -339,6 +339,17 @@ class ChannelStats:
             self._sums[c].append(float(s[c]))
             self._squares[c].append(float(q[c]))
 
+    def add_constant(self, values: np.ndarray, count: int) -> None:
+        """Account for ``count`` rows all equal to ``values`` (one per channel) at once."""
+        if count <= 0:
+            return
+        self.n += int(count)
+        np.minimum(self.min, values, out=self.min)
+        np.maximum(self.max, values, out=self.max)
+        for c, v in enumerate(np.asarray(values, dtype=np.float64)):
+            self._sums[c].append(float(v) * count)
+            self._squares[c].append(float(v) * float(v) * count)
+
     def result(self) -> list[dict[str, float]]:
         out = []
         for c in range(len(self._sums)):
