@@ -262,15 +262,27 @@ def _as_system(system: System | str) -> System:
     raise SimwaveError(f"system must be a System or text H(s)/ODE, got {type(system).__name__}")
 
 
-def _check_finite(block: np.ndarray, start: int, rate: float, t0: float) -> None:
+def _check_finite(block: np.ndarray, start: int, rate: float, t0: float,
+                  inp: np.ndarray | None = None) -> None:
     if np.isfinite(block).all():
         return
     bad = np.argwhere(~np.isfinite(block))
     row, col = int(bad[0, 0]), int(bad[0, 1])
     t = t0 + (start + row) / rate
+    where = f"at t = {t:.6g} s (sample {start + row}, channel {col})"
+    # Not every overflow is instability: an input near the float64 limit (1.8e308, IEEE
+    # Std 754 binary64) times a gain above 1 overflows in a stable system too.
+    peak = float(np.max(np.abs(inp))) if inp is not None and inp.size else 0.0
+    if inp is not None and not np.isfinite(inp).all():
+        cause = "the input itself holds NaN or infinite values"
+    elif peak > 1e300:
+        cause = (f"the input reaches {peak:.4g}, near the largest float64 value (1.8e308), and "
+                 f"the output beyond it cannot be represented; scale the input down")
+    else:
+        cause = "the system or its discrete model is unstable"
+    verb = "diverged to" if cause.startswith("the system") else "became"
     raise DivergenceError(
-        f"output diverged to {block[row, col]} at t = {t:.6g} s (sample {start + row}, "
-        f"channel {col}); the system or its discrete model is unstable. "
+        f"output {verb} {block[row, col]} {where}; {cause}. "
         "Use keep_going (--keep-going) to write it anyway"
     )
 
@@ -463,6 +475,8 @@ def simulate(
 
     meter = _LevelMeter(src.n_channels)
     pieces: list[np.ndarray] = []
+    if output is not None and src.n_samples:
+        _check_room(output, src, factor, write_options, include_input)
     sink = _Sink(output, src, provenance, write_options, include_input, keep_going, meter, pieces,
                  block_size)
     state = None
@@ -615,7 +629,8 @@ class _Sink:
         if out.shape[0] == 0:
             return
         if not self.keep_going:
-            _check_finite(out, self.done, self.src.rate, self.src.t0)
+            _check_finite(out, self.done, self.src.rate, self.src.t0,
+                          inp if inp is not None and inp.shape[0] == out.shape[0] else None)
         self.meter.add(out)
         if self._behind is None:
             self.pieces.append(out)
@@ -645,6 +660,21 @@ class _Sink:
             pass
         self._writer.abort()
         self._writer = None
+
+
+def _check_room(output, src: Source, factor: int, write_options, include_input: bool) -> None:
+    """Fail at once when the output cannot fit the disk or the file size limit."""
+    from simwave.signals.atomic import MIN_BYTES_PER_VALUE, check_room
+    from simwave.signals.formats import resolve_format
+
+    opts = write_options or {}
+    family, _ = resolve_format(os.fspath(output), opts.get("format"))
+    key = "csv" if family == "csv" else (opts.get("subtype") or "FLOAT") if family == "audio" \
+        else None
+    if family == "audio" and os.fspath(output).lower().endswith((".flac", ".ogg", ".mp3")):
+        key = None  # compressed
+    columns = src.n_channels * (2 if include_input else 1) + (1 if family == "csv" else 0)
+    check_room(os.fspath(output), src.n_samples * columns, MIN_BYTES_PER_VALUE.get(key))
 
 
 def _open_output(output, src: Source, provenance, write_options, include_input):

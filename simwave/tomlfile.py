@@ -40,3 +40,6 @@ def read_toml(
         return tomllib.loads(text), text
     except tomllib.TOMLDecodeError as exc:
         raise error(f"{p}: not valid TOML: {exc}") from None
+    except RecursionError:
+        raise error(f"{p}: arrays or tables nested too deeply to read (beyond Python's "
+                    f"recursion limit of {sys.getrecursionlimit()} calls)") from None

@@ -29,6 +29,26 @@ def _write_json(path: str, text: str, protect: list[str]) -> None:
     write_text_atomic(path, text + "\n", protect=protect)
 
 
+#: A sparse HDF5 dataset (mostly fill value) longer than this is not measured: every pass
+#: of the measurement reads every sample (simwave's own limit, ~2 minutes per pass).
+SPARSE_MEASURE_LIMIT = 10**10
+
+
+def _refuse_sparse(file: str, ropts: dict) -> None:
+    """Refuse to measure a huge, mostly unstored HDF5 dataset (it would read for hours)."""
+    if not str(file).lower().endswith((".h5", ".hdf5", ".he5")):
+        return
+    import simwave
+
+    head = simwave.info(file, **ropts)
+    if head.n_samples > SPARSE_MEASURE_LIMIT and any(
+            n.startswith("sparse dataset") for n in head.notes):
+        raise MeasurementError(
+            f"{file}: {head.n_samples:,} samples, almost all the fill value ({head.notes[-1]}); "
+            f"measuring reads every sample several times: write the stored part to its own "
+            f"file first")
+
+
 @main.command("measure")
 @click.argument("file")
 @input_options
@@ -144,7 +164,11 @@ def measure_cmd(file, system_spec, reference_file, input_channel, reference_data
         from simwave.plots import check_plot_path
 
         check_plot_path(plot_path)  # before any work: a bad name fails at once
-    result = measure(file, reference=reference_file, system=system, **opts)
+    _refuse_sparse(file, ropts)
+    from simwave.guards import measuring_failures
+
+    with measuring_failures(file):
+        result = measure(file, reference=reference_file, system=system, **opts)
     text = result.to_json()
     if out_path is not None:
         _write_json(os.fspath(out_path), text, [file, reference_file])

@@ -65,6 +65,13 @@ def _plain(word: str) -> str:
     return word.strip().lower().replace("_", "-").replace(" ", "-")
 
 
+#: Ripple and attenuation in dB: 10**(dB/10) - 1 must neither round to 0 (below ~1e-15
+#: dB) nor overflow (above ~3000 dB) in float64; simwave's own bounds, well inside both.
+DB_RANGE = (1e-9, 1000.0)
+#: Cutoff frequencies: the sample-rate range of :data:`simwave.guards.RATE_RANGE_HZ`.
+CUTOFF_RANGE_HZ = (1e-9, 1e12)
+
+
 def _edges(cutoff_hz: float | Sequence[float], kind: str) -> list[float]:
     band = kind in ("bandpass", "bandstop")
     values = list(np.atleast_1d(np.asarray(cutoff_hz, dtype=object)))
@@ -78,9 +85,14 @@ def _edges(cutoff_hz: float | Sequence[float], kind: str) -> list[float]:
         )
     if not band and len(edges) != 1:
         raise InvalidSystemError(f"a {kind} design needs one cutoff in Hz, got {len(edges)} values")
+    lo, hi = CUTOFF_RANGE_HZ
     for e in edges:
         if not math.isfinite(e) or e <= 0:
             raise InvalidSystemError(f"cutoff must be a finite frequency above 0 Hz, got {e:g}")
+        if not lo <= e <= hi:
+            raise InvalidSystemError(
+                f"a cutoff of {e:g} Hz is outside the range simwave works with ({lo:g} Hz to "
+                f"{hi:g} Hz, the same as its sample rates)")
     if band and not edges[0] < edges[1]:
         raise InvalidSystemError(
             f"band edges must be increasing (low < high), got {edges[0]:g} and {edges[1]:g} Hz"
@@ -97,6 +109,11 @@ def _positive_db(value: float | None, what: str, family: str) -> float:
         raise InvalidSystemError(f"{what} must be a number of dB, got {value!r}") from None
     if not math.isfinite(v) or v <= 0:
         raise InvalidSystemError(f"{what} must be a finite number of dB above 0, got {value!r}")
+    lo, hi = DB_RANGE
+    if not lo <= v <= hi:
+        raise InvalidSystemError(
+            f"{what} of {v:g} dB is outside the range the design computes reliably in float64 "
+            f"({lo:g} dB to {hi:g} dB)")
     return v
 
 

@@ -787,6 +787,15 @@ class System:
             f"zero {_fmt_c(z)} and pole {_fmt_c(p)} (nearly) cancel; both are kept"
             for z, p in self.near_cancellations
         ]
+        from simwave.model.clusters import multiple_roots
+
+        multiple = multiple_roots(self.poles, self.den)
+        for c in multiple:
+            notes.append(
+                f"{c['multiplicity']}-fold pole at {_fmt_c(c['root'])}: the "
+                f"{c['multiplicity']} poles listed near it are its computed roots, spread up "
+                f"to {c['spread']:.3g} rad/s around it by float64 round-off (the roots of a "
+                f"multiple factor are that sensitive)")
         return {
             "name": self.name,
             "text": self.text,
@@ -795,6 +804,9 @@ class System:
             "gain": self.gain,
             "zeros_rad_s": [_json_complex(z) for z in self.zeros],
             "poles_rad_s": [_json_complex(p) for p in self.poles],
+            "multiple_poles": [{"pole": _json_complex(c["root"]),
+                                "multiplicity": c["multiplicity"],
+                                "computed_spread_rad_s": c["spread"]} for c in multiple],
             "numerator": [float(c) for c in self.num],
             "denominator": [float(c) for c in self.den],
             "ode": None if self.ode is None else {

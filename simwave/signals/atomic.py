@@ -321,6 +321,52 @@ class GuardedFile(io.RawIOBase):
         super().close()
 
 
+#: Fewest bytes one sample value takes in a file, per format (a lower bound: CSV writes at
+#: least a digit, a dot or exponent and a separator; uncompressed audio its sample size).
+#: Compressed formats (FLAC, HDF5 with gzip) have no useful bound and are not checked.
+MIN_BYTES_PER_VALUE = {"csv": 3, "FLOAT": 4, "DOUBLE": 8, "PCM_16": 2, "PCM_24": 3,
+                       "PCM_32": 4, "PCM_S8": 1, "PCM_U8": 1}
+
+
+def check_room(path: str, n_values: int | None, bytes_per_value: int | None) -> None:
+    """Refuse at once an output that cannot fit the free disk space or the file size limit.
+
+    ``n_values`` samples x channels, each at least ``bytes_per_value`` bytes: a lower
+    bound on the file's size. A run whose output cannot fit (a file declaring 1e12
+    samples) fails before any work instead of after hours.
+    """
+    if not n_values or not bytes_per_value:
+        return
+    need = int(n_values) * int(bytes_per_value)
+    room = []
+    try:
+        st = os.statvfs(os.path.dirname(os.path.abspath(path)))
+        room.append((st.f_bavail * st.f_frsize, "free on its disk"))
+    except (OSError, AttributeError):
+        pass
+    try:
+        import resource
+
+        soft, _ = resource.getrlimit(resource.RLIMIT_FSIZE)
+        if soft != resource.RLIM_INFINITY:
+            room.append((soft, "allowed by the file size limit"))
+    except (ImportError, OSError, ValueError):
+        pass
+    for space, what in room:
+        if need > space:
+            raise WaveformError(
+                f"{path}: cannot write: disk full / file size limit: {n_values:,} values need "
+                f"at least {_size(need)}, {_size(space)} {what}")
+
+
+def _size(n: float) -> str:
+    for unit in ("bytes", "KB", "MB", "GB", "TB", "PB"):
+        if n < 1000 or unit == "PB":
+            return f"{n:.4g} {unit}"
+        n /= 1000
+    return f"{n:.4g} PB"
+
+
 # --------------------------------------------------------------------- stale temporaries
 def _open_elsewhere(paths: set[str]) -> tuple[set[str], bool]:
     """Which of ``paths`` a live process holds open (Linux /proc); and whether all were seen."""

@@ -569,6 +569,11 @@ class CsvSource:
                 )
         elif derived is not None:
             self.rate = derived
+        elif t.size >= 2:
+            raise WaveformError(
+                f"{self.path}: the time column never advances ({t.size} rows, all at "
+                f"t = {t[0]:.6g} s); cannot derive a rate from it (give rate= / --rate HZ)"
+            )
         else:
             raise WaveformError(
                 f"{self.path}: only one data row; cannot derive a rate from the time column "
