@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import os
 import sys
 import warnings
 
@@ -79,8 +80,6 @@ def batch_command(items, systems, designs, output_dir, jobs, scheduler, connect_
 
     reader = read_options(kwargs)
     if plot_path is not None:
-        import os
-
         from simwave.plots import check_plot_path
 
         # before any work: a bad name fails at once (the output folder may not exist yet)

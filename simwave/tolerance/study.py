@@ -385,7 +385,7 @@ def execute_builds(study: Study, builds: list[B.Build], *, jobs: int | None = No
                    progress: Callable[[int, int], None] | None = None,
                    stats: RunStats | None = None) -> dict[int, dict]:
     """Run the builds on an engine (reusing finished ones from the journal); results by index."""
-    from simwave.batch.runner import make_engine, read_journal
+    from simwave.batch.runner import make_engine, open_journal, read_journal
 
     stats = stats if stats is not None else RunStats()
     results: dict[int, dict] = {}
@@ -416,7 +416,7 @@ def execute_builds(study: Study, builds: list[B.Build], *, jobs: int | None = No
     os.makedirs(study.output_dir, exist_ok=True)
     done = 0
     try:
-        with open(study.journal_path, "a", encoding="utf-8") as jf:
+        with open_journal(study.journal_path) as jf:  # never through a link
             for task, res in eng.results(iter(chunks)):
                 chunk = by_chunk[task.index]
                 got = res.get("builds") or {}
