@@ -178,3 +178,12 @@ def test_unseekable_codec_is_read(tmp_path):
     assert 4000 <= w.n_samples <= 4000 + 2 * 320
     info = simwave.info(str(tmp_path / "g.wav"), stats=True)  # a second pass over the file
     assert info.stats[0]["max"] > 0.3
+
+
+def test_cr_only_line_endings_are_read(tmp_path):
+    # classic Mac OS text files end lines in CR alone; they were "no numeric rows"
+    rows = "".join(f"{k / 1000!r},{float(k >= 50)!r}\r" for k in range(100))
+    (tmp_path / "cr.csv").write_bytes(("time,x\r" + rows).encode())
+    w = simwave.read(str(tmp_path / "cr.csv"))
+    assert w.n_samples == 100 and w.rate == pytest.approx(1000.0)
+    assert w.data[:, 0].sum() == 50.0

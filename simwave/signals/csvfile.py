@@ -260,6 +260,10 @@ class CsvSource:
         except UnicodeDecodeError as exc:
             if exc.start < len(first) - 4:  # not just a character cut at the chunk end
                 self.encoding = "latin-1"
+        # Lines end in LF or CR LF; a file with CR alone (classic Mac OS) is split on CR.
+        self._eol = b"\r" if (b"\r" in first and b"\n" not in first) else b"\n"
+        if self._eol == b"\r":
+            self.notes.append("lines end in CR only (classic Mac OS line endings)")
         self._line_iter = self._lines(first)
         if decimal not in (None, ".", ","):
             raise WaveformError(f"{path}: decimal mark must be '.' or ',', got {decimal!r}")
@@ -283,13 +287,13 @@ class CsvSource:
                     yield lineno, [rest.decode(self.encoding, "replace").rstrip("\r")]
                 return
             buf = rest + block
-            cut = buf.rfind(b"\n")
+            cut = buf.rfind(self._eol)
             if cut < 0:
                 rest = buf
             else:
                 text = buf[:cut].decode(self.encoding, "replace")
                 rest = buf[cut + 1:]
-                lines = text.split("\n")
+                lines = text.split(self._eol.decode())
                 yield lineno, lines
                 lineno += len(lines)
             block = self.fh.read(self.chunk_bytes)
