@@ -141,6 +141,9 @@ class SimwaveGroup(click.Group):
             click.echo(f"Error: {exc}", err=True)
             sys.exit(EXIT_BAD_INPUT)
         except KeyboardInterrupt as exc:
+            from simwave.signals.atomic import remove_live_temporaries
+
+            remove_live_temporaries()  # any the interrupted code could not reach
             name = signal.Signals(getattr(exc, "signum", signal.SIGINT)).name
             click.echo("Interrupted." if name == "SIGINT" else f"Stopped ({name}).", err=True)
             sys.exit(stopped_exit_code(exc))

@@ -112,6 +112,49 @@ def guard_outputs(outputs: Mapping[str, str | os.PathLike[str] | None],
         check_output_path(path)
 
 
+#: Temporary files of this process not yet renamed or removed (see remove_live_temporaries).
+_LIVE: set[str] = set()
+
+
+@contextlib.contextmanager
+def _stop_signals_held() -> Iterator[None]:
+    """Hold SIGINT/SIGTERM/SIGHUP for a few statements (main thread, POSIX), so a stop
+    cannot fall between creating a temporary file and registering it."""
+    import signal
+    import threading
+
+    sigs = {getattr(signal, n) for n in ("SIGINT", "SIGTERM", "SIGHUP") if hasattr(signal, n)}
+    if not hasattr(signal, "pthread_sigmask") or \
+            threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    old = signal.pthread_sigmask(signal.SIG_BLOCK, sigs)
+    try:
+        yield
+    finally:
+        signal.pthread_sigmask(signal.SIG_SETMASK, old)
+
+
+def remove_live_temporaries() -> list[str]:
+    """Delete every temporary file this process created and has not finished with.
+
+    The last line of defence when a stop (Ctrl-C, SIGTERM, SIGHUP) arrives between a
+    temporary file's creation and the ``try`` that would remove it: the command-line
+    handler calls this before it exits.
+    """
+    removed = []
+    for p in sorted(_LIVE):
+        try:
+            os.unlink(p)
+            removed.append(p)
+        except FileNotFoundError:
+            pass
+        except OSError:
+            continue
+        _LIVE.discard(p)
+    return removed
+
+
 class AtomicTarget:
     """A temporary file beside ``path`` that becomes ``path`` on :meth:`commit`.
 
@@ -129,8 +172,10 @@ class AtomicTarget:
         base = os.path.basename(self.path)
         _, ext = os.path.splitext(base)
         try:
-            self._fd, self.tmp = tempfile.mkstemp(prefix=f".{base}.", suffix=f".part{ext}",
-                                                  dir=directory)
+            with _stop_signals_held():  # created and registered, or neither
+                self._fd, self.tmp = tempfile.mkstemp(prefix=f".{base}.", suffix=f".part{ext}",
+                                                      dir=directory)
+                _LIVE.add(self.tmp)
         except OSError as exc:
             raise WaveformError(
                 f"{self.path}: cannot create a file there ({exc.strerror})") from None
@@ -139,6 +184,7 @@ class AtomicTarget:
         self.done = False
 
     def _release(self) -> None:
+        _LIVE.discard(self.tmp)
         fd, self._fd = self._fd, None
         if fd is not None:
             os.close(fd)
