@@ -191,3 +191,11 @@ def test_cr_only_line_endings_are_read(tmp_path):
     w = simwave.read(str(tmp_path / "cr.csv"))
     assert w.n_samples == 100 and w.rate == pytest.approx(1000.0)
     assert w.data[:, 0].sum() == 50.0
+
+
+def test_time_steps_without_a_usable_rate_are_one_line(tmp_path):
+    # found by tests/fuzz_counts.py (seed 17): steps of 1e300 s beside NaN times
+    text = "time,x\r1e300,2.5\r1e300,1e308\r0.001,0\r0,0.001\r0.001,nan\r0,2.5\r0.004,1\r"
+    (tmp_path / "t.csv").write_bytes((text + "0.001,1\rnan,1\r").encode())
+    with pytest.raises(SimwaveError):
+        simwave.info(str(tmp_path / "t.csv"))

@@ -563,6 +563,10 @@ class CsvSource:
                 med = float(np.median(pos))
                 good = np.abs(d - med) <= JITTER_TOLERANCE * med + 4 * np.spacing(np.abs(t[1:]))
                 dt = float(np.mean(d[good])) if good.any() else med
+                if not (math.isfinite(dt) and dt > 0 and math.isfinite(1.0 / dt)):
+                    raise WaveformError(
+                        f"{self.path}: the time column's steps (typical {med:.6g} s, mean "
+                        f"{dt:.6g} s) give no usable sample rate; give rate= / --rate HZ")
                 derived = snap_rate(1.0 / dt)
         self.file_rate = derived
         if rate is not None:
