@@ -233,7 +233,13 @@ def run_command(source, system_spec, output, method, prewarp, match_frequency, i
 
     # Every path this command writes, checked together before any work: none is an
     # input (waveform or system file), no two are the same file.
-    guard_outputs({"-o/--output": output, "--metrics": metrics, "--plot": plot_path},
+    report_target = None
+    if with_report:
+        from simwave.report import run_report_path
+
+        report_target = run_report_path(output)
+    guard_outputs({"-o/--output": output, "--metrics": metrics, "--plot": plot_path,
+                   "--report": report_target},
                   {"the input": source if os.path.exists(source) else None,
                    "the system file": system_spec.file})
     sweep_output_folders([output, metrics, plot_path])
