@@ -15,6 +15,8 @@ import functools
 import math
 
 import numpy as np
+
+from simwave.errors import DiscretizationError
 import scipy.linalg as sla
 
 __all__ = [
@@ -172,6 +174,11 @@ def analog_state_space(zeros, poles, gain: float):
     """
     poles = np.asarray(poles, dtype=np.complex128).ravel()
     zeros = np.asarray(zeros, dtype=np.complex128).ravel()
+    if not (np.all(np.isfinite(poles)) and np.all(np.isfinite(zeros))):
+        # e.g. a transformed model whose pole overflowed: no finite realization exists;
+        # callers that compare methods read this as "this method cannot make the model".
+        raise DiscretizationError("a pole or zero of the model is not finite (it overflowed); "
+                                  "no state space can be built for it")
     return _analog_state_space_cached(zeros.tobytes(), poles.tobytes(), float(gain))
 
 
