@@ -167,14 +167,19 @@ def find_summary(folder: str) -> str:
                       "one folder down; give the output folder of a batch or tolerance study")
 
 
-def _read_summary(path: str) -> dict[str, Any]:
+def read_json(path: str) -> Any:
+    """A JSON file's content, or a one-line ReportError saying why it cannot be read."""
     try:
         with open(path, encoding="utf-8") as fh:
-            doc = json.load(fh)
+            return json.load(fh)
     except OSError as exc:
         raise ReportError(f"{path}: cannot be read ({exc.strerror or exc})") from None
     except ValueError as exc:
         raise ReportError(f"{path}: not valid JSON ({exc})") from None
+
+
+def _read_summary(path: str) -> dict[str, Any]:
+    doc = read_json(path)
     if not isinstance(doc, dict) or not isinstance(doc.get("rows"), list):
         raise ReportError(f"{path}: not a simwave batch summary (no 'rows' list)")
     for i, row in enumerate(doc["rows"]):

@@ -24,7 +24,7 @@ import os
 from typing import Any, Mapping
 
 from simwave.report.page import Page, esc
-from simwave.report.study import ReportError, Study
+from simwave.report.study import ReportError, Study, read_json
 from simwave.report.values import number_text
 
 #: The study's summary file name (see :mod:`simwave.tolerance.study`).
@@ -66,13 +66,7 @@ def is_tolerance_folder(folder: str) -> str | None:
 
 def load_tolerance(summary_path: str) -> Study:
     """The study of a tolerance output folder (its summary, run information and plots)."""
-    try:
-        with open(summary_path, encoding="utf-8") as fh:
-            doc = json.load(fh)
-    except OSError as exc:
-        raise ReportError(f"{summary_path}: cannot be read ({exc.strerror or exc})") from None
-    except ValueError as exc:
-        raise ReportError(f"{summary_path}: not valid JSON ({exc})") from None
+    doc = read_json(summary_path)
     if not isinstance(doc, dict) or not isinstance(doc.get("metrics"), list):
         raise ReportError(f"{summary_path}: not a simwave tolerance summary (no 'metrics' list)")
     folder = os.path.dirname(os.path.abspath(summary_path))
