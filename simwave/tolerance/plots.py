@@ -41,15 +41,20 @@ def _panels(doc: dict[str, Any]) -> list[dict[str, Any]]:
     return (limited + varying)[:MAX_PANELS]
 
 
+
+def _row_value(r: dict | None, row: dict) -> float | None:
+    """One build's value of a summary row's quantity (a model figure or a measured metric)."""
+    if row["input"] == MODEL_INPUT:
+        return model_value(r, row["metric"])
+    return metric_value(r, row["input"], row["channel"], row["metric"])
+
 def _values(study, builds, results, row) -> list[float]:
     roles = ANALYSIS_ROLES[study.analysis]
     out = []
     for b in builds:
         if b.role not in roles:
             continue
-        r = results.get(b.index)
-        v = (model_value(r, row["metric"]) if row["input"] == MODEL_INPUT
-             else metric_value(r, row["input"], row["channel"], row["metric"]))
+        v = _row_value(results.get(b.index), row)
         if v is not None:
             out.append(v)
     return out
@@ -161,9 +166,7 @@ def _corner_band(ax, builds, results, row, name, xs) -> None:
         for b in builds:
             if b.role != "sweep-corner" or b.values[name] != x:
                 continue
-            r = results.get(b.index)
-            v = (model_value(r, row["metric"]) if row["input"] == MODEL_INPUT
-                 else metric_value(r, row["input"], row["channel"], row["metric"]))
+            v = _row_value(results.get(b.index), row)
             if v is not None:
                 vals.append(v)
         lo.append(min(vals) if vals else np.nan)
