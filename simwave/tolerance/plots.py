@@ -41,12 +41,12 @@ def _panels(doc: dict[str, Any]) -> list[dict[str, Any]]:
     return (limited + varying)[:MAX_PANELS]
 
 
-
 def _row_value(r: dict | None, row: dict) -> float | None:
     """One build's value of a summary row's quantity (a model figure or a measured metric)."""
     if row["input"] == MODEL_INPUT:
         return model_value(r, row["metric"])
     return metric_value(r, row["input"], row["channel"], row["metric"])
+
 
 def _values(study, builds, results, row) -> list[float]:
     roles = ANALYSIS_ROLES[study.analysis]
