@@ -66,14 +66,19 @@ def _title(row: dict[str, Any]) -> str:
     return f"{row['metric']}\n{where}{ch}"
 
 
-def plot_distributions(study, builds, results, doc, path: str | None = None):
-    """Histogram of each metric over the analysis builds, nominal and limits drawn."""
+def _panel_grid(doc: dict[str, Any]):
+    """A figure with one panel per metric to draw (up to three across): (fig, axes, panels)."""
     panels = _panels(doc)
     n = max(1, len(panels))
     cols = min(3, n)
     rows = math.ceil(n / cols)
     fig = _new_figure((4.2 * cols, 3.0 * rows))
-    axes = fig.subplots(rows, cols, squeeze=False).ravel()
+    return fig, fig.subplots(rows, cols, squeeze=False).ravel(), panels
+
+
+def plot_distributions(study, builds, results, doc, path: str | None = None):
+    """Histogram of each metric over the analysis builds, nominal and limits drawn."""
+    fig, axes, panels = _panel_grid(doc)
     for ax, row in zip(axes, panels, strict=False):
         vals = _values(study, builds, results, row)
         if vals:
@@ -111,12 +116,7 @@ def plot_sweep(study, builds, results, doc, path: str | None = None):
     """Each limited (or varying) metric against the first swept parameter; with two swept
     parameters one line per value of the second."""
     names = list(study.sweep)
-    panels = _panels(doc)
-    n = max(1, len(panels))
-    cols = min(3, n)
-    rows = math.ceil(n / cols)
-    fig = _new_figure((4.2 * cols, 3.0 * rows))
-    axes = fig.subplots(rows, cols, squeeze=False).ravel()
+    fig, axes, panels = _panel_grid(doc)
     sweep_builds = [b for b in builds if b.role == "sweep"]
     xs_axis = study.sweep[names[0]]
     log_x = len(xs_axis) > 2 and min(xs_axis) > 0 and not np.allclose(
