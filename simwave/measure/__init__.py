@@ -67,7 +67,7 @@ __all__ = ["measure", "MeasurementResult", "MeasureOptions", "key_metrics"]
 
 lazy_exports(__name__, {
     "measure": "simwave.measure.core",
-    "MeasureOptions": "simwave.measure.core",
+    "MeasureOptions": "simwave.measure.options",
     "MeasurementResult": "simwave.measure.result",
     "key_metrics": "simwave.measure.result",
 })

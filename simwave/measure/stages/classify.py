@@ -1,0 +1,114 @@
+"""Stage 1b, signal kind: what each channel is (transitions, sine, multitone, ramp,
+other, constant), which decides which metrics the later stages measure.
+
+In: a :class:`~simwave.measure.stages.work.Work` after :mod:`.state_levels` (each
+channel's levels, ``two_state_fraction``, ``established``, ``multilevel``, ``window``).
+No pass over the record: the steady-state window is enough. Out: each channel's ``kind``
+and ``kind_source`` (an option, the input's kind, or the output's own); a sine or tones
+asked for but absent is refused with a :class:`MeasurementError`. Next:
+:mod:`.find_transitions`.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from simwave.errors import MeasurementError
+from simwave.measure import steady as st
+from simwave.measure.options import MIN_WINDOW
+from simwave.measure.stages.state_levels import TWO_STATE_FRACTION
+from simwave.measure.stages.work import Channel, Work
+
+#: A sine (or a set of tones) is taken as present when the fit accounts for this
+#: fraction of the AC power (auto detection) ...
+SINE_AUTO_EXPLAINED = 0.9
+#: ... and at least this fraction when a sine fit is asked for (SINAD >= 0 dB).
+SINE_MIN_EXPLAINED = 0.5
+#: A window is a ramp when a straight line explains this fraction of its variance.
+RAMP_R2 = 0.999
+
+
+def run(w: Work) -> None:
+    o = w.o
+    forced = o.signal_kind != "auto"
+    if o.tones_hz is not None and not forced:
+        forced, kind_opt = True, "multitone"
+    elif o.sine_hz is not None and not forced:
+        forced, kind_opt = True, "sine"
+    else:
+        kind_opt = o.signal_kind
+    for r in w.refs:
+        r.kind = kind_opt if forced else auto_kind(w, r, True)
+        r.kind_source = "option" if forced else "input"
+    for c, ch in enumerate(w.outs):
+        ri = w.ref_for(c)
+        if forced:
+            ch.kind, ch.kind_source = kind_opt, "option"
+        elif ri is not None:
+            ch.kind, ch.kind_source = w.refs[ri].kind, "input"
+        else:
+            ch.kind, ch.kind_source = auto_kind(w, ch, False), "output"
+        if ch.kind == "constant" and ri is None:
+            ch.kind = "other"
+    if forced and kind_opt in ("sine", "multitone"):
+        # a sine asked for: it must be there (in the input, else in the output)
+        for ch in w.refs or w.outs:
+            require_sine(w, ch, kind_opt)
+
+
+def auto_kind(w: Work, ch: Channel, is_reference: bool) -> str:
+    if ch.constant:
+        return "constant"
+    if ch.two_state_fraction >= TWO_STATE_FRACTION or ch.established or ch.multilevel:
+        return "transitions"
+    y = ch.fit_window
+    if y.size >= MIN_WINDOW and np.ptp(y) > 0:
+        t = w.window_t(y.size)
+        # a straight line first: a slow sine fits a short stretch of ramp too
+        if st.line_fit(y, t)[2] >= RAMP_R2:
+            return "ramp"
+        if is_reference:
+            tones = st.find_tones(y, w.rate)
+            if len(tones) >= 2:
+                fit = st.fit_tones(y, t, tones, refine=True)
+                if fit.explained >= SINE_AUTO_EXPLAINED:
+                    return "multitone"
+        try:
+            f0 = st.spectrum_peak_hz(y, w.rate)
+            fit = st.fit_tones(y, t, [f0], refine=True)
+            if fit.explained >= SINE_AUTO_EXPLAINED and fit.tones[0].frequency_hz > 0:
+                return "sine"
+        except MeasurementError:
+            pass
+        if not is_reference:
+            tones = st.find_tones(y, w.rate)
+            if len(tones) >= 2:
+                fit = st.fit_tones(y, t, tones, refine=True)
+                if fit.explained >= SINE_AUTO_EXPLAINED:
+                    return "multitone"
+    return "other"
+
+
+def require_sine(w: Work, ch: Channel, kind: str) -> None:
+    y = ch.fit_window
+    if y.size < MIN_WINDOW or ch.constant or np.ptp(y) == 0:
+        raise MeasurementError(
+            f"channel {ch.name!r}: no sine: the steady-state window is flat or too short"
+        )
+    t = w.window_t(y.size)
+    if kind == "sine":
+        f = w.o.sine_hz or st.spectrum_peak_hz(y, w.rate)
+        fit = st.fit_tones(y, t, [f], refine=w.o.sine_hz is None)
+    elif w.o.tones_hz is not None:
+        return  # a given tone list is measured as it is
+    else:
+        tones = st.find_tones(y, w.rate)
+        if not tones:
+            raise MeasurementError(f"channel {ch.name!r}: no tones found in its spectrum")
+        fit = st.fit_tones(y, t, tones, refine=True)
+    if fit.explained < SINE_MIN_EXPLAINED:
+        what = "sine" if kind == "sine" else "tones"
+        raise MeasurementError(
+            f"channel {ch.name!r}: no {what} present: the fit accounts for only "
+            f"{100 * fit.explained:.1f} % of its AC power in the steady-state window"
+        )

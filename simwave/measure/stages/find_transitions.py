@@ -1,0 +1,55 @@
+"""Stage 2, transitions: every transition of each channel of kind "transitions".
+
+In: a :class:`~simwave.measure.stages.work.Work` after :mod:`.classify` (each channel's
+``kind``, ``refs``, and for a staircase its ``staircase`` plateaus). One pass over the
+record: a two-state channel's transitions are found by an IEEE Std 181 edge finder on its
+reference levels; a multi-level channel's in each gap between plateaus, on that gap's own
+levels. Out: each channel's ``edges`` (:class:`~simwave.measure.transient.Edge`). With a
+reference input, the output's transitions are found again, one per input transition, by
+:mod:`.input_aligned` (next).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from simwave.measure import plateaus as pl
+from simwave.measure.stages.work import Work
+from simwave.measure.transient import EdgeFinder
+
+
+def run(w: Work) -> None:
+    """One pass: the transitions of every channel of kind "transitions"."""
+    chans = w.outs + w.refs
+    active = [
+        i for i, ch in enumerate(chans) if ch.kind == "transitions" and ch.refs is not None
+    ]
+    if not active:
+        return
+    gaps: dict[int, list] = {}
+    for i in active:
+        if chans[i].multilevel:
+            gaps[i] = pl.gap_finders(chans[i].staircase, w.o.reference_levels_pct)
+        else:
+            chans[i].finder = EdgeFinder(*chans[i].refs)
+    spans = {
+        i: (np.array([g[0] for g in gs]), np.array([g[1] for g in gs]))
+        for i, gs in gaps.items()
+    }
+    for start, a, b in w.src.blocks():
+        blk = a if b is None else np.concatenate([a, b], axis=1)
+        last = start + blk.shape[0] - 1
+        for i in active:
+            if i in gaps:
+                lo, hi = spans[i]
+                for g in np.flatnonzero((lo <= last) & (hi >= start)):
+                    glo, ghi, finder = gaps[i][g][:3]
+                    s0, s1 = max(glo, start), min(ghi, last)
+                    finder.feed(blk[s0 - start : s1 - start + 1, i], s0)
+            else:
+                chans[i].finder.feed(blk[:, i], start)
+    for i in active:
+        if i in gaps:
+            chans[i].edges = pl.edges_from_gaps(gaps[i])
+        else:
+            chans[i].edges = chans[i].finder.edges

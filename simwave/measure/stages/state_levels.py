@@ -1,0 +1,194 @@
+"""Stage 1, state levels: the two state levels of every channel, and the plateaus of a
+staircase.
+
+In: a :class:`~simwave.measure.stages.work.Work` after the record scan (each channel's
+range). One pass over the record fills, per channel (outputs and references):
+``levels`` (IEEE Std 181 histogram, or min/max), ``refs`` (reference levels),
+``two_state_fraction``, ``window`` (the steady-state window's samples), ``windows``
+(window summary) and ``disturbance_pp``; a reference with more than two levels (or hum
+that keeps its samples off them) gets ``staircase`` and ``multilevel``. Then, for an
+output with no reference input, up to four more passes check the histogram's levels
+against the ends of the output's own state intervals and replace them where ringing fools
+the histogram (``levels``, ``segments``, ``level_mode``, ``established``).
+
+Out: ``w.hist`` and the channel fields above. Next: :mod:`.classify`.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from simwave.measure import levels as lv
+from simwave.measure import plateaus as pl
+from simwave.measure import segments as seg
+from simwave.measure.stages import work
+from simwave.measure.stages.work import Channel, Work
+
+#: A waveform counts as two-state when at least this fraction of its samples lies
+#: within 10 % of the amplitude of one of its state levels (our choice; a sine has
+#: about 41 %, a clean pulse train nearly 100 %).
+TWO_STATE_FRACTION = 0.5
+#: Without a reference input, the first round of output state intervals looks at this
+#: many (the second, on the levels they give, at all of them).
+FIRST_ROUND_SEGMENTS = 64
+
+
+def run(w: Work) -> None:
+    """The state levels of every channel (see the module's docstring)."""
+    pass_levels(w)
+    levels_from_output_intervals(w)
+
+
+def pass_levels(w: Work) -> None:
+    """Pass 2: level histograms and the steady-state window."""
+    chans = w.outs + w.refs
+    hist = lv.LevelHistogram(np.array([c.lo for c in chans]), np.array([c.hi for c in chans]))
+    parts: list[list[np.ndarray]] = [[] for _ in chans]
+    n_out = len(w.outs)
+    wsize = pl.window_size(w.n, w.rate)
+    for ch in chans:
+        ch.windows = pl.WindowStats(wsize)
+    for start, a, b in w.src.blocks():
+        blk = a if b is None else np.concatenate([a, b], axis=1)
+        hist.add(blk)
+        for i, ch in enumerate(chans):
+            ch.windows.feed(blk[:, i])
+        end = start + blk.shape[0]
+        if end > w.w_start:
+            lo = max(w.w_start - start, 0)
+            for c in range(len(chans)):
+                parts[c].append(blk[lo:, c].copy())
+    for c, ch in enumerate(chans):
+        ch.window = np.concatenate(parts[c]) if parts[c] else np.empty(0)
+        if ch.constant:
+            ch.null_reasons["state_levels"] = f"constant channel (every sample is {ch.lo:g})"
+            continue
+        ch.levels = lv.state_levels(hist, c, w.o.state_level_method)
+        half = 0.1 * ch.levels.amplitude
+        ch.two_state_fraction = hist.fraction_near(c, (ch.levels.low, ch.levels.high), half)
+        ch.refs = lv.reference_values(ch.levels, w.o.reference_levels_pct)
+        ch.disturbance_pp = pl.quiet_span(ch.windows)
+        if c >= n_out and w.o.state_level_method != "minmax":
+            staircase(w, ch)
+    w.hist = hist
+
+
+def staircase(w: Work, ch: Channel) -> None:
+    """A reference of more than two levels, or of two with hum or noise that keeps its
+    samples away from them, is measured transition by transition between its plateaus."""
+    sc = pl.find_plateaus(ch.windows, w.n, rest_first=w.rest_sample)
+    ch.staircase = sc
+    if not sc.usable():
+        return
+    if ch.two_state_fraction >= TWO_STATE_FRACTION and sc.n_levels <= 2:
+        return  # two clean states: the histogram's levels serve every transition
+    ch.multilevel = True
+    lo = min(p.level for p in sc.plateaus)
+    hi = max(p.level for p in sc.plateaus)
+    ch.levels = lv.StateLevels(
+        lo,
+        hi,
+        "window plateaus (multi-level)",
+        note=(
+            f"{sc.n_levels} levels: each transition has its own initial and final level "
+            "(the plateaus before and after it)"
+        ),
+    )
+    ch.refs = lv.reference_values(ch.levels, w.o.reference_levels_pct)
+
+
+def levels_from_output_intervals(w: Work) -> None:
+    """Without a reference input: the state levels from the ends of the output's own
+    state intervals, to check the histogram against (and replace it where ringing fools
+    it). Transitions are found first with wide hysteresis (25/75 % of the histogram or
+    min/max levels), the intervals' ends give levels, the transitions are found again
+    on those, and the intervals' ends measured again."""
+    o = w.o
+    if o.state_level_method == "minmax":
+        return
+    forced_other = o.signal_kind not in ("auto", "transitions") or (
+        o.signal_kind == "auto" and (o.sine_hz is not None or o.tones_hz is not None)
+    )
+    if forced_other:
+        return
+    cands = [
+        c
+        for c, ch in enumerate(w.outs)
+        if w.ref_for(c) is None and ch.levels is not None and not ch.constant
+    ]
+    if not cands:
+        return
+    refs = {c: lv.reference_values(w.outs[c].levels, (25.0, 50.0, 75.0)) for c in cands}
+    found: dict[int, tuple] = {}
+    for rnd in range(2):
+        edges = work.find_edges(w, refs, FIRST_ROUND_SEGMENTS if rnd == 0 else None)
+        # end each segment where a linear edge would leave the level: a quarter of
+        # the 25-75 % time before the wide provisional transitions, an eighth of the
+        # 10-90 % time before the final ones
+        lead = 0.25 if rnd == 0 else 0.125
+        segs = {c: seg.segments_between(e, w.n, lead) for c, e in edges.items() if e}
+        if rnd == 0:
+            # the first segments are enough for provisional levels, and tell a two-state
+            # waveform from a sine (whose segments never settle) at little cost
+            segs = {c: ss[:FIRST_ROUND_SEGMENTS] for c, ss in segs.items()}
+        work.collect(w, segs)
+        found = {}
+        for c, ss in segs.items():
+            # the first round's levels are provisional (the segments are cut on the
+            # histogram's levels): a turning-point end is not refused there
+            work.decide(w, ss, w.outs[c], strict=rnd > 0)
+            low, m_low, _ = seg.pooled_level(ss, 0)
+            high, m_high, _ = seg.pooled_level(ss, 1)
+            if low is None or high is None or not high - low > work.min_change(w.outs[c]):
+                continue
+            if rnd == 0 and not established(m_low, m_high):
+                continue  # the ends of the segments establish no state
+            found[c] = (low, high, m_low, m_high, ss)
+        if not found:
+            return
+        refs = {
+            c: lv.reference_values(lv.StateLevels(f[0], f[1], ""), o.reference_levels_pct)
+            for c, f in found.items()
+        }
+    for c, (low, high, m_low, m_high, ss) in found.items():
+        choose_interval_levels(w, c, low, high, m_low, m_high, ss)
+
+
+def choose_interval_levels(w: Work, c, low, high, m_low, m_high, ss) -> None:
+    ch, o = w.outs[c], w.o
+    hist = ch.levels
+    est = established(m_low, m_high)
+    if not est and o.state_level_method != "segment":
+        return  # the intervals' ends are no better than the histogram
+    ch.established = est
+    amp = high - low
+    tol = 0.5 * o.settling_band_pct / 100.0 * amp
+    if (
+        o.state_level_method == "histogram"
+        and hist.method == "histogram"
+        and abs(hist.low - low) <= tol
+        and abs(hist.high - high) <= tol
+    ):
+        ch.segments, ch.level_mode = ss, "output state intervals (check)"
+        return  # the histogram agrees with the settled intervals: keep the standard's
+    if o.state_level_method == "segment":
+        why = "state-level method 'segment' asked for"
+    elif hist.method == "histogram":
+        off = max(abs(hist.low - low), abs(hist.high - high))
+        why = (
+            f"the histogram modes (low {hist.low:.6g}, high {hist.high:.6g}) differ from "
+            f"the state intervals' ends by {100.0 * off / amp:.3g} % of the amplitude "
+            "(a histogram is fooled e.g. by the turning points of ringing in a short record)"
+        )
+    else:
+        why = (hist.note or "the histogram gave no levels").replace("; min/max used", "")
+    method = work.method_text(m_low, m_high, "output state intervals")
+    ch.levels = lv.StateLevels(low, high, method, note=why)
+    ch.refs = lv.reference_values(ch.levels, o.reference_levels_pct)
+    ch.two_state_fraction = w.hist.fraction_near(c, (low, high), 0.1 * amp)
+    ch.segments, ch.level_mode = ss, "output state intervals"
+
+
+def established(*methods: str | None) -> bool:
+    """Levels found settled or extrapolated from ringing: the record establishes them."""
+    return all(m in (seg.METHOD_END, seg.METHOD_EXTRAPOLATED, seg.METHOD_REST) for m in methods)

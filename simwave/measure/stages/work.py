@@ -1,0 +1,239 @@
+"""The working state every stage reads and fills, and the block passes they share.
+
+A measurement is a :class:`Work`: the source (blocks of output and reference), the
+options, the record's length and rate, and one :class:`Channel` per output channel
+(``w.outs``) and per reference channel (``w.refs``). Each stage (see
+:mod:`simwave.measure.stages`) reads some fields and fills others; the fields say which
+stage fills them.
+
+The helpers at the end are passes over the record used by more than one stage:
+:func:`collect` (segments analysed at their ends), :func:`find_edges` (transitions on
+given reference levels) and :func:`decide` (each segment's level and settled test).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from simwave.errors import MeasurementError
+from simwave.measure import levels as lv
+from simwave.measure import plateaus as pl
+from simwave.measure import segments as seg
+from simwave.measure.options import MeasureOptions
+from simwave.measure.source import MeasureSource
+from simwave.measure.transient import Edge, EdgeFinder, EdgeRegions
+
+#: Most samples of the steady-state window the sine and tone fits use (its last ones).
+FIT_MAX = 1 << 16
+#: A level change smaller than this fraction of the channel's range is no transition
+#: (input-aligned segments: the output did not follow that input transition; our choice).
+NO_CHANGE_FRACTION = 0.05
+
+
+@dataclass
+class Scan:
+    """Sample count, range and sums of one stream (pass 1)."""
+
+    n: int = 0
+    lo: np.ndarray | None = None
+    hi: np.ndarray | None = None
+    sum: np.ndarray | None = None
+    sumsq: np.ndarray | None = None
+
+
+def scan(arrays, label: str, channels: list[str], rate: float, t0: float) -> Scan:
+    """Pass 1: sample count, range, sums; stops at the first NaN or infinity."""
+    s = Scan()
+    for blk in arrays:
+        bad = ~np.isfinite(blk)
+        if bad.any():
+            r, c = np.argwhere(bad)[0]
+            i = s.n + int(r)
+            raise MeasurementError(
+                f"{label}: channel {channels[c]!r}, sample {i} (t = {t0 + i / rate:.6g} s): "
+                f"value is {blk[r, c]!r}; measurements need finite samples"
+            )
+        if blk.shape[0] == 0:
+            continue
+        lo, hi = blk.min(axis=0), blk.max(axis=0)
+        if s.lo is None:
+            s.lo, s.hi = lo, hi
+            s.sum, s.sumsq = blk.sum(axis=0), (blk * blk).sum(axis=0)
+        else:
+            s.lo, s.hi = np.minimum(s.lo, lo), np.maximum(s.hi, hi)
+            s.sum += blk.sum(axis=0)
+            s.sumsq += (blk * blk).sum(axis=0)
+        s.n += blk.shape[0]
+    return s
+
+
+@dataclass
+class Channel:
+    """Working state of one channel (output or reference) through the passes."""
+
+    name: str
+    unit: str
+    lo: float
+    hi: float
+    mean: float
+    rms: float
+    levels: lv.StateLevels | None = None
+    two_state_fraction: float = 0.0
+    refs: tuple | None = None
+    kind: str = "other"
+    kind_source: str = "auto"
+    finder: EdgeFinder | None = None
+    edges: list = field(default_factory=list)
+    window: np.ndarray | None = None
+    null_reasons: dict = field(default_factory=dict)
+    # segment levels: "input-aligned" or "output state intervals" when used, the segments,
+    # per-transition level information (input-aligned) and input transitions with no
+    # output transition
+    level_mode: str | None = None
+    segments: list = field(default_factory=list)
+    edge_info: list = field(default_factory=list)
+    unmatched: list = field(default_factory=list)
+    # both state levels established (settled or extrapolated) at the ends of the output's
+    # own state intervals: a two-state waveform even when ringing keeps most of its
+    # samples away from the levels
+    established: bool = False
+    # input-aligned: the output's response onset delay (samples) the segments were cut with;
+    # None when no transition starts from a settled segment (cut where the input moves)
+    onset_delay: int | None = None
+    # the most of the response to the next transition such a segment's end may hold
+    onset_allowance: float = 0.0
+    # window summary and plateaus (multi-level transitions); multilevel: its transitions are
+    # found between plateaus, each with its own levels
+    windows: pl.WindowStats | None = None
+    staircase: pl.Staircase | None = None
+    multilevel: bool = False
+    # span (peak to peak) of noise and hum where the channel is quiet (the first quartile
+    # of its window spans)
+    disturbance_pp: float = 0.0
+    _seg_starts: np.ndarray | None = None
+
+    @property
+    def constant(self) -> bool:
+        return self.hi == self.lo
+
+    @property
+    def fit_window(self) -> np.ndarray:
+        """The last part of the steady-state window the sine and tone fits use (their cost
+        grows with it; ``FIT_MAX`` samples are thousands of cycles of an audio tone)."""
+        return self.window if self.window.size <= FIT_MAX else self.window[-FIT_MAX:]
+
+
+class Work:
+    """One measurement in progress: what the stages share.
+
+    Filled by :func:`simwave.measure.stages.record.open_record` (``n``, ``outs``, ``refs``,
+    ``w_start``), then by each stage in turn (see the stage modules).
+    """
+
+    def __init__(self, src: MeasureSource, system: Any, o: MeasureOptions) -> None:
+        self.src, self.system, self.o = src, system, o
+        self.rate, self.t0 = src.rate, src.t0
+        self.notes: list[str] = []
+        self.rest_sample = False  # one sample of 0 put before the record (at-rest convention)
+        self.n = 0
+        self.outs: list[Channel] = []
+        self.refs: list[Channel] = []
+        self.w_start = 0  # first sample of the steady-state window
+        # state levels stage: the level histogram of every channel (outputs, then references)
+        self.hist: lv.LevelHistogram | None = None
+        # transition metrics stage: per output channel its transitions' regions, the output
+        # just before the last input transition (index and value) and the sample values read
+        # at the instants the transitions need, per channel (outputs, then references)
+        self.regions: dict[int, list[EdgeRegions]] = {}
+        self.pre_step_index: dict[int, int] = {}
+        self.pre_step_value: dict[int, float] = {}
+        self.values: dict[int, dict[int, float]] = {}
+        self.pred: Any = None
+        # per output channel: (its part of the result, its null reasons), filled by the
+        # transition metrics stage (kind "transitions" only) and the steady-state stage
+        self.transient: dict[int, tuple[dict, dict]] = {}
+        self.steady: dict[int, tuple[dict, dict]] = {}
+
+    def t(self, idx: float) -> float:
+        """Absolute time (s) of a fractional sample index."""
+        return self.t0 + idx / self.rate
+
+    def ref_for(self, c: int) -> int | None:
+        """Index into ``refs`` of the reference channel of output channel ``c``, if any."""
+        if not self.refs:
+            return None
+        return 0 if len(self.refs) == 1 else c
+
+    def window_t(self, m: int) -> np.ndarray:
+        """Times (s from t0) of the last ``m`` samples: the window, or its last part for
+        fits, ends at the record's last sample."""
+        return (self.n - m + np.arange(m, dtype=np.float64)) / self.rate
+
+
+# ---------------------------------------------------------------------------- shared passes
+def collect(w: Work, segs_by_c: dict[int, list]) -> None:
+    """One pass: each output channel's segments analysed at their ends (the pass stops
+    early once every list is done)."""
+    cols = {
+        c: seg.SegmentCollector(ss, w.o.segment_end_fraction, w.o.max_window_samples)
+        for c, ss in segs_by_c.items()
+        if ss
+    }
+    if not cols:
+        return
+    for start, a, _b in w.src.blocks():
+        for c, col in cols.items():
+            col.feed(a[:, c], start)
+        if all(col.done for col in cols.values()):
+            break
+    for col in cols.values():
+        col.finish()
+
+
+def find_edges(
+    w: Work, refs_by_c: dict[int, tuple], limit: int | None = None
+) -> dict[int, list[Edge]]:
+    """One pass: transitions of output channels with the given reference levels (the
+    first ``limit`` of each; the pass stops once every channel has them)."""
+    finders = {c: EdgeFinder(*r) for c, r in refs_by_c.items()}
+    if finders:
+        for start, a, _b in w.src.blocks():
+            for c, f in finders.items():
+                if limit is None or len(f.edges) < limit:
+                    f.feed(a[:, c], start)
+            if limit is not None and all(len(f.edges) >= limit for f in finders.values()):
+                break
+    return {c: f.edges[:limit] for c, f in finders.items()}
+
+
+def min_change(ch: Channel) -> float:
+    """Smallest level change that counts as a transition of this channel."""
+    return NO_CHANGE_FRACTION * (ch.hi - ch.lo)
+
+
+def decide(w: Work, segs: list, ch: Channel, strict: bool = True) -> None:
+    """Each segment's level, its settling judged against the transitions beside it."""
+    meds = [s.median for s in segs]
+    floor = min_change(ch)
+    for i, s in enumerate(segs):
+        amps = [abs(meds[k] - meds[i]) for k in (i - 1, i + 1) if 0 <= k < len(segs)]
+        # a still-approaching end moves away from the level before (the one after,
+        # for the first segment)
+        other = i - 1 if i > 0 else i + 1
+        away = int(np.sign(meds[i] - meds[other])) if 0 <= other < len(segs) else 0
+        s.decide(max(amps + [floor]), w.o.settling_band_pct, away, strict=strict)
+        if w.rest_sample and s.start == 0 and s.length < seg.MIN_END_WINDOW:
+            # the segment before a step at the first sample: only the sample of 0 put
+            # before the record (and the output's first answer-free samples); its level
+            # is the at-rest convention's 0
+            s.level, s.method, s.settled, s.note = 0.0, seg.METHOD_REST, True, None
+
+
+def method_text(m_low: str | None, m_high: str | None, basis: str) -> str:
+    """How a pair of state levels was found, e.g. "segment end (input-aligned)"."""
+    if m_low == m_high:
+        return f"{m_low} ({basis})"
+    return f"low: {m_low}, high: {m_high} ({basis})"
