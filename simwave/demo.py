@@ -4,10 +4,10 @@ Scenario (invented for simwave; every number here is ours): parcels cross the
 weigh platform of a conveyor line, one every 0.4 s, each resting on it for
 0.22 s. The load-cell bridge, after its amplifier and calibration, reads in
 kilograms: the empty platform (tare) reads 0.35 kg, the wiring picks up 50 Hz
-mains hum, and the amplifier adds broadband noise. The controller takes each
-parcel's weight from the filtered signal, so the filter must settle to within
-±0.1 % of the step while the parcel is still on the platform, and it should
-keep the hum out of the reading. Two candidates with the same 15 Hz -3 dB
+mains hum, and the amplifier adds broadband noise. The controller sorts each
+parcel into a weight class from the filtered signal, so the filter must settle
+to within ±1 % of the step while the parcel is still on the platform, and it
+should keep the hum out of the reading. Two candidates with the same 15 Hz -3 dB
 cutoff are compared:
 
 * ``bessel4`` -- 4th-order Bessel low-pass (magnitude-normalized),
@@ -20,6 +20,14 @@ with almost no overshoot, the Butterworth filter's flatter passband and steeper
 roll-off give more stop-band rejection and a ringing step response), and the
 demo shows both sides of the trade on the data.
 
+Why ±1 % and not tighter: after either filter the hum and noise left on the
+reading peak at about 0.1-0.25 % of a 1-2 kg step (measured by the demo on
+every edge and printed with the comparison). A band the disturbance reaches
+cannot show settling (the measurement then gives no settling time, with that
+reason), so the band is chosen several times above the disturbance's peak
+(common practice; the factor :data:`BAND_MARGIN` is our choice), and the demo
+checks the measured disturbance against it and says so when it does not fit.
+
 :func:`build_demo` writes, into a fresh folder: the input recordings (CSV,
 HDF5 and WAV), a system file per candidate, a batch description, the batch
 outputs, metrics and summary (through :mod:`simwave.batch`), and the plots.
@@ -29,6 +37,7 @@ from __future__ import annotations
 
 import math
 import os
+import textwrap
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
@@ -54,7 +63,11 @@ NOISE_KG = 0.0008         # amplifier noise, RMS
 EMPTY_S = 2.0             # length of the empty-belt (hum only) record
 CUTOFF_HZ = 15.0          # -3 dB cutoff of both candidates
 ORDER = 4
-SETTLING_BAND_PCT = 0.1   # weight reading must be within ±0.1 % of the step
+SETTLING_BAND_PCT = 1.0   # weight reading must be within ±1 % of the step (see above)
+#: The band's half-width must be at least this many times the largest disturbance peak
+#: measured beside an edge (a band several times the disturbance is common practice; 3 is
+#: our choice). The demo prints the measured ratio and warns when it is smaller.
+BAND_MARGIN = 3.0
 #: The one settling definition the demo's table and comparison chart both show.
 SETTLING_DEFINITION = (
     f"settling time: from the input's 50 % instant to the last entry into the "
@@ -95,8 +108,10 @@ class DemoResult:
         Role -> list of paths (absolute): ``inputs``, ``systems``, ``description``,
         ``outputs``, ``metrics``, ``summary``, ``plots``, ``report``.
     comparison : dict
-        Candidate -> ``{"overshoot_pct", "settling_time_s", "hum_gain_db",
-        "not_settled", "description"}`` taken from the batch summary rows.
+        Candidate -> ``{"overshoot_pct", "settling_time_s", "settling_time_longest_s",
+        "hum_gain_db", "not_settled", "transitions", "description",
+        "disturbance_peak_pct", "disturbance_peak_input", ...}`` taken from the batch
+        summary rows and the pairs' metrics files.
     elapsed_s : float
         Wall time of the whole demo.
     """
@@ -143,6 +158,7 @@ class DemoResult:
         for r in table:
             lines.append("  " + "   ".join(f"{v:<{w}}" for v, w in zip(r, widths, strict=True))
                          .rstrip())
+        lines.append(self.band_fit())
         lines.append("")
         lines.extend(self.verdict())
         lines.append("")
@@ -151,6 +167,26 @@ class DemoResult:
         lines.append(f"(demo took {self.elapsed_s:.1f} s)")
         lines.append(CAUTION)
         return "\n".join(lines)
+
+    def band_fit(self) -> str:
+        """One line: the settling band against the largest disturbance measured beside an edge
+        (the measured ratio, and a caution when it is below :data:`BAND_MARGIN`)."""
+        worst = max((c for c in self.comparison.values()
+                     if c.get("disturbance_peak_pct") is not None),
+                    key=lambda c: c["disturbance_peak_pct"], default=None)
+        if worst is None:
+            return (f"Settling band \u00b1{SETTLING_BAND_PCT:g} %: no disturbance was measured "
+                    "beside any edge, so its fit to the recordings' noise is not known.")
+        ratio = SETTLING_BAND_PCT / worst["disturbance_peak_pct"]
+        where = f"{worst['name']} on {worst['disturbance_peak_input']}"
+        text = (f"Settling band \u00b1{SETTLING_BAND_PCT:g} %: the largest disturbance measured "
+                f"beside an edge (deviation about its settled levels: hum, noise, ringing left) "
+                f"peaks at {worst['disturbance_peak_pct']:.2f} % "
+                f"of its step ({where}); the band's half-width is {ratio:.1f} times that")
+        if ratio >= BAND_MARGIN:
+            return text + f" (at least {BAND_MARGIN:g} wanted: common practice)."
+        return (text + f"; Caution: less than the {BAND_MARGIN:g} times wanted (common "
+                "practice), so the settling times depend on the noise: widen the band.")
 
     def verdict(self) -> list[str]:
         """Plain sentences on the trade between the candidates, from the numbers."""
@@ -273,7 +309,9 @@ Parcels cross the weigh platform one every {period:g} s and rest on it {dwell_ms
 The load-cell channel reads in kg: {tare:g} kg tare, {hum_hz:g} Hz hum of {hum:g} kg,
 amplifier noise of {noise:g} kg RMS, sampled at {rate:g} Hz. Two smoothing filters
 with the same {fc:g} Hz cutoff are compared: settling to +/-{band:g} % of the step, and
-hum rejection.
+hum rejection. The band is several times the hum and noise left on the reading after
+either filter (common practice: a band the disturbance reaches cannot show settling);
+the demo prints the measured ratio with its comparison.
 
 inputs/      the recordings (CSV, HDF5, WAV): two test-weight runs and the empty belt
 systems/     one TOML system file per candidate filter
@@ -414,8 +452,8 @@ def build_demo(
     comparison_png = os.path.join(dirs["plots"], "comparison.png")
     plot_batch(batch, comparison_png,
                metrics=("overshoot_pct_worst", "settling_time_s_longest", "gain_db"),
-               title=f"weigh station: candidates across the recordings\n"
-                     f"({SETTLING_DEFINITION})")
+               title="weigh station: candidates across the recordings\n"
+                     + textwrap.fill(f"({SETTLING_DEFINITION})", 80))
     res.files["plots"].append(comparison_png)
 
     say("writing the report page")
@@ -449,14 +487,20 @@ def key_comparison(batch: Any) -> dict[str, dict[str, Any]]:
         steps = [r for r in mine if r.get("kind") == "transitions"]
         hum = [r for r in mine if r.get("kind") == "sine"]
         arrivals: list[dict[str, Any]] = []
+        # the largest disturbance peak beside an edge, in % of that edge's step, and where
+        noise_pct, noise_input = None, None
         for pair in batch.plan.pairs:
             if pair.system.name != name or not os.path.exists(pair.metrics):
                 continue
             with open(pair.metrics, encoding="utf-8") as fh:
                 doc = json.load(fh)
             for ch in (doc.get("metrics") or {}).get("channels", []):
-                arrivals += [t for t in ch.get("transitions") or []
-                             if t.get("direction") == "rising"]
+                edges = ch.get("transitions") or []
+                arrivals += [t for t in edges if t.get("direction") == "rising"]
+                for t in edges:
+                    pct = _disturbance_pct(t)
+                    if pct is not None and (noise_pct is None or pct > noise_pct):
+                        noise_pct, noise_input = pct, os.path.basename(pair.input.source)
         out[name] = {
             "description": CANDIDATES[name][1],
             "overshoot_pct": _worst("overshoot_pct_worst", steps),
@@ -472,8 +516,21 @@ def key_comparison(batch: Any) -> dict[str, dict[str, Any]]:
             "transitions": sum(int(r.get("transitions") or 0) for r in steps),
             "hum_gain_db": _worst("gain_db", hum),
             "hum_gain_db_predicted": _worst("predicted_gain_db", hum),
+            "name": name,
+            "disturbance_peak_pct": noise_pct,
+            "disturbance_peak_input": noise_input,
         }
     return out
+
+
+def _disturbance_pct(edge: dict[str, Any]) -> float | None:
+    """An edge's measured disturbance peak in percent of its step, or None when either is
+    not measured."""
+    peak = edge.get("disturbance_peak")
+    amp = (edge.get("state_levels") or {}).get("amplitude")
+    if not isinstance(peak, (int, float)) or not isinstance(amp, (int, float)) or not amp:
+        return None
+    return 100.0 * peak / abs(amp)
 
 
 __all__ = ["build_demo", "DemoResult", "parcel_signal", "key_comparison", "check_folder",
