@@ -8,7 +8,16 @@ step's own high-water mark (the import of simwave alone is printed first: every 
 
 Target: every record measured in <= 3 s and <= 200 MB peak on a 2-core machine.
 
-Usage: python benchmarks/bench_measure.py [--minutes 10] [--keep] [--dir DIR] [--only sine,...]
+Short pairs (what a batch measures per pair): a 0.05-s 48 kHz output (2,400 samples, one
+step through a second-order low-pass) measured against its input, given as arrays and as
+two WAV files, in one process, beside a plain read of the two files
+(``soundfile.read`` twice). Target: <= 4 ms per pair either way.
+
+Usage: python benchmarks/bench_measure.py [--minutes 10] [--keep] [--dir DIR]
+       [--only sine,steps,noise,short] [--pairs 200] [--baseline DIR]
+
+``--baseline DIR``: an older checkout (``git archive <commit> | tar -x -C DIR``) whose
+``simwave.measure`` runs beside this one's in the same session (before/after).
 """
 
 from __future__ import annotations
@@ -75,9 +84,79 @@ done(kind=ch["kind"], transitions=len(ch.get("transitions") or []))
 }
 
 
-def _run(code: str, path: str) -> dict:
+SHORT = """
+import numpy as np, soundfile as sf, time, simwave
+from scipy import signal
+from simwave import Waveform
+rate, n, d, pairs = 48000, 2400, {d!r}, {pairs}
+x = np.zeros(n)
+x[600:] = 1.0
+y = signal.sosfilt(signal.butter(2, 2000, fs=rate, output="sos"), x)
+fx, fy = d + "/short-x.wav", d + "/short-y.wav"
+sf.write(fx, x.astype(np.float32), rate, subtype="FLOAT")
+sf.write(fy, y.astype(np.float32), rate, subtype="FLOAT")
+xw, yw = Waveform(sf.read(fx)[0], rate), Waveform(sf.read(fy)[0], rate)
+steps = {{
+    "plain read of the two files (soundfile.read x 2)": lambda: (sf.read(fx), sf.read(fy)),
+    "simwave.measure, arrays": lambda: simwave.measure(yw, reference=xw),
+    "simwave.measure, file paths": lambda: simwave.measure(fy, reference=fx),
+}}
+out = {{}}
+for name, f in steps.items():
+    f()
+for rnd in range(3):  # interleaved rounds: the machine's load falls on every step alike
+    for name, f in steps.items():
+        t = time.perf_counter()
+        for _ in range(pairs):
+            f()
+        out.setdefault(name, []).append((time.perf_counter() - t) / pairs)
+print(__import__("json").dumps({{k: min(v) for k, v in out.items()}}))
+"""
+
+
+HERE = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+
+
+def _env(pythonpath: str | None) -> dict:
+    """This checkout (or the baseline's) first on the path; the steps run in the data folder,
+    so the current directory cannot put another checkout first."""
+    return dict(os.environ, PYTHONPATH=os.path.abspath(pythonpath or HERE))
+
+
+def _short(d: str, pairs: int, baseline: str | None = None) -> None:
+    if baseline is not None:
+        print(f"\n(baseline checkout {baseline})", end="")
+        _short(d, pairs)
+        print("\n(this checkout)", end="")
+    res = subprocess.run(
+        [sys.executable, "-c", SHORT.format(d=d, pairs=pairs)],
+        capture_output=True,
+        text=True,
+        env=_env(baseline),
+        cwd=d,
+    )
+    if res.returncode != 0:
+        print("short pairs failed:", (res.stderr.strip().splitlines() or ["?"])[-1])
+        return
+    r = json.loads(res.stdout.strip().splitlines()[-1])
+    print(f"\nshort pair: 2,400 samples at {RATE} Hz, one step, output against input "
+          "(best of 3 interleaved rounds)")
+    base = r["plain read of the two files (soundfile.read x 2)"]
+    for name, sec in r.items():
+        print(f"  {name:50s} {1e3 * sec:7.2f} ms  ({sec / base:.1f}x the plain read)")
+    worst = max(r["simwave.measure, arrays"], r["simwave.measure, file paths"])
+    print(f"  target <= 4 ms per pair: {'met' if worst <= 0.004 else 'NOT met'}")
+
+
+def _run(code: str, path: str, pythonpath: str | None = None) -> dict:
     prog = PRELUDE + f"P = {path!r}\n" + textwrap.dedent(code)
-    res = subprocess.run([sys.executable, "-c", prog], capture_output=True, text=True)
+    res = subprocess.run(
+        [sys.executable, "-c", prog],
+        capture_output=True,
+        text=True,
+        env=_env(pythonpath),
+        cwd=os.path.dirname(os.path.abspath(path)) if path else None,
+    )
     if res.returncode != 0:
         return {"error": (res.stderr.strip().splitlines() or ["?"])[-1]}
     return json.loads(res.stdout.strip().splitlines()[-1])
@@ -88,7 +167,9 @@ def main() -> None:
     ap.add_argument("--minutes", type=float, default=10.0)
     ap.add_argument("--keep", action="store_true")
     ap.add_argument("--dir", default=None)
-    ap.add_argument("--only", default="sine,steps,noise")
+    ap.add_argument("--only", default="sine,steps,noise,short")
+    ap.add_argument("--pairs", type=int, default=200)
+    ap.add_argument("--baseline", default=None)
     a = ap.parse_args()
     d = a.dir or tempfile.mkdtemp(prefix="simwave-bench-measure-")
     os.makedirs(d, exist_ok=True)
@@ -97,15 +178,22 @@ def main() -> None:
         print(f"import simwave alone: {imp.get('seconds', 0):.2f} s, "
               f"{imp.get('peak_mb', 0):.0f} MB")
         for kind in a.only.split(","):
+            if kind == "short":
+                _short(d, a.pairs, a.baseline)
+                continue
             path = os.path.join(d, f"{kind}-{a.minutes:g}min.wav")
             if not os.path.exists(path):
                 code = MAKE.format(rate=RATE, minutes=a.minutes, kind=kind, path=path)
                 subprocess.run([sys.executable, "-c", code], check=True)
             base = _run(STEPS["one whole-file pass (soundfile.read + sum, baseline)"], path)
             meas = _run(STEPS["simwave.measure"], path)
+            rows = [("baseline: one whole-file pass", base), ("simwave.measure", meas)]
+            if a.baseline is not None:
+                old = _run(STEPS["simwave.measure"], path, a.baseline)
+                rows.append(("simwave.measure, --baseline", old))
             size = os.path.getsize(path) / 1e6
             print(f"\n{kind}: {a.minutes:g} min at {RATE} Hz ({size:.0f} MB)")
-            for name, r in (("baseline: one whole-file pass", base), ("simwave.measure", meas)):
+            for name, r in rows:
                 if "error" in r:
                     print(f"  {name:32s} failed: {r['error']}")
                     continue
@@ -118,6 +206,12 @@ def main() -> None:
                     f"peak memory {meas['peak_mb'] / base['peak_mb']:.2f}x; target <= 3 s and "
                     f"<= 200 MB: {'met' if met else 'NOT met'}"
                 )
+                if a.baseline is not None and "error" not in old:
+                    print(
+                        f"  this checkout / baseline checkout: time "
+                        f"{meas['seconds'] / old['seconds']:.2f}x, peak memory "
+                        f"{meas['peak_mb'] / old['peak_mb']:.2f}x"
+                    )
     finally:
         if not a.keep and a.dir is None:
             shutil.rmtree(d, ignore_errors=True)

@@ -2,8 +2,10 @@
 
 A measurement makes several passes over the record (range, histogram, transitions,
 regions). Each pass asks :class:`MeasureSource` for aligned blocks of the measured
-channels and the reference channels; for a file every pass reads it again in blocks
-through :func:`simwave.blocks`, so nothing but one block per stream is held.
+channels and the reference channels. A file of at most ``IN_MEMORY_VALUES`` values
+(samples x channels) is read once, when the source is opened, and every pass slices that
+copy; a longer file is read again in blocks through :func:`simwave.blocks` by every pass,
+so nothing but one block per stream is held. Either way the passes see the same blocks.
 """
 
 from __future__ import annotations
@@ -18,6 +20,12 @@ from simwave.errors import MeasurementError
 from simwave.signals.waveform import Waveform
 
 PathLike = (str, os.PathLike)
+
+#: A file holding at most this many values (samples x channels, 32 MB as float64) is read
+#: into memory once instead of once per pass (our choice: a short record's passes cost
+#: little next to opening and decoding its file each time; a long one must stream to
+#: keep memory bounded).
+IN_MEMORY_VALUES = 1 << 22
 
 
 def _read_module():
@@ -68,15 +76,18 @@ class _Stream:
         self.block_size = block_size
         self.read_options = read_options
         self.columns = columns
+        self.memory: np.ndarray | None = None  # a short file's samples, read once
         if isinstance(obj, Waveform):
             first = obj
             path = None
         elif isinstance(obj, PathLike):
             path = os.fspath(obj)
             label = path
-            first = next(iter(_file_blocks(path, block_size, read_options)), None)
+            pieces = _file_blocks(path, block_size, read_options)
+            first = next(pieces, None)
             if first is None:
                 raise MeasurementError(f"{path}: the file holds no samples")
+            self.memory = _read_if_short(first, pieces)
         else:
             raise MeasurementError(
                 f"{label} must be a Waveform or a file path, got {type(obj).__name__}"
@@ -109,17 +120,39 @@ class _Stream:
     def arrays(self) -> Iterator[np.ndarray]:
         if self.rest_sample:
             yield np.zeros((1, len(self.info.channels)))
-        if isinstance(self.obj, Waveform):
-            data = self.obj.data
+        data = self.memory if self.memory is not None else getattr(self.obj, "data", None)
+        if data is not None:
             for a in range(0, data.shape[0], self.block_size):
                 blk = data[a : a + self.block_size]
                 yield blk if self.columns is None else blk[:, self.columns]
             return
         for piece in _file_blocks(self.obj, self.block_size, self.read_options):
-            blk = np.asarray(piece.data, dtype=np.float64)
-            if blk.ndim == 1:
-                blk = blk[:, None]
+            blk = _as_2d(piece)
             yield blk if self.columns is None else blk[:, self.columns]
+
+
+def _as_2d(piece: Waveform) -> np.ndarray:
+    blk = np.asarray(piece.data, dtype=np.float64)
+    return blk[:, None] if blk.ndim == 1 else blk
+
+
+def _read_if_short(first: Waveform, rest: Iterator[Waveform]) -> np.ndarray | None:
+    """The whole file as one ``(n, n_channels)`` float64 array when it holds at most
+    ``IN_MEMORY_VALUES`` values, else None (the blocks read so far are dropped and the
+    file closed; every pass then streams it)."""
+    parts = [_as_2d(first)]
+    total = parts[0].size
+    try:
+        for piece in rest:
+            parts.append(_as_2d(piece))
+            total += parts[-1].size
+            if total > IN_MEMORY_VALUES:
+                return None
+    finally:
+        close = getattr(rest, "close", None)
+        if close is not None:
+            close()
+    return np.concatenate(parts) if len(parts) > 1 else parts[0]
 
 
 def _aligned(
