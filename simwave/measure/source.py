@@ -10,6 +10,7 @@ so nothing but one block per stream is held. Either way the passes see the same 
 
 from __future__ import annotations
 
+import itertools
 import os
 from dataclasses import dataclass
 from typing import Any, Iterator
@@ -21,11 +22,11 @@ from simwave.signals.waveform import Waveform
 
 PathLike = (str, os.PathLike)
 
-#: A file holding at most this many values (samples x channels, 32 MB as float64) is read
+#: A file holding at most this many values (samples x channels, 16 MB as float64) is read
 #: into memory once instead of once per pass (our choice: a short record's passes cost
 #: little next to opening and decoding its file each time; a long one must stream to
-#: keep memory bounded).
-IN_MEMORY_VALUES = 1 << 22
+#: keep memory bounded). The blocks read to find out are the first pass's first blocks.
+IN_MEMORY_VALUES = 1 << 21
 
 
 def _read_module():
@@ -77,6 +78,9 @@ class _Stream:
         self.read_options = read_options
         self.columns = columns
         self.memory: np.ndarray | None = None  # a short file's samples, read once
+        # a long file: the blocks read while finding out, and the open reader after them
+        # (the first pass continues from there instead of reading them again)
+        self._pending: tuple[list, Iterator[Waveform]] | None = None
         if isinstance(obj, Waveform):
             first = obj
             path = None
@@ -87,7 +91,7 @@ class _Stream:
             first = next(pieces, None)
             if first is None:
                 raise MeasurementError(f"{path}: the file holds no samples")
-            self.memory = _read_if_short(first, pieces)
+            self.memory, self._pending = _read_if_short(first, pieces)
         else:
             raise MeasurementError(
                 f"{label} must be a Waveform or a file path, got {type(obj).__name__}"
@@ -104,6 +108,7 @@ class _Stream:
     def select(self, columns: list[int]) -> "_Stream":
         s = _Stream.__new__(_Stream)
         s.__dict__.update(self.__dict__)
+        s._pending = None  # two selections cannot share one open reader
         s.columns = columns
         s.first_row = self.first_row[columns]
         s.first_rows = self.first_rows[:, columns]
@@ -126,8 +131,13 @@ class _Stream:
                 blk = data[a : a + self.block_size]
                 yield blk if self.columns is None else blk[:, self.columns]
             return
-        for piece in _file_blocks(self.obj, self.block_size, self.read_options):
-            blk = _as_2d(piece)
+        if self._pending is not None:
+            read, rest = self._pending
+            self._pending = None
+            pieces: Iterator = itertools.chain(read, (_as_2d(p) for p in rest))
+        else:
+            pieces = (_as_2d(p) for p in _file_blocks(self.obj, self.block_size, self.read_options))
+        for blk in pieces:
             yield blk if self.columns is None else blk[:, self.columns]
 
 
@@ -136,23 +146,20 @@ def _as_2d(piece: Waveform) -> np.ndarray:
     return blk[:, None] if blk.ndim == 1 else blk
 
 
-def _read_if_short(first: Waveform, rest: Iterator[Waveform]) -> np.ndarray | None:
-    """The whole file as one ``(n, n_channels)`` float64 array when it holds at most
-    ``IN_MEMORY_VALUES`` values, else None (the blocks read so far are dropped and the
-    file closed; every pass then streams it)."""
+def _read_if_short(
+    first: Waveform, rest: Iterator[Waveform]
+) -> tuple[np.ndarray | None, tuple[list, Iterator[Waveform]] | None]:
+    """``(samples, None)``: the whole file as one ``(n, n_channels)`` float64 array when it
+    holds at most ``IN_MEMORY_VALUES`` values; else ``(None, (blocks read, open reader))``
+    for the first pass to continue from."""
     parts = [_as_2d(first)]
     total = parts[0].size
-    try:
-        for piece in rest:
-            parts.append(_as_2d(piece))
-            total += parts[-1].size
-            if total > IN_MEMORY_VALUES:
-                return None
-    finally:
-        close = getattr(rest, "close", None)
-        if close is not None:
-            close()
-    return np.concatenate(parts) if len(parts) > 1 else parts[0]
+    for piece in rest:
+        parts.append(_as_2d(piece))
+        total += parts[-1].size
+        if total > IN_MEMORY_VALUES:
+            return None, (parts, rest)
+    return (np.concatenate(parts) if len(parts) > 1 else parts[0]), None
 
 
 def _aligned(

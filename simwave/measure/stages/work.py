@@ -31,6 +31,8 @@ FIT_MAX = 1 << 16
 #: A level change smaller than this fraction of the channel's range is no transition
 #: (input-aligned segments: the output did not follow that input transition; our choice).
 NO_CHANGE_FRACTION = 0.05
+#: Samples per piece fed to an edge finder looking for only the first few transitions.
+LIMITED_PIECE = 4096
 
 
 @dataclass
@@ -48,17 +50,18 @@ def scan(arrays, label: str, channels: list[str], rate: float, t0: float) -> Sca
     """Pass 1: sample count, range, sums; stops at the first NaN or infinity."""
     s = Scan()
     for blk in arrays:
-        bad = ~np.isfinite(blk)
-        if bad.any():
-            r, c = np.argwhere(bad)[0]
+        if blk.shape[0] == 0:
+            continue
+        lo, hi = blk.min(axis=0), blk.max(axis=0)
+        if not (np.isfinite(lo).all() and np.isfinite(hi).all()):
+            # a NaN makes the minimum NaN, an infinity the minimum or maximum infinite: only
+            # then is the block searched for the first one
+            r, c = np.argwhere(~np.isfinite(blk))[0]
             i = s.n + int(r)
             raise MeasurementError(
                 f"{label}: channel {channels[c]!r}, sample {i} (t = {t0 + i / rate:.6g} s): "
                 f"value is {blk[r, c]!r}; measurements need finite samples"
             )
-        if blk.shape[0] == 0:
-            continue
-        lo, hi = blk.min(axis=0), blk.max(axis=0)
         if s.lo is None:
             s.lo, s.hi = lo, hi
             s.sum, s.sumsq = blk.sum(axis=0), (blk * blk).sum(axis=0)
@@ -199,11 +202,17 @@ def find_edges(
     """One pass: transitions of output channels with the given reference levels (the
     first ``limit`` of each; the pass stops once every channel has them)."""
     finders = {c: EdgeFinder(*r) for c, r in refs_by_c.items()}
+    # with a limit, a block is fed in pieces, so that a channel that crosses its levels
+    # thousands of times in one block (noise) stops at the limit (the finder carries its
+    # state between pieces: the same transitions in any split)
     if finders:
         for start, a, _b in w.src.blocks():
+            piece = a.shape[0] if limit is None else LIMITED_PIECE
             for c, f in finders.items():
-                if limit is None or len(f.edges) < limit:
-                    f.feed(a[:, c], start)
+                for s0 in range(0, a.shape[0], piece):
+                    if limit is not None and len(f.edges) >= limit:
+                        break
+                    f.feed(a[s0 : s0 + piece, c], start + s0)
             if limit is not None and all(len(f.edges) >= limit for f in finders.values()):
                 break
     return {c: f.edges[:limit] for c, f in finders.items()}
