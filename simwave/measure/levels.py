@@ -12,8 +12,8 @@ from dataclasses import dataclass
 from typing import Sequence
 
 import numpy as np
+from scipy import fft as sp_fft
 from scipy.ndimage import gaussian_filter1d
-from scipy.signal import fftconvolve
 
 from simwave.errors import MeasurementError
 
@@ -89,6 +89,7 @@ class LevelHistogram:
         self.sums = np.zeros((self.lo.size, self.n_bins), dtype=np.float64)
         span = self.hi - self.lo
         self._scale = np.where(span > 0, self.n_bins / np.where(span > 0, span, 1.0), 0.0)
+        self._centers: dict[int, np.ndarray] = {}
 
     def add(self, block: np.ndarray) -> None:
         """Add a block of samples, shape ``(n, n_channels)``."""
@@ -99,9 +100,14 @@ class LevelHistogram:
             self.sums[c] += np.bincount(idx, weights=block[:, c], minlength=self.n_bins)
 
     def centers(self, c: int) -> np.ndarray:
-        """Bin centres of channel ``c`` (signal units)."""
-        w = (self.hi[c] - self.lo[c]) / self.n_bins
-        return self.lo[c] + (np.arange(self.n_bins) + 0.5) * w
+        """Bin centres of channel ``c`` (signal units; computed once, read-only)."""
+        cache = self._centers
+        if c not in cache:
+            w = (self.hi[c] - self.lo[c]) / self.n_bins
+            x = self.lo[c] + (np.arange(self.n_bins) + 0.5) * w
+            x.flags.writeable = False
+            cache[c] = x
+        return cache[c]
 
     def fraction_near(self, c: int, levels: Sequence[float], half_width: float) -> float:
         """Fraction of the samples within ``half_width`` of any of ``levels``."""
@@ -113,8 +119,11 @@ class LevelHistogram:
         return float(self.counts[c][near].sum() / total) if total else 0.0
 
 
-def _weighted_quantile(x: np.ndarray, w: np.ndarray, q: float) -> float:
-    cw = np.cumsum(w)
+def _weighted_quantile(
+    x: np.ndarray, w: np.ndarray, q: float, cw: np.ndarray | None = None
+) -> float:
+    """The ``q`` quantile of ``x`` weighted by ``w`` (``cw``: ``np.cumsum(w)`` if known)."""
+    cw = np.cumsum(w) if cw is None else cw
     return float(x[min(int(np.searchsorted(cw, q * cw[-1])), x.size - 1)])
 
 
@@ -132,7 +141,23 @@ def _smoothed(w: np.ndarray, h_bins: float) -> np.ndarray:
     if radius < 64:
         return gaussian_filter1d(w, h_bins, mode="constant")
     k = np.exp(-0.5 * (np.arange(-radius, radius + 1) / h_bins) ** 2)
-    return fftconvolve(w, k / k.sum(), mode="same")
+    return fft_convolve_same(w, k / k.sum())
+
+
+def fft_convolve_same(a: np.ndarray, k: np.ndarray) -> np.ndarray:
+    """Linear convolution of 1-D ``a`` and ``k`` by FFT, the central ``a.size`` points.
+
+    The same steps as ``scipy.signal.fftconvolve(a, k, mode="same")`` (real FFTs of the
+    next fast length, product, inverse, centred slice), so the two agree bit for bit
+    (tests/test_measure_windows.py), without importing scipy.signal (about a second on a
+    loaded machine, paid by every process that measures).
+    """
+    n = a.size + k.size - 1
+    nf = sp_fft.next_fast_len(n, True)
+    spec = sp_fft.rfftn(a, [nf], axes=[0]) * sp_fft.rfftn(k, [nf], axes=[0])
+    full = sp_fft.irfftn(spec, [nf], axes=[0])[:n]
+    start = (n - a.size) // 2
+    return full[start : start + a.size]
 
 
 def _silverman_bandwidth(w: np.ndarray, x: np.ndarray) -> float:
@@ -146,7 +171,8 @@ def _silverman_bandwidth(w: np.ndarray, x: np.ndarray) -> float:
     n = float(w.sum())
     mean = float(np.sum(w * x) / n)
     sd = math.sqrt(max(float(np.sum(w * (x - mean) ** 2) / n), 0.0))
-    iqr = _weighted_quantile(x, w, 0.75) - _weighted_quantile(x, w, 0.25)
+    cw = np.cumsum(w)
+    iqr = _weighted_quantile(x, w, 0.75, cw) - _weighted_quantile(x, w, 0.25, cw)
     spread = min(sd, iqr / 1.34) if iqr > 0 else sd
     return 0.9 * spread * n ** (-0.2)
 

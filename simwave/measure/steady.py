@@ -10,9 +10,30 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.signal import windows
 
 from simwave.errors import MeasurementError
+
+
+#: Periodic (DFT-even) sum-of-cosines windows: Hann and the 4-term Blackman-Harris (F. J.
+#: Harris, "On the use of windows for harmonic analysis with the discrete Fourier
+#: transform", Proc. IEEE 66(1), 1978).
+HANN = (0.5, 0.5)
+BLACKMAN_HARRIS_4 = (0.35875, 0.48829, 0.14128, 0.01168)
+
+
+def cosine_window(n: int, coeffs: tuple) -> np.ndarray:
+    """Periodic sum-of-cosines window of ``n`` points: sum_k a_k cos(k x), x from -pi in
+    ``n + 1`` equal steps, the last point dropped (Harris 1978). Evaluated in the same
+    order as ``scipy.signal.windows.general_cosine(n, coeffs, sym=False)``, so the two
+    agree bit for bit (tests/test_measure_windows.py), without importing scipy.signal
+    (about a second on a loaded machine) for two windows."""
+    if n <= 1:
+        return np.ones(n)
+    x = np.linspace(-np.pi, np.pi, n + 1, dtype=np.float64)
+    w = np.zeros(n + 1, dtype=np.float64)
+    for k, a in enumerate(np.asarray(coeffs, dtype=np.float64)):
+        w += a * np.cos(k * x)
+    return w[:-1]
 
 
 @dataclass
@@ -232,7 +253,7 @@ def spectrum_peak_hz(y: np.ndarray, rate: float) -> float:
     parabolic and Gaussian spectrum interpolation", AIP Conf. Proc. 732, 2004.
     """
     n = y.size
-    spec = np.abs(np.fft.rfft((y - np.mean(y)) * windows.hann(n, sym=False)))
+    spec = np.abs(np.fft.rfft((y - np.mean(y)) * cosine_window(n, HANN)))
     if spec.size < 3:
         raise MeasurementError("window too short for a spectrum")
     k = int(np.argmax(spec[1:])) + 1
@@ -261,7 +282,7 @@ def find_tones(
     Fourier transform", Proc. IEEE 66(1), 1978 (4-term Blackman-Harris window).
     """
     n = y.size
-    win = windows.blackmanharris(n, sym=False)
+    win = cosine_window(n, BLACKMAN_HARRIS_4)
     # remove the window-weighted mean: it takes out the offset's main lobe exactly, where
     # the plain mean of a non-integer number of cycles would leave a false low tone
     spec = np.abs(np.fft.rfft((y - np.dot(win, y) / win.sum()) * win))
