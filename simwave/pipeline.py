@@ -81,6 +81,7 @@ class WriteBehind:
         self._write = write
         self._q: queue.Queue = queue.Queue(maxsize=max(1, depth))
         self._error: BaseException | None = None
+        self._dropping = False
         self._thread = threading.Thread(target=self._run, name="simwave-write-behind", daemon=True)
         self._thread.start()
 
@@ -89,7 +90,7 @@ class WriteBehind:
             item = self._q.get()
             if item is _DONE:
                 return
-            if self._error is None:
+            if self._error is None and not self._dropping:
                 try:
                     self._write(item)
                 except BaseException as exc:  # noqa: BLE001 - re-raised in submit/close
@@ -106,6 +107,13 @@ class WriteBehind:
         if self._error is not None:
             raise self._error
 
+    def abort(self) -> None:
+        """Drop what is still queued and wait for the thread to end (the run failed or was
+        stopped: nothing more is written, and no thread outlives the run)."""
+        self._dropping = True
+        self._q.put(_DONE)
+        self._thread.join()
+
 
 class WriteNow:
     """The same interface as :class:`WriteBehind`, writing on the caller's thread.
@@ -121,4 +129,7 @@ class WriteNow:
         self._write(item)
 
     def close(self) -> None:
+        pass
+
+    def abort(self) -> None:
         pass

@@ -482,6 +482,7 @@ def simulate(
     state = None
     n_in = 0
     in_peak = np.zeros(src.n_channels)
+    blocks_in = None
     try:
         up = Upsampler(factor, hold=(method == "step-invariant")) if factor > 1 else None
         dec: Decimator | None = None
@@ -531,6 +532,12 @@ def simulate(
     except BaseException:
         sink.abort()
         raise
+    finally:
+        # Stop the read-ahead thread now, not when the generator is collected: a stop
+        # signal would otherwise leave it reading while the interpreter shuts down.
+        close = getattr(blocks_in, "close", None)
+        if close is not None:
+            close()
     done = sink.done
 
     if output is not None:
@@ -654,10 +661,7 @@ class _Sink:
     def abort(self) -> None:
         if self._writer is None:
             return
-        try:
-            self._behind.close()
-        except BaseException:  # noqa: BLE001, S110 - the run's own error is the one to report
-            pass
+        self._behind.abort()
         self._writer.abort()
         self._writer = None
 

@@ -97,3 +97,43 @@ def test_write_behind_keeps_order_and_reports_errors():
     wb.submit(1)
     with pytest.raises(OSError, match="disk full"):
         wb.close()
+
+
+def test_write_behind_abort_drops_the_queue_and_ends_its_thread():
+    import threading
+
+    seen, gate = [], threading.Event()
+
+    def slow(item):
+        gate.wait(5)
+        seen.append(item)
+
+    wb = WriteBehind(slow, depth=2)
+    for i in range(3):  # one being written, two queued
+        wb.submit(i)
+    gate.set()
+    wb.abort()
+    assert not wb._thread.is_alive()
+    assert seen == [0]  # the queued blocks were dropped, not written
+
+
+def test_a_failed_run_leaves_no_pipeline_thread(tmp_path):
+    # A run stopped by an error (or a stop signal) must not leave the read-ahead thread
+    # reading while the interpreter goes on to shut down: a thread still inside an
+    # extension at shutdown can crash the process.
+    import threading
+
+    import soundfile as sf
+
+    import simwave
+    from simwave.errors import SimwaveError
+    from simwave.run import DEFAULT_BLOCK
+
+    path = tmp_path / "in.wav"
+    sf.write(path, np.ones(6 * DEFAULT_BLOCK), 48000, subtype="DOUBLE")
+    with pytest.raises(SimwaveError), pytest.warns(UserWarning, match="unstable"):
+        # 1/(s - 1000) grows past float64 within the record
+        simwave.simulate("1/(s - 1000)", str(path), output=str(tmp_path / "out.wav"))
+    names = {t.name for t in threading.enumerate()}
+    assert not names & {"simwave-read-ahead", "simwave-write-behind"}
+    assert not (tmp_path / "out.wav").exists()

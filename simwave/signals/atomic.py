@@ -117,7 +117,7 @@ _LIVE: set[str] = set()
 
 
 @contextlib.contextmanager
-def _stop_signals_held() -> Iterator[None]:
+def stop_signals_held() -> Iterator[None]:
     """Hold SIGINT/SIGTERM/SIGHUP for a few statements (main thread, POSIX), so a stop
     cannot fall between creating a temporary file and registering it."""
     import signal
@@ -172,7 +172,7 @@ class AtomicTarget:
         base = os.path.basename(self.path)
         _, ext = os.path.splitext(base)
         try:
-            with _stop_signals_held():  # created and registered, or neither
+            with stop_signals_held():  # created and registered, or neither
                 self._fd, self.tmp = tempfile.mkstemp(prefix=f".{base}.", suffix=f".part{ext}",
                                                       dir=directory)
                 _LIVE.add(self.tmp)
