@@ -22,6 +22,7 @@ round, this tree and (with ``--baseline DIR``) an older checkout.
 from __future__ import annotations
 
 import argparse
+import json
 import os
 import shutil
 import subprocess
@@ -61,6 +62,47 @@ t0 = time.perf_counter()
 for _ in range(n):
     simwave.measure(out, reference=ref)
 print((time.perf_counter() - t0) / n)
+"""
+
+
+SPLIT = r"""
+import glob, json, os, sys, time, warnings
+warnings.simplefilter("ignore")
+import numpy as np, scipy.signal, soundfile
+import simwave
+from simwave.run import RunJob, execute
+data, out, text, n = sys.argv[1], sys.argv[2], sys.argv[3], int(sys.argv[4])
+os.makedirs(out, exist_ok=True)
+files = sorted(glob.glob(os.path.join(data, "*.wav")))[:n]
+system = simwave.System.parse(text)
+sos = system.discretize(48000.0, "ramp-invariant").sos
+def target(i, ext):
+    return os.path.join(out, f"{i:05d}.{ext}")
+def plain():
+    for i, path in enumerate(files):
+        x, rate = soundfile.read(path, always_2d=True)
+        soundfile.write(target(i, "wav"), scipy.signal.sosfilt(sos, x, axis=0), rate,
+                        subtype="FLOAT")
+def run_only():
+    for i, path in enumerate(files):
+        execute(RunJob(system=system, source=path, output=target(i, "wav")))
+def run_and_measure():
+    for i, path in enumerate(files):
+        execute(RunJob(system=system, source=path, output=target(i, "wav"),
+                       metrics=target(i, "json")))
+def measure_only():
+    for y, x in held:
+        simwave.measure(y, reference=x, system=system, rest_before_record=True)
+times = {}
+run_and_measure()  # warm: models cached, files exist (the batch replaces them too)
+held = [(simwave.read(target(i, "wav")), simwave.read(p)) for i, p in enumerate(files)]
+for _ in range(3):
+    for name, f in (("plain", plain), ("run", run_only), ("all", run_and_measure),
+                    ("measure", measure_only)):
+        t0 = time.perf_counter()
+        f()
+        times[name] = min(times.get(name, 1e9), (time.perf_counter() - t0) / len(files))
+print(json.dumps(times))
 """
 
 
@@ -127,6 +169,12 @@ def main() -> None:
             env=tree_env(), cwd=NEUTRAL_DIR, check=True, capture_output=True, text=True
         ).stdout.split()[-1])
 
+        split = json.loads(subprocess.run(
+            [python(), "-c", SPLIT, short, os.path.join(root, "split"), SYSTEMS[0],
+             str(min(args.files, 200))],
+            env=tree_env(), cwd=NEUTRAL_DIR, check=True, capture_output=True, text=True
+        ).stdout.split("\n")[-2])
+
         n, j = args.files, args.jobs
         plain_ms = best["plain"] / n * 1e3
         print(f"1. {n} short WAVs (0.05 s, 48 kHz) x 1 system, output + metrics JSON, "
@@ -144,6 +192,16 @@ def main() -> None:
             print(f"   now / before = {best['short before'] / best['short now']:.2f}x pairs/s")
         print(f"   measuring one short output against its input (simwave.measure, this tree): "
               f"{measure_s * 1e3:.1f} ms per pair")
+        ms = {k: v * 1e3 for k, v in split.items()}
+        print(f"   where a short pair's time goes, in one process (this tree, best of 3 over "
+              f"{min(args.files, 200)} files), ms/pair:")
+        print(f"     plain read/sosfilt/write {ms['plain']:6.2f} | simwave run (model, "
+              f"checks, output, report) {ms['run']:6.2f} | + measuring and metrics JSON "
+              f"{ms['all'] - ms['run']:6.2f}, of which simwave.measure in memory "
+              f"{ms['measure']:6.2f}, reading back and JSON "
+              f"{ms['all'] - ms['run'] - ms['measure']:6.2f}")
+        print(f"     total {ms['all']:6.2f} ms/pair in process = "
+              f"{j * 1e3 / ms['all']:.0f} pairs/s on {j} workers before pool and start-up costs")
         m = args.long_files * len(SYSTEMS)
         print(f"2. {args.long_files} WAVs of 10 s x {len(SYSTEMS)} systems = {m} pairs, "
               f"--jobs {j}")

@@ -96,3 +96,32 @@ def test_model_warnings_are_counted_in_the_terminal_summary(tmp_path):
                "-o", tmp_path / "w", "-j", "1", "--force")
     n = sum(len(row["warnings"].split(" | ")) for row in rows)
     assert f"warnings: {n} from 2 pair(s)" in r.output and doc["counts"]["ok"] == 2
+
+
+_NO_SIGNAL_IN_PARENT = r"""
+import sys
+from simwave.batch.plan import quick_plan
+from simwave.batch.runner import run_batch
+plan = quick_plan(["1/(1m*s + 1)"], ["step:rate=8k,duration=0.05,time=5m",
+                                     "step:rate=8k,duration=0.05,time=10m"], sys.argv[1])
+result = run_batch(plan, jobs=2)
+print(result.counts["ok"], "scipy.signal" in sys.modules)
+"""
+
+
+def test_batch_process_leaves_scipy_signal_to_the_workers(tmp_path):
+    # scipy.signal takes seconds to import here; the pool's forkserver imports it once
+    # (engines.WORKER_PRELOAD) and the batch process, which only plans and collects, not at
+    # all. Both pairs must still run and be measured by the workers.
+    import subprocess
+    import sys
+
+    from faultkit import env
+
+    done = subprocess.run([sys.executable, "-c", _NO_SIGNAL_IN_PARENT, str(tmp_path / "out")],
+                          cwd=str(tmp_path), env=env(), capture_output=True, text=True,
+                          timeout=300)
+    assert done.returncode == 0, done.stderr[-2000:]
+    assert done.stdout.split() == ["2", "False"]
+    metrics = sorted(p.name for p in (tmp_path / "out").glob("*.json") if "summary" not in p.name)
+    assert len(metrics) == 2

@@ -95,13 +95,22 @@ def worker_thread_limits(jobs: int) -> Iterator[None]:
                 os.environ.pop(k, None)
 
 
+#: Modules the forkserver imports once, before it forks the workers: what running and
+#: measuring a pair loads. scipy.signal alone takes 1.5-3 s to import on the 2-core test
+#: machine; imported in every worker (and in the batch process) it was paid three times
+#: per batch, now once, in the server, while the batch process plans (see PoolEngine).
+#: The batch process itself imports none of them.
+WORKER_PRELOAD = ["simwave.batch.tasks", "scipy.signal", "simwave.discrete.filter",
+                  "simwave.measure", "soundfile", "orjson"]
+
+
 def _context() -> multiprocessing.context.BaseContext:
     # fork is unsafe with the reader/writer threads of the pipeline (and with Dask or BLAS
     # threads in the parent); forkserver forks from a clean single-threaded server with
     # simwave already imported, spawn is the portable fallback.
     if sys.platform != "win32" and "forkserver" in multiprocessing.get_all_start_methods():
         ctx = multiprocessing.get_context("forkserver")
-        ctx.set_forkserver_preload(["simwave.batch.tasks"])
+        ctx.set_forkserver_preload(WORKER_PRELOAD)
         return ctx
     return multiprocessing.get_context("spawn")
 
@@ -130,6 +139,10 @@ class PoolEngine:
         self.jobs = int(jobs)
         self._executor: ProcessPoolExecutor | None = None
         self._pending: dict[Future, PairTask] = {}
+        # Start the forkserver now: it imports WORKER_PRELOAD while this process reads
+        # the journal and makes the tasks.
+        with worker_thread_limits(self.jobs):
+            _start_forkserver(_context())
 
     def describe(self) -> str:
         return f"local process pool, {self.jobs} worker{'s' if self.jobs != 1 else ''}"

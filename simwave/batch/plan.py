@@ -753,10 +753,10 @@ def make_pairs(plan: BatchPlan, ext: str | None, patterns: Sequence[tuple[str, s
 
 # ----------------------------------------------------------------------------- entry points
 def _measure_options(table: Any, lines: KeyLines | None, source: str) -> dict[str, Any]:
+    if table is None:  # nothing to check: the measuring code (slow to import) stays unloaded
+        return {}
     from simwave.measure import MeasureOptions
 
-    if table is None:
-        return {}
     _check_keys(table, MEASURE_KEYS, "[measure]", lines, source, ["measure"])
     opts = dict(table)
     for key in ("sine_hz",):

@@ -25,7 +25,7 @@ import os
 import stat
 import time
 from dataclasses import dataclass, field
-from typing import Any, Callable
+from typing import Any, Callable, Sequence
 
 from simwave.batch.engines import DaskEngine, InlineEngine, PoolEngine, default_jobs
 from simwave.batch.plan import BatchPlan, Pair
@@ -150,16 +150,19 @@ def is_finished(plan: BatchPlan, pair: Pair, entry: dict | None) -> bool:
     return True
 
 
-def _remove_temporaries(pair: Pair) -> None:
-    """Delete temporary files an abandoned pair may have left beside its targets.
+def _remove_temporaries(pairs: Sequence[Pair]) -> None:
+    """Delete temporary files abandoned pairs may have left beside their targets.
 
     The name pattern is that of :class:`simwave.signals.atomic.AtomicTarget`
     (``.NAME.XXXX.partEXT`` in the target's directory); a file some live process
     still holds open is left alone (see :func:`simwave.signals.atomic.sweep_stale_parts`).
+    All pairs at once: each folder is listed once (per pair, 2,000 pairs listed their
+    folder of 4,000 files 2,000 times).
     """
-    targets = [t for t in (pair.output, pair.metrics) if t]
-    sweep_stale_parts({os.path.dirname(os.path.abspath(t)) for t in targets},
-                      targets=targets, min_age_s=0.0)
+    targets = [t for pair in pairs for t in (pair.output, pair.metrics) if t]
+    if targets:
+        sweep_stale_parts({os.path.dirname(os.path.abspath(t)) for t in targets},
+                          targets=targets, min_age_s=0.0)
 
 
 def sweep_plan_folders(plan: BatchPlan) -> list[str]:
@@ -275,14 +278,11 @@ def run_batch(
                 in_flight = [by_index[t.index] for t in eng.in_flight()]
                 eng.stop()
                 if getattr(eng, "removes_temporaries", True):
-                    for pair in in_flight:
-                        if pair.index not in results:
-                            _remove_temporaries(pair)
+                    _remove_temporaries([p for p in in_flight if p.index not in results])
         if not interrupted and getattr(eng, "removes_temporaries", True):
             # Every pair has ended: a temporary file still beside a target was left by a
             # worker that died (killed, crashed) and is not held open by anyone.
-            for pair in todo:
-                _remove_temporaries(pair)
+            _remove_temporaries(todo)
     finally:
         try:
             eng.close()

@@ -36,7 +36,35 @@ class PairTask:
 
     def run_job(self) -> RunJob:
         """The :class:`RunJob` this task executes (the System built from its definition)."""
-        return RunJob(system=build_system(self.system), **self.job)
+        return RunJob(system=cached_system(self.system), **self.job)
+
+
+#: Systems built in this worker, by definition (a batch runs many pairs through few
+#: systems; parsing or designing one costs milliseconds), with the warnings raised while
+#: building them, so that every pair records them as the first one did.
+_SYSTEMS: dict[str, tuple[Any, list[warnings.WarningMessage]]] = {}
+_SYSTEMS_MAX = 64
+
+
+def cached_system(definition: tuple) -> Any:
+    """:func:`~simwave.batch.plan.build_system`, once per definition in this process.
+
+    A definition that fails to build is not kept (its error comes again for every pair).
+    The System is shared by the pairs that use it; nothing in a run changes it.
+    """
+    key = repr(definition)  # plain data (text, numbers, dicts, lists): equal repr, same system
+    hit = _SYSTEMS.get(key)
+    if hit is None:
+        with warnings.catch_warnings(record=True) as wlist:
+            warnings.simplefilter("always")
+            system = build_system(definition)
+        if len(_SYSTEMS) >= _SYSTEMS_MAX:
+            _SYSTEMS.pop(next(iter(_SYSTEMS)))
+        hit = _SYSTEMS[key] = (system, list(wlist))
+    system, caught = hit
+    for w in caught:
+        warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+    return system
 
 
 class WorkerStop(BaseException):

@@ -21,12 +21,19 @@ from dataclasses import dataclass
 from typing import Any, Callable, Iterator
 
 import numpy as np
-from scipy import signal as sps
 
 from simwave.errors import WaveformError
 from simwave.signals.quantity import parse_quantity
 from simwave.signals.stream import rechunk
 from simwave.signals.waveform import Waveform
+
+def _signal():
+    """scipy.signal, imported on first use: only pink noise needs it, and it takes a second
+    or more to import (which a batch's planning process and every help screen would pay)."""
+    import scipy.signal
+
+    return scipy.signal
+
 
 #: Samples per tile (see module docs).
 TILE = 1 << 16
@@ -458,11 +465,11 @@ class _Tiles:
         warm = int(math.ceil(5 * self.rate / (2 * math.pi * fmin)))
         for i in range(0, warm, TILE):
             w = self.rng.standard_normal(min(TILE, warm - i))
-            _, self.zi = sps.sosfilt(self.sos, w, zi=self.zi)
+            _, self.zi = _signal().sosfilt(self.sos, w, zi=self.zi)
 
     def _pink_noise(self, k: np.ndarray) -> np.ndarray:
         w = self.rng.standard_normal(k.size)
-        y, self.zi = sps.sosfilt(self.sos, w, zi=self.zi)
+        y, self.zi = _signal().sosfilt(self.sos, w, zi=self.zi)
         return self.p["offset"] + self.scale * y
 
     def _prep_pwl(self) -> None:
@@ -511,12 +518,12 @@ def pink_filter(rate: float, fmin: float, per_decade: int = 3) -> tuple[np.ndarr
         poles.append(math.exp(-2 * math.pi * fp / rate))
         zeros.append(math.exp(-2 * math.pi * fp * math.sqrt(ratio) / rate))
         fp *= ratio
-    sos = sps.zpk2sos(zeros, poles, 1.0)
+    sos = _signal().zpk2sos(zeros, poles, 1.0)
     # noise power gain = (1/pi) * integral_0^pi |H(e^jw)|^2 dw  (Parseval), on a grid
     # dense in log(w) where the response changes, linear near pi
     w = np.concatenate([np.geomspace(2 * math.pi * fmin / rate * 1e-3, 0.5, 40000)[:-1],
                         np.linspace(0.5, math.pi, 4000)])
-    _, h = sps.sosfreqz(sos, worN=w)
+    _, h = _signal().sosfreqz(sos, worN=w)
     h2 = np.abs(h) ** 2
     integral = np.trapezoid(h2, w) + h2[0] * w[0]
     return sos, float(integral / math.pi)
