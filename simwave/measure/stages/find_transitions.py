@@ -4,7 +4,9 @@ In: a :class:`~simwave.measure.stages.work.Work` after :mod:`.classify` (each ch
 ``kind``, ``refs``, and for a staircase its ``staircase`` plateaus). One pass over the
 record: a two-state channel's transitions are found by an IEEE Std 181 edge finder on its
 reference levels; a multi-level channel's in each gap between plateaus, on that gap's own
-levels. Out: each channel's ``edges`` (:class:`~simwave.measure.transient.Edge`). With a
+levels. An output whose transitions the state-levels stage already found on these
+reference levels (``speculated``) is not read again; with none left, there is no pass.
+Out: each channel's ``edges`` (:class:`~simwave.measure.transient.Edge`). With a
 reference input, the output's transitions are found again, one per input transition, by
 :mod:`.input_aligned` (next).
 """
@@ -24,6 +26,12 @@ def run(w: Work) -> None:
     active = [
         i for i, ch in enumerate(chans) if ch.kind == "transitions" and ch.refs is not None
     ]
+    for i in list(active):
+        ch = chans[i]
+        if not ch.multilevel and ch.speculated is not None and ch.speculated[0] == ch.refs:
+            # found by the state-levels stage on these very reference levels
+            ch.edges = list(ch.speculated[1])
+            active.remove(i)
     if not active:
         return
     gaps: dict[int, list] = {}

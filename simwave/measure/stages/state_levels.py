@@ -9,7 +9,9 @@ range). One pass over the record fills, per channel (outputs and references):
 that keeps its samples off them) gets ``staircase`` and ``multilevel``. Then, for an
 output with no reference input, up to four more passes check the histogram's levels
 against the ends of the output's own state intervals and replace them where ringing fools
-the histogram (``levels``, ``segments``, ``level_mode``, ``established``).
+the histogram (``levels``, ``segments``, ``level_mode``, ``established``); the full round
+also finds the transitions on the histogram's reference levels (``speculated``), which
+the transitions stage takes instead of a pass of its own when those levels are kept.
 
 Out: ``w.hist`` and the channel fields above. Next: :mod:`.classify`.
 """
@@ -23,6 +25,7 @@ from simwave.measure import plateaus as pl
 from simwave.measure import segments as seg
 from simwave.measure.stages import work
 from simwave.measure.stages.work import Channel, Work
+from simwave.measure.transient import EdgeFinder
 
 #: A waveform counts as two-state when at least this fraction of its samples lies
 #: within 10 % of the amplitude of one of its state levels (our choice; a sine has
@@ -121,7 +124,13 @@ def levels_from_output_intervals(w: Work) -> None:
     refs = {c: lv.reference_values(w.outs[c].levels, (25.0, 50.0, 75.0)) for c in cands}
     found: dict[int, tuple] = {}
     for rnd in range(2):
-        edges = work.find_edges(w, refs, FIRST_ROUND_SEGMENTS if rnd == 0 else None)
+        # the second round reads the whole record: the transitions on the channel's
+        # current (histogram) reference levels are found in the same pass, for the
+        # transitions stage to use if these levels are kept
+        also = {c: EdgeFinder(*w.outs[c].refs) for c in refs} if rnd else None
+        edges = work.find_edges(w, refs, FIRST_ROUND_SEGMENTS if rnd == 0 else None, also)
+        for c, f in (also or {}).items():
+            w.outs[c].speculated = (f.low, f.mid, f.high), f.edges
         # end each segment where a linear edge would leave the level: a quarter of
         # the 25-75 % time before the wide provisional transitions, an eighth of the
         # 10-90 % time before the final ones

@@ -226,11 +226,7 @@ def sine_section(w: Work, ch: Channel, ref: Channel | None) -> dict:
     else:
         d["gain_db"] = d["phase_deg"] = None
         reasons["gain_db"] = reasons["phase_deg"] = "no reference input given"
-    if w.system is not None:
-        h = complex(w.system.frequency_response(f))
-        if h != 0:
-            d["predicted_gain_db"] = 20.0 * math.log10(abs(h))
-            d["predicted_phase_deg"] = math.degrees(math.atan2(h.imag, h.real))
+    add_prediction(w, f, d)
     if out_fit.explained < SINE_MIN_EXPLAINED:
         for k in ("thd_pct", "thd_db", "sinad_db"):
             d[k] = None
@@ -312,12 +308,18 @@ def tones_section(w: Work, ch: Channel, ref: Channel | None) -> tuple[list, dict
         else:
             row["gain_db"] = row["phase_deg"] = None
             rr["gain_db"] = rr["phase_deg"] = "no reference input given"
-        if w.system is not None:
-            h = complex(w.system.frequency_response(f))
-            if h != 0:
-                row["predicted_gain_db"] = 20.0 * math.log10(abs(h))
-                row["predicted_phase_deg"] = math.degrees(math.atan2(h.imag, h.real))
+        add_prediction(w, f, row)
         if rr:
             row["null_reasons"] = rr
         rows.append(row)
     return rows, reasons
+
+
+def add_prediction(w: Work, f: float, d: dict) -> None:
+    """H(j 2 pi f) of the system, if one was given, as predicted gain (dB) and phase (deg)."""
+    if w.system is None:
+        return
+    h = complex(w.system.frequency_response(f))
+    if h != 0:
+        d["predicted_gain_db"] = 20.0 * math.log10(abs(h))
+        d["predicted_phase_deg"] = math.degrees(math.atan2(h.imag, h.real))

@@ -116,6 +116,10 @@ class Channel:
     # span (peak to peak) of noise and hum where the channel is quiet (the first quartile
     # of its window spans)
     disturbance_pp: float = 0.0
+    # (reference levels, transitions found on them) by the state-levels stage, on the
+    # channel's own reference levels while it read the record for other reasons; the
+    # transitions stage uses them when the levels were kept (saving a pass)
+    speculated: tuple | None = None
     _seg_starts: np.ndarray | None = None
 
     @property
@@ -197,11 +201,16 @@ def collect(w: Work, segs_by_c: dict[int, list]) -> None:
 
 
 def find_edges(
-    w: Work, refs_by_c: dict[int, tuple], limit: int | None = None
+    w: Work,
+    refs_by_c: dict[int, tuple],
+    limit: int | None = None,
+    also: dict[int, EdgeFinder] | None = None,
 ) -> dict[int, list[Edge]]:
     """One pass: transitions of output channels with the given reference levels (the
-    first ``limit`` of each; the pass stops once every channel has them)."""
+    first ``limit`` of each; the pass stops once every channel has them). Without a limit,
+    the finders in ``also`` (by channel) are fed the same blocks."""
     finders = {c: EdgeFinder(*r) for c, r in refs_by_c.items()}
+    extra = list(also.items()) if also and limit is None else []
     # with a limit, a block is fed in pieces, so that a channel that crosses its levels
     # thousands of times in one block (noise) stops at the limit (the finder carries its
     # state between pieces: the same transitions in any split)
@@ -213,6 +222,8 @@ def find_edges(
                     if limit is not None and len(f.edges) >= limit:
                         break
                     f.feed(a[s0 : s0 + piece, c], start + s0)
+            for c, f in extra:
+                f.feed(a[:, c], start)
             if limit is not None and all(len(f.edges) >= limit for f in finders.values()):
                 break
     return {c: f.edges[:limit] for c, f in finders.items()}
