@@ -31,15 +31,19 @@ def test_fft_convolution_equals_scipy_fftconvolve_bit_for_bit(n, m):
     assert np.array_equal(fft_convolve_same(a, k), signal.fftconvolve(a, k, mode="same"))
 
 
-def test_measuring_does_not_import_scipy_signal():
-    # a fresh process: measuring a step record must not pull in scipy.signal
+def test_measuring_does_not_import_scipy_signal(tmp_path):
+    # a fresh process: measuring a step record, in memory and from a file, must not pull in
+    # scipy.signal (reading a file passes through the signal-text parser too)
     import subprocess
     import sys
 
+    path = str(tmp_path / "step.wav")
     code = (
-        "import sys, numpy as np, simwave\n"
+        "import sys, numpy as np, soundfile as sf, simwave\n"
         "x = np.r_[np.zeros(100), np.ones(400)]\n"
         "simwave.measure(simwave.Waveform(x, 1000.0))\n"
+        f"sf.write({path!r}, x, 1000, subtype='DOUBLE')\n"
+        f"simwave.measure({path!r})\n"
         "print('scipy.signal' in sys.modules)\n"
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
