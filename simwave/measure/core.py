@@ -27,6 +27,8 @@ from __future__ import annotations
 
 from typing import Any
 
+import numpy as np
+
 from simwave.errors import MeasurementError
 from simwave.measure.options import MeasureOptions
 from simwave.measure.predict import Predictions
@@ -45,6 +47,31 @@ from simwave.measure.stages import (
 from simwave.measure.stages.work import Work
 
 from simwave.measure.kinds import SIGNAL_KINDS  # noqa: E402,F401 - re-exported
+
+
+#: Bytes of one array allocated and freed before the first measurement of a process (see
+#: :func:`_block_sized_heap`).
+HEAP_PRIMER_BYTES = 8 << 20
+_heap_primed = False
+
+
+def _block_sized_heap() -> None:
+    """Let the C allocator serve block-sized arrays from its heap.
+
+    glibc's malloc gives every request above its mmap threshold (128 kB at start) fresh
+    pages from the kernel, zeroed on first touch, and raises the threshold to the size of
+    a freed mapped block only once one is freed. A measuring pass makes several
+    temporaries of one 64k-sample block (512 kB each) per block: until something large
+    has been freed, each of them cost a mapping and its page faults (about 0.3 s of CPU
+    on a 10-minute record, measured; importing scipy.signal used to free such a block as
+    a side effect). Freeing one 8 MB array first raises the threshold above the blocks.
+    Harmless with other allocators.
+    """
+    global _heap_primed
+    if not _heap_primed:
+        _heap_primed = True
+        primer = np.empty(HEAP_PRIMER_BYTES // 8)
+        del primer
 
 
 def run_stages(w: Work) -> dict:
@@ -130,6 +157,7 @@ def measure(
     waveform = as_waveform(waveform, rate, "waveform")
     reference = as_waveform(reference, rate, "reference")
     o = MeasureOptions.from_kwargs(opts)
+    _block_sized_heap()
     if isinstance(system, str):
         from simwave.model.system import System
 
