@@ -96,12 +96,15 @@ def worker_thread_limits(jobs: int) -> Iterator[None]:
 
 
 #: Modules the forkserver imports once, before it forks the workers: what running and
-#: measuring a pair loads. scipy.signal alone takes 1.5-3 s to import on the 2-core test
-#: machine; imported in every worker (and in the batch process) it was paid three times
-#: per batch, now once, in the server, while the batch process plans (see PoolEngine).
-#: The batch process itself imports none of them.
+#: measuring a WAV pair loads (without them a worker's first pair imported ~50 modules, 0.3
+#: s). scipy.signal alone takes 1.5-3 s to import on the 2-core test machine; imported in
+#: every worker (and in the batch process) it was paid three times per batch, now once, in
+#: the server, while the batch process plans (see PoolEngine). The batch process itself
+#: imports none of them.
 WORKER_PRELOAD = ["simwave.batch.tasks", "scipy.signal", "simwave.discrete.filter",
-                  "simwave.measure", "soundfile", "orjson"]
+                  "simwave.discrete.methods", "simwave.discrete.accuracy", "simwave.model.parse",
+                  "simwave.cli.system_input", "simwave.signals.io", "simwave.signals.audio",
+                  "simwave.signals.spec", "simwave.measure.core", "soundfile", "orjson"]
 
 
 def _context() -> multiprocessing.context.BaseContext:
