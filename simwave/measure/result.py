@@ -10,9 +10,19 @@ from typing import Any
 import numpy as np
 
 
+#: Types returned as they are by :func:`_clean` (the common leaves: checked by exact type
+#: first, before the isinstance chain that numpy scalars and subclasses need).
+_PLAIN = (str, int, bool, type(None))
+
+
 def _clean(obj: Any) -> Any:
     """Plain JSON-friendly copy: numpy scalars to Python, non-finite floats to None with a
     reason in the enclosing dictionary's ``null_reasons``."""
+    t = type(obj)
+    if t in _PLAIN:
+        return obj
+    if t is float:
+        return obj if math.isfinite(obj) else None
     if isinstance(obj, dict):
         out: dict = {}
         extra: dict = {}
