@@ -68,3 +68,57 @@ def test_cached_models_blocks_and_channels_give_the_same_bits(case, tmp_path):
         streamed = simwave.read(tmp_path / "o.h5").data
     for other in (again, fresh, per_channel, streamed):
         assert np.array_equal(other.view(np.uint64), first.view(np.uint64))
+
+
+@pytest.mark.parametrize("n_channels", [8, 9, 64])
+def test_channel_major_pieces_give_sosfilts_bits(n_channels):
+    # Reference: scipy.signal.sosfilt along axis 0 in one call (what process() did before
+    # it filtered channel-major pieces); the inputs are long enough for several pieces.
+    import scipy.signal as sig
+
+    from simwave.discrete.filter import PIECE_VALUES, run_sections
+
+    rng = np.random.default_rng(n_channels)
+    sos = sig.butter(6, 0.05, output="sos")
+    n = 3 * PIECE_VALUES // n_channels + 17
+    x = rng.standard_normal((n, n_channels))
+    x[100:200, 1] = 0.0
+    x[150, 1] = -0.0  # signed zeros pass through unchanged
+    zi = rng.standard_normal((sos.shape[0], 2, n_channels))
+    y_ref, zf_ref = sig.sosfilt(sos, x, axis=0, zi=zi)
+    y, zf = run_sections(sos, x, zi)
+    assert np.array_equal(y.view(np.uint64), y_ref.view(np.uint64))
+    assert np.array_equal(zf.view(np.uint64), zf_ref.view(np.uint64))
+    # the same through DiscreteSystem.process in odd-sized blocks, with a delay line
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        model = simwave.System.parse("1e3/(s + 1e3)*exp(-1e-3*s)").discretize(48000.0)
+    whole = model.filter(x)
+    state = model.initial_state(x[0])
+    parts = []
+    for start in range(0, n, 40_001):
+        out, state = model.process(x[start:start + 40_001], state)
+        parts.append(out)
+    assert np.array_equal(np.concatenate(parts).view(np.uint64), whole.view(np.uint64))
+    per_channel = np.column_stack([model.filter(x[:, c]) for c in range(n_channels)])
+    assert np.array_equal(per_channel.view(np.uint64), whole.view(np.uint64))
+
+
+def test_level_meter_flags_every_kind_of_bad_sample():
+    # the run's finiteness check now rides on the meter's extremes (numpy's argmax and
+    # argmin stop at NaN); the meter must see NaN and both infinities anywhere
+    from simwave.run import _channel_peaks, _LevelMeter
+
+    rng = np.random.default_rng(5)
+    for bad in (np.nan, np.inf, -np.inf):
+        for row, col in ((0, 0), (4999, 2), (2500, 1)):
+            x = rng.standard_normal((5000, 3))
+            x[row, col] = bad
+            assert _LevelMeter(3).add(x) is False
+            assert _LevelMeter(3).add(np.asfortranarray(x)) is False
+    assert _LevelMeter(3).add(rng.standard_normal((5000, 3))) is True
+    # input peaks by the wide view equal max |x| per channel (numpy, exact)
+    for k in (1, 2, 3, 8):
+        for n in (1, 1023, 1024, 1025, 5001):
+            x = rng.standard_normal((n, k))
+            assert np.array_equal(_channel_peaks(x), np.abs(x).max(axis=0))

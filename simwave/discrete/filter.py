@@ -1,7 +1,8 @@
 """DiscreteSystem: a runnable discrete model with explicit, carried filter state.
 
-The model runs as second-order sections through one ``scipy.signal.sosfilt``
-call per block (all channels at once, along axis 0), followed by an exact
+The model runs as second-order sections through ``scipy.signal.sosfilt``
+(one call per block along axis 0 for up to 7 channels; from 8 channels in
+cache-sized channel-major pieces, :func:`run_sections`), followed by an exact
 delay line for the whole-sample part of the dead time. Everything else a
 block costs is constant work, so processing is as fast as sosfilt itself.
 Models whose sections would lose digits (poles near z = 1: rates far above
@@ -50,7 +51,7 @@ from simwave.discrete.incremental import (
 from simwave.discrete.realization import expm, increment_response
 from simwave.errors import DiscretizationError
 
-__all__ = ["DiscreteSystem", "FilterState", "INITIAL_MODES"]
+__all__ = ["DiscreteSystem", "FilterState", "INITIAL_MODES", "run_sections"]
 
 #: Names accepted by ``initial``.
 INITIAL_MODES: tuple[str, ...] = ("rest", "settled")
@@ -60,6 +61,14 @@ _MAX_HORIZON = 1 << 16
 
 #: Names accepted by ``realization``.
 REALIZATIONS: tuple[str, ...] = ("auto", "sections", "incremental")
+
+#: From this many channels, :func:`run_sections` filters channel-major pieces of about
+#: ``PIECE_VALUES`` values instead of one sosfilt call along axis 0 (see there).
+CHANNEL_MAJOR_FROM = 8
+
+#: Values (frames x channels) per channel-major piece: 512 kB of float64, which stays in
+#: this machine class's 1 MB per-core L2 cache with its transposed copy beside it.
+PIECE_VALUES = 1 << 16
 
 #: ``auto`` runs second-order sections while their expected round-off level
 #: (:func:`simwave.discrete.incremental.section_round_off`) stays at or below
@@ -105,6 +114,35 @@ class FilterState:
     n_channels: int
     spent: bool = False
     x: np.ndarray | None = None
+
+
+def run_sections(sos: np.ndarray, x: np.ndarray, zi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``scipy.signal.sosfilt(sos, x, axis=0, zi=zi)`` for x of shape (n, n_channels), same bits.
+
+    sosfilt filters each channel as one contiguous row, so along axis 0 it first copies
+    the whole (n, n_channels) array into channel-major order: a strided transposition
+    through main memory, which for many channels costs as much as a good part of the
+    filtering (bench_filter_core.py prints it). From ``CHANNEL_MAJOR_FROM`` channels the
+    frames go through in pieces of about ``PIECE_VALUES`` values, each transposed inside
+    the cache and filtered along its last axis, with the sections' state carried from
+    piece to piece. Every channel sees the same operations in the same order as in one
+    call (sosfilt's loop is per channel and per sample), so the output is bit-identical;
+    tests/test_same_numbers.py checks it.
+
+    Returns (y, zf) like sosfilt: y of shape (n, n_channels) (a transposed view of a
+    channel-major array, the layout sosfilt itself returns along axis 0) and zf of shape
+    (n_sections, 2, n_channels).
+    """
+    n, nch = x.shape
+    if nch < CHANNEL_MAJOR_FROM or n * nch <= PIECE_VALUES:
+        return sig.sosfilt(sos, x, axis=0, zi=zi)
+    frames = max(256, PIECE_VALUES // nch)
+    out = np.empty((nch, n))
+    zt = np.ascontiguousarray(np.asarray(zi, dtype=np.float64).transpose(0, 2, 1))
+    for start in range(0, n, frames):
+        stop = min(n, start + frames)
+        out[:, start:stop], zt = sig.sosfilt(sos, x[start:stop].T, axis=-1, zi=zt)
+    return out.T, zt.transpose(0, 2, 1)
 
 
 def _sequence(step, C: np.ndarray, v: np.ndarray, n: int) -> np.ndarray:
@@ -296,8 +334,8 @@ class DiscreteSystem:
 
     Notes
     -----
-    Processing is one ``scipy.signal.sosfilt`` call per block, so the
-    second-order sections carry the state; initial states are found as
+    Processing is ``scipy.signal.sosfilt`` on each block (:func:`run_sections`),
+    so the second-order sections carry the state; initial states are found as
     described in the module notes.
 
     References
@@ -747,11 +785,12 @@ class DiscreteSystem:
 
         Notes
         -----
-        One ``scipy.signal.sosfilt`` call on the whole block (axis 0, all
-        channels) does the filtering; the whole-sample dead time is a ring
-        buffer. Splitting a signal into blocks of any sizes gives bit-for-bit
-        the same output as one call. The incremental realization (models with
-        poles near z = 1, see ``options["realization"]``) runs instead through
+        ``scipy.signal.sosfilt`` does the filtering (:func:`run_sections`: one
+        call along axis 0, or channel-major pieces for 8 channels or more); the
+        whole-sample dead time is a ring buffer. Splitting a signal into blocks
+        of any sizes gives bit-for-bit the same output as one call. The
+        incremental realization (models with poles near z = 1, see
+        ``options["realization"]``) runs instead through
         :class:`simwave.discrete.incremental.IncrementalModel`, also bit for bit
         the same whatever the split.
         """
@@ -788,7 +827,7 @@ class DiscreteSystem:
             return (out[:, 0] if one_d else out), FilterState(zi, line, pos, None, nch, x=xs)
         if pending is not None:
             zi, line = self._resolve(pending, x[0], zi, line)
-        y, zf = sig.sosfilt(self.sos, x, axis=0, zi=zi)
+        y, zf = run_sections(self.sos, x, zi)
         out, line, pos = self._delay(y, line, pos)
         return (out[:, 0] if one_d else out), FilterState(zf, line, pos, None, nch)
 
