@@ -30,7 +30,14 @@ from simwave import System
 from simwave.discrete import ModelWarning, discretize
 from simwave.discrete.realization import exp_increment
 
-from exact_reference import as_mp, impulse_response, residues, sample_indices, step_response
+from exact_reference import (
+    as_mp,
+    impulse_response,
+    linear_between_samples_response,
+    residues,
+    sample_indices,
+    step_response,
+)
 
 TARGET = 1e-10
 
@@ -344,3 +351,85 @@ def test_a_fast_and_a_very_slow_pole_in_one_section_is_never_run():
     taus = np.array([1e3, 1.0, 1e-6])  # slow poles at 1 - 1e-9 and 1 - 1e-6 at 1 MHz
     model = quiet(System.from_zpk([], -1 / taus, 1 / np.prod(taus)), rate, "step-invariant")
     assert model.realization == "incremental"
+
+
+# ---------------------------------------------------------------- the at-rest start
+def _rest_run(model, x, closed: bool):
+    """The model's at-rest output for x, with the closed-form start or with the fit."""
+    model._cache.pop("rest", None)
+    if not closed:
+        model._cache["rest"] = model._rest_fit()
+    y = model.filter(x)
+    model._cache.pop("rest", None)
+    return y
+
+
+@pytest.mark.parametrize("zpk,rate", [
+    (butter(2, 1000.0), 48e3),
+    (butter(4, 1000.0), 48e3),
+    (butter(8, 1000.0), 48e3),
+    (([0.0], list(np.roots([1, 2 * np.pi * 20.0, (2 * np.pi * 1000.0) ** 2])),
+      2 * np.pi * 20.0), 48e3),  # a Q = 50 band-pass
+])
+def test_closed_form_rest_start_against_the_exact_response(zpk, rate):
+    # Reference: the exact analog response to the input linear between samples, at rest
+    # before t = 0, by modes in 40-digit mpmath (tests/exact_reference.py). A unit first
+    # sample alone (the start's own response) and a noise record with an offset.
+    z, p, k = zpk
+    model = quiet(System.from_zpk(z, p, k), rate, "ramp-invariant")
+    assert model.realization == "sections"
+    closed = model._rest_closed_form()
+    assert closed is not None
+    rng = np.random.default_rng(7)
+    pulse = np.zeros(1500)
+    pulse[0] = 1.0
+    for x in (pulse, 0.2 * rng.standard_normal(600) + 3.0):
+        ref = linear_between_samples_response(z, p, k, x, rate)
+        peak = np.max(np.abs(ref))
+        err_closed = np.max(np.abs(_rest_run(model, x, True) - ref)) / peak
+        err_fit = np.max(np.abs(_rest_run(model, x, False) - ref)) / peak
+        assert err_closed <= 1e-11, err_closed  # the sections' own round-off, <= 1e-11
+        # as exact as the least-squares fit it replaced, within the sections' round-off
+        assert err_closed <= 1.5 * err_fit + 1e-14, (err_closed, err_fit)
+
+
+def test_closed_form_rest_start_with_a_double_pole():
+    # 1/(s + 1)^2 (a double pole: no modal form), unit first sample then zeros. Exact
+    # output: S(t) - R(t)/T + R(t - T)/T with the step response S = 1 - (1 + t) e^-t and
+    # its integral R = t - 2 + (t + 2) e^-t (sympy's inverse Laplace transforms of
+    # 1/(s (s+1)^2) and 1/(s^2 (s+1)^2), checked below), in 40-digit mpmath.
+    s, t = sp.symbols("s t", positive=True)
+    S = sp.inverse_laplace_transform(1 / (s * (s + 1) ** 2), s, t)
+    R = sp.inverse_laplace_transform(1 / (s**2 * (s + 1) ** 2), s, t)
+    assert sp.simplify(S - (1 - (1 + t) * sp.exp(-t))) == 0
+    assert sp.simplify(R - (t - 2 + (t + 2) * sp.exp(-t))) == 0
+    rate, n = 100.0, 2000
+    model = quiet(System.from_zpk([], [-1.0, -1.0], 1.0), rate, "ramp-invariant",
+                  realization="sections")
+    assert model._rest_closed_form() is not None
+    mp.mp.dps = 40
+    T = mp.mpf(1) / 100
+    Sf, Rf = sp.lambdify(t, S, "mpmath"), sp.lambdify(t, R, "mpmath")
+    ref = np.array([float(Sf(tk) - Rf(tk) / T + (Rf(tk - T) / T if k else 0))
+                    for k, tk in ((k, mp.mpf(k) / 100) for k in range(n))])
+    ref[0] = 0.0  # y(0) of a strictly proper system at rest
+    x = np.zeros(n)
+    x[0] = 1.0
+    peak = np.max(np.abs(ref))
+    err_closed = np.max(np.abs(_rest_run(model, x, True) - ref)) / peak
+    err_fit = np.max(np.abs(_rest_run(model, x, False) - ref)) / peak
+    assert err_closed <= 1e-11 and err_closed <= 1.5 * err_fit + 1e-14, (err_closed, err_fit)
+
+
+@pytest.mark.parametrize("zpk,rate", [(butter(4, 1.0), 1e6), (butter(4, 1.0), 1e7),
+                                      (butter(8, 0.1), 48e3)])
+def test_closed_form_declines_sections_forced_far_beyond_their_limit(zpk, rate):
+    # Sections forced at fs/fc 1e6-1e7: their rounded poles are no longer the model's,
+    # so the closed form (which would leave 1e-8 of the start's response, against 1e-9
+    # for the fit, measured against the analog sequence) declines by its own check and
+    # the fit is used. auto runs these models in the incremental form, no fit at all.
+    z, p, k = zpk
+    model = quiet(System.from_zpk(z, p, k), rate, "ramp-invariant", realization="sections")
+    assert model._rest_closed_form() is None
+    np.testing.assert_array_equal(model._rest_correction(), model._rest_fit())
+    assert quiet(System.from_zpk(z, p, k), rate, "ramp-invariant").realization == "incremental"

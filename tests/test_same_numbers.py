@@ -6,7 +6,11 @@ simwave before the speed work (commit f4457b3) with
 changed outputs on purpose: last digits of sections built from delta-domain
 zeros and gain, and a Q = 50 impulse-invariant case that now runs in the
 incremental form, 5e-11 -> 7e-15 of the peak against T h(nT) in 40-digit
-mpmath): in-memory runs and file runs (WAV,
+mpmath; and when the ramp-invariant at-rest start became a closed form instead of
+a least-squares fit: 4 digests, the eight-channel noise record of the first case,
+whose 1,500 first samples per channel are as exact or more against the exact
+response in 40-digit mpmath, 3.2e-15 to 6.8e-15 of the peak, where the fit gave
+4.3e-15 to 6.8e-15): in-memory runs and file runs (WAV,
 CSV, HDF5, read back) of five systems, all five methods, rest and settled
 starts, one and eight channels. The same script run on this code must give the
 same digests. Digests of float64 bytes depend on the numpy/scipy builds (LAPACK
