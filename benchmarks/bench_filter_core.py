@@ -12,9 +12,9 @@ interleaved (A, B, A, B, ...), and the minimum of the repeats is compared, so
 machine load affects both alike.
 
 Multichannel (``--only channels``, target: >= 1.4x today at 8 and 64 channels with
-bit-identical output): the same 4th-order model on 2, 8 and 64 channels of 32 M values
+bit-identical output): the same 4th-order model on 2, 8, 16 and 64 channels of 32 M values
 in all. (a) The filter core: today's ``DiscreteSystem.process`` was one sosfilt call
-along axis 0, timed here beside ``process`` now (channel-major pieces from 8
+along axis 0, timed here beside ``process`` now (channel-major pieces from 16
 channels), CPU time of this thread and wall time, min over interleaved repeats, outputs
 compared bit for bit. (b) simwave's own filtering path: ``simulate`` on the in-memory
 waveform (the input peak, the sections, the output level meter and finiteness check),
@@ -61,7 +61,7 @@ def timed(model, x, repeats):
     return min(t_ref), min(t_sw), y_sw
 
 
-CHANNEL_COUNTS = (2, 8, 64)
+CHANNEL_COUNTS = (2, 8, 16, 64)
 
 
 def bench_channels_core(values: int, repeats: int) -> None:
