@@ -45,8 +45,9 @@ def overshoot_pct(zeta: float) -> float:
 
 def metrics(kind: str, *, tau: float = 1.0, zeta: float = 0.5, wn: float = 1.0,
             band_pct: float = 2.0) -> dict:
-    """10-90 % rise time, overshoot (%), 2 % settling time and peak time of the unit step
-    response, read from the closed form (times from the step instant)."""
+    """10-90 % rise time, overshoot (%), 2 % settling time, peak time, 50 % instant
+    (``delay_s``) and 10 % instant (``start_s``) of the unit step response, read from the
+    closed form (times from the step instant)."""
     scale = tau if kind == "first" else 1.0 / wn
     t_end = 60.0 * scale if kind == "first" else 60.0 / (max(zeta, 0.05) * wn)
     t = np.linspace(0.0, t_end, 400_001)
@@ -67,5 +68,7 @@ def metrics(kind: str, *, tau: float = 1.0, zeta: float = 0.5, wn: float = 1.0,
         "overshoot_pct": overshoot_pct(zeta) if over else 0.0,
         "settling_time_s": settle,
         "delay_s": first_cross(0.5),
+        # the 10 % instant: where a transition starts when it is found from the output alone
+        "start_s": first_cross(0.1),
         "peak_time_s": (math.pi / (wn * math.sqrt(1 - zeta * zeta))) if over else None,
     }
