@@ -171,6 +171,11 @@ def _format_summary(result: dict) -> str:
                     f"           {name}: \u2265 marks a lower bound, \u2264 an upper bound "
                     "(see the metrics file for why)"
                 )
+        for ch in result["metrics"].get("channels") or []:
+            # a sine or tone fit on part of the steady-state window: which part, and why
+            for part in (ch.get("fit_window"), (ch.get("sine") or {}).get("fit_window")):
+                if part and part.get("note"):
+                    lines.append(f"           {part['note']}")
     level = audio_level_lines(run)[0]
     if level:
         lines.append(f"level      {level}")

@@ -159,6 +159,9 @@ def _key_marks(ch: dict, m: dict) -> tuple[str, str]:
         why = ((ch.get(section) or {}).get("null_reasons") or {}).get(key)
         if m.get(key) is None and why:
             missing.append(f"{key}: {why}")
+    tones_why = (ch.get("null_reasons") or {}).get("tones")
+    if m.get("tone_gain_error_db_worst") is None and ch.get("kind") == "multitone" and tones_why:
+        missing.append(f"tone_gain_error_db_worst: {tones_why}")
     if m.get("transitions") == 0 and (ch.get("null_reasons") or {}).get("transitions"):
         missing.append(f"transitions: {ch['null_reasons']['transitions']}")
     return "; ".join(bounds), "; ".join(missing)

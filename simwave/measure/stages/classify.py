@@ -17,6 +17,7 @@ from simwave.errors import MeasurementError
 from simwave.measure import steady as st
 from simwave.measure.options import MIN_WINDOW
 from simwave.measure.stages.state_levels import TWO_STATE_FRACTION
+from simwave.measure.stages import work
 from simwave.measure.stages.work import Channel, Work
 
 #: A sine (or a set of tones) is taken as present when the fit accounts for this
@@ -67,6 +68,21 @@ def auto_kind(w: Work, ch: Channel, is_reference: bool) -> str:
         # a straight line first: a slow sine fits a short stretch of ramp too
         if st.line_fit(y, t)[2] >= RAMP_R2:
             return "ramp"
+        kind = tone_kind(w, y, t, is_reference)
+        if kind != "sine":
+            # a level change in the window hides a sine, or makes a false low tone: the
+            # part without it decides (simwave.measure.steady_parts)
+            part = work.steady_part_of(w, ch)
+            if not part.whole and part.hi - part.lo >= MIN_WINDOW:
+                lo, hi = part.lo, part.hi
+                kind = tone_kind(w, y[lo:hi], t[lo:hi], is_reference)
+        return kind
+    return "other"
+
+
+def tone_kind(w: Work, y: np.ndarray, t: np.ndarray, is_reference: bool) -> str:
+    """ "sine", "multitone" or "other" from the tones in ``y`` (times ``t``)."""
+    if np.ptp(y) > 0:
         if is_reference:
             tones = st.find_tones(y, w.rate)
             if len(tones) >= 2:
@@ -96,6 +112,11 @@ def require_sine(w: Work, ch: Channel, kind: str) -> None:
             f"channel {ch.name!r}: no sine: the steady-state window is flat or too short"
         )
     t = w.window_t(y.size)
+    part = work.steady_part_of(w, ch)
+    if not part.whole:
+        if part.hi - part.lo < MIN_WINDOW:
+            return  # a level change leaves no part to fit: the steady-state stage says so
+        y, t = y[part.lo : part.hi], t[part.lo : part.hi]  # the part without a level change
     if kind == "sine":
         f = w.o.sine_hz or st.spectrum_peak_hz(y, w.rate)
         fit = st.fit_tones(y, t, [f], refine=w.o.sine_hz is None)

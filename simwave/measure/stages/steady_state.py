@@ -19,6 +19,7 @@ import numpy as np
 from simwave.measure import steady as st
 from simwave.measure.options import MIN_WINDOW
 from simwave.measure.stages.classify import SINE_MIN_EXPLAINED
+from simwave.measure.stages import work
 from simwave.measure.stages.work import Channel, Work
 
 
@@ -32,7 +33,9 @@ def run(w: Work) -> None:
         if ch.kind == "sine":
             part["sine"] = sine_section(w, ch, ref)
         elif ch.kind == "multitone":
-            part["tones"], reasons = tones_section(w, ch, ref)
+            part["tones"], reasons, window = tones_section(w, ch, ref)
+            if window:
+                part["fit_window"] = window
         w.steady[c] = (part, reasons)
 
 
@@ -158,6 +161,51 @@ def steady_ramp(w: Work, y, x, t, d, reasons) -> None:
         d["ramp_lag_s"] = e_end / sx
 
 
+def fit_arrays(w: Work, ch: Channel, ref: Channel | None, what: str):
+    """The samples a sine or tone fit uses: (output, input or None, times, about), from the
+    fit window, or from its part without a level change (:mod:`simwave.measure.steady_parts`,
+    searched in the input when there is one, else in the output). ``about`` is None for the
+    whole window, else ``{"fit_window": {...}}`` saying which part and why, or
+    ``{"reason": ...}`` when no part will do (the fit's values are then not given)."""
+    y = ch.fit_window
+    x = ref.fit_window if ref is not None else None
+    t = w.window_t(y.size)
+    basis = ref if ref is not None and np.ptp(x) > 0 else ch
+    if y.size < MIN_WINDOW or not np.ptp(basis.fit_window) > 0:
+        return y, x, t, None
+    part = work.steady_part_of(w, basis)
+    if part.whole:
+        return y, x, t, None
+    first = w.n - y.size  # the fit window's first sample in the record
+    where = "input" if basis is ref else "output"
+    changes = [{"time_s": w.t(first + c.at), "change": c.height} for c in part.changes]
+    at = ", ".join(f"{c['time_s']:.6g} s ({c['change']:+.3g} in the {where})" for c in changes)
+    if part.lo == part.hi:
+        reason = (
+            f"the steady-state window holds a level change at {at}, and no part of it "
+            f"without the change is long enough for the {what} fit ({part.need} samples "
+            "needed: two periods of the lowest tone and the inverse of the closest tone "
+            "spacing); a fit across it would mix the answer to the change into the tones"
+        )
+        if w.system is None:
+            reason += (
+                " (without a system the part after it is not used: how long the output "
+                "takes to answer the change is not known)"
+            )
+        return y, x, t, {"reason": reason}
+    lo, hi = part.lo, part.hi
+    side = "before it" if hi < y.size else "after it, once H(s) has answered it"
+    start, end = w.t(first + lo), w.t(first + hi - 1)
+    note = (
+        f"channel {ch.name!r}: the steady-state window holds a level change at {at}; the "
+        f"{what} fit uses {start:.6g} s to {end:.6g} s, the part {side}"
+    )
+    about = {"start_s": start, "end_s": end, "level_changes": changes, "note": note}
+    if note not in w.notes:
+        w.notes.append(note)
+    return y[lo:hi], (x[lo:hi] if x is not None else None), t[lo:hi], {"fit_window": about}
+
+
 def estimate_frequency(w: Work, y: np.ndarray, t: np.ndarray) -> float:
     """Four-parameter fit from an interpolated FFT peak, then the same fit with the
     harmonics tied to the fundamental, so distortion cannot pull the frequency."""
@@ -170,19 +218,27 @@ def estimate_frequency(w: Work, y: np.ndarray, t: np.ndarray) -> float:
 
 def sine_section(w: Work, ch: Channel, ref: Channel | None) -> dict:
     o = w.o
-    y = ch.fit_window
+    y, x, t, about = fit_arrays(w, ch, ref, "sine")
     d: dict = {}
     reasons: dict = {}
-    t = w.window_t(y.size)
     if y.size < MIN_WINDOW or np.ptp(y) == 0:
         d["frequency_hz"] = None
         reasons["frequency_hz"] = "steady-state window too short or flat for a sine fit"
         d["null_reasons"] = reasons
         return d
+    if about and "reason" in about:
+        for k in ("frequency_hz", "amplitude", "gain_db", "phase_deg", "thd_pct", "thd_db",
+                  "sinad_db"):
+            d[k] = None
+            reasons[k] = about["reason"]
+        d["null_reasons"] = reasons
+        return d
+    if about:
+        d["fit_window"] = about["fit_window"]
     if o.sine_hz is not None:
         f, fsrc, d["fit"] = o.sine_hz, "given", "three-parameter"
-    elif ref is not None and ref.fit_window.size >= MIN_WINDOW and np.ptp(ref.fit_window) > 0:
-        f, fsrc = estimate_frequency(w, ref.fit_window, t), "four-parameter fit of the input"
+    elif x is not None and x.size >= MIN_WINDOW and np.ptp(x) > 0:
+        f, fsrc = estimate_frequency(w, x, t), "four-parameter fit of the input"
         d["fit"] = "four-parameter"
     else:
         f, fsrc = estimate_frequency(w, y, t), "four-parameter fit of this channel"
@@ -211,8 +267,8 @@ def sine_section(w: Work, ch: Channel, ref: Channel | None) -> dict:
     d["offset"] = hfit.offset
     d["output_phase_deg"] = math.degrees(tone.phase_rad)
     d["fit_explains_pct"] = 100.0 * out_fit.explained
-    if ref is not None:
-        it = st.harmonic_fit(ref.fit_window, t, f, w.rate, int(o.harmonics))[0].tones[0]
+    if x is not None:
+        it = st.harmonic_fit(x, t, f, w.rate, int(o.harmonics))[0].tones[0]
         d["input_amplitude"] = it.amplitude
         d["input_phase_deg"] = math.degrees(it.phase_rad)
         if it.amplitude == 0 or tone.amplitude == 0:
@@ -264,15 +320,22 @@ def sine_section(w: Work, ch: Channel, ref: Channel | None) -> dict:
     return d
 
 
-def tones_section(w: Work, ch: Channel, ref: Channel | None) -> tuple[list, dict]:
+def tones_section(
+    w: Work, ch: Channel, ref: Channel | None
+) -> tuple[list, dict, dict | None]:
+    """Gain and phase per tone (IEEE Std 1057 multi-tone fit), the null reasons, and which
+    part of the window the fit used when not all of it (``fit_window``)."""
     o = w.o
-    y = ch.fit_window
-    t = w.window_t(y.size)
+    y, x, t, about = fit_arrays(w, ch, ref, "tone")
     reasons: dict = {}
     if y.size < MIN_WINDOW:
         reasons["tones"] = "record too short for steady state"
-        return [], reasons
-    basis = ref.fit_window if ref is not None else y
+        return [], reasons, None
+    if about and "reason" in about:
+        reasons["tones"] = about["reason"]
+        return [], reasons, None
+    window = about["fit_window"] if about else None
+    basis = x if x is not None else y
     if o.tones_hz is not None:
         freqs = list(o.tones_hz)
     else:
@@ -281,11 +344,11 @@ def tones_section(w: Work, ch: Channel, ref: Channel | None) -> tuple[list, dict
             reasons["tones"] = "no tones found in the " + (
                 "input" if ref is not None else "output"
             )
-            return [], reasons
+            return [], reasons, window
         freqs = [tn.frequency_hz for tn in st.fit_tones(basis, t, found, refine=True).tones]
     freqs = [f for f in freqs if f < 0.5 * w.rate]
     out_fit = st.fit_tones(y, t, freqs)
-    in_fit = st.fit_tones(ref.fit_window, t, freqs) if ref is not None else None
+    in_fit = st.fit_tones(x, t, freqs) if x is not None else None
     rows = []
     for k, f in enumerate(freqs):
         row: dict = {
@@ -312,7 +375,7 @@ def tones_section(w: Work, ch: Channel, ref: Channel | None) -> tuple[list, dict
         if rr:
             row["null_reasons"] = rr
         rows.append(row)
-    return rows, reasons
+    return rows, reasons, window
 
 
 def add_prediction(w: Work, f: float, d: dict) -> None:

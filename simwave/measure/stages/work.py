@@ -22,7 +22,8 @@ from simwave.errors import MeasurementError
 from simwave.measure import levels as lv
 from simwave.measure import plateaus as pl
 from simwave.measure import segments as seg
-from simwave.measure.options import MeasureOptions
+from simwave.measure import steady_parts as sp
+from simwave.measure.options import MIN_WINDOW, MeasureOptions
 from simwave.measure.source import MeasureSource
 from simwave.measure.transient import Edge, EdgeFinder, EdgeRegions
 
@@ -121,6 +122,9 @@ class Channel:
     # transitions stage uses them when the levels were kept (saving a pass)
     speculated: tuple | None = None
     _seg_starts: np.ndarray | None = None
+    # the part of the fit window without a level change (steady_parts.SteadyPart), found
+    # once by :func:`steady_part_of` when a sine or tone fit needs it
+    fit_part: Any = None
 
     @property
     def constant(self) -> bool:
@@ -178,6 +182,20 @@ class Work:
         """Times (s from t0) of the last ``m`` samples: the window, or its last part for
         fits, ends at the record's last sample."""
         return (self.n - m + np.arange(m, dtype=np.float64)) / self.rate
+
+
+def steady_part_of(w: Work, ch: Channel):
+    """The part of ``ch``'s fit window without a level change, found once
+    (:func:`simwave.measure.steady_parts.steady_part`; the part after a change is used only
+    when the system, and so the time its output needs to answer the change, is known)."""
+    if ch.fit_part is None:
+        y = ch.fit_window
+        o = w.o
+        given = list(o.tones_hz) if o.tones_hz is not None else (
+            [o.sine_hz] if o.sine_hz is not None else None)
+        ch.fit_part = sp.steady_part(y, w.window_t(y.size), w.rate, MIN_WINDOW,
+                                     sp.settle_samples(w.system, w.rate), given)
+    return ch.fit_part
 
 
 # ---------------------------------------------------------------------------- shared passes
