@@ -142,7 +142,8 @@ def find_change(y: np.ndarray, t: np.ndarray, rate: float) -> Change | None:
     residual = y - model(t)
     at = _change_point(residual, m)
     shift = float(np.mean(residual[at:]) - np.mean(residual[:at]))
-    se = math.hypot(mean_error(residual, at), mean_error(residual, n - at))
+    # each side's own spread (the shift itself would inflate a spread over both)
+    se = math.hypot(mean_error(residual[:at], at), mean_error(residual[at:], n - at))
     if abs(shift) <= SCREEN_SIGMAS * se or abs(shift) <= RANGE_FRACTION * float(np.ptp(y)):
         return None
     for _ in range(2):
