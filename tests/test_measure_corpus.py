@@ -222,20 +222,26 @@ def check_record_output_only(rec: dict, tally: dict) -> None:
     except Exception as exc:  # a crash is what this corpus counts
         tally["crashes"].append(f"record {rec['i']} (output only): {type(exc).__name__}: {exc}")
         return
-    rows = [r for r in d["channels"][0].get("transitions") or []
-            if r.get("crossing_50_s") is not None]
+    rows = d["channels"][0].get("transitions") or []
     tr = truth_for(rec["kind"], rec["zeta"], rec["scale"], 2.0)
+
+    def off(r: dict, t_k: float) -> float:
+        """How far a row is from the step at t_k: by its 50 % instant, or where a level is
+        not established (instants null, with their reason) by its start (time origin)."""
+        if r.get("crossing_50_s") is not None:
+            return abs(r["crossing_50_s"] - (t_k + tr["delay_s"]))
+        return abs(r["time_origin_s"] - (t_k + tr["start_s"]))
+
     used: set[int] = set()
     for k, (t_k, delta) in enumerate(rec["steps"]):
         big = abs(delta) >= 10 * rec["dist_rms"]
         where = f"record {rec['i']} output only ({rec['kind']}, zeta {rec['zeta']}, " \
                 f"{rec['pattern']}, {rec['disturbance']}{', cut' if rec['cut'] else ''}) " \
                 f"transition {k}"
-        # the output's 50 % instant of this step: its truth, within half a rise time
-        expected = t_k + tr["delay_s"]
+        # the output's own instant of this step: its truth, within half a rise time
         near = [j for j, r in enumerate(rows) if j not in used
-                and abs(r["crossing_50_s"] - expected) <= 0.5 * tr["rise_time_s"] + 3 * T]
-        j = min(near, key=lambda j: abs(rows[j]["crossing_50_s"] - expected), default=None)
+                and off(r, t_k) <= 0.5 * tr["rise_time_s"] + 3 * T]
+        j = min(near, key=lambda j: off(rows[j], t_k), default=None)
         if big:
             tally["eligible"] += 1
             tally["found"] += j is not None
@@ -321,26 +327,34 @@ def test_corpus_full():
     assert t["records"] >= 300
 
 
-OUTPUT_ONLY = pytest.mark.xfail(
-    strict=True,
-    reason="output-only records are measured only when they have two levels: multi-level "
-           "transitions are found from a reference input",
-)
+def multi_level(i: int) -> bool:
+    """Record i is a staircase or up/down sequence that is not cut short."""
+    return PATTERNS[(i // 2) % len(PATTERNS)] in ("staircase", "updown") and i % 11 != 5
 
 
-@OUTPUT_ONLY
 def test_corpus_output_only_sample():
-    t = _run(range(0, N_RECORDS, SAMPLE_EVERY), check_record_output_only)
+    t = _run([i for i in range(0, N_RECORDS, 2) if multi_level(i)], check_record_output_only)
     _assert(t)
     assert t["records"] >= 60
 
 
-@OUTPUT_ONLY
 @pytest.mark.slow
 def test_corpus_output_only_full():
-    t = _run(range(N_RECORDS), check_record_output_only)
+    t = _run([i for i in range(N_RECORDS) if multi_level(i)], check_record_output_only)
     _assert(t)
-    assert t["records"] >= 300
+    assert t["records"] >= 140
+
+
+@pytest.mark.xfail(
+    strict=True,
+    reason="output only, single steps and records cut short: a step at the first sample "
+           "has no initial state in the output, and a two-level output whose levels neither "
+           "the histogram nor its state intervals establish falls back to its extremes",
+)
+@pytest.mark.slow
+def test_corpus_output_only_steps_and_cut_records():
+    t = _run([i for i in range(N_RECORDS) if not multi_level(i)], check_record_output_only)
+    _assert(t)
 
 
 if __name__ == "__main__":  # python tests/test_measure_corpus.py [count] [--output-only]
@@ -349,8 +363,14 @@ if __name__ == "__main__":  # python tests/test_measure_corpus.py [count] [--out
     args = [a for a in sys.argv[1:] if not a.startswith("--")]
     count = int(args[0]) if args else N_RECORDS
     only = "--output-only" in sys.argv
-    t = _run(range(count), check_record_output_only if only else check_record)
-    print(("output only: " if only else "with the input: ") + _report(t))
+    if only:
+        for name, keep in (("multi-level, not cut", multi_level),
+                           ("single steps and cut records", lambda i: not multi_level(i))):
+            t = _run([i for i in range(count) if keep(i)], check_record_output_only)
+            print(f"output only, {name}: " + _report(t))
+        os.sys.exit(0)
+    t = _run(range(count), check_record)
+    print("with the input: " + _report(t))
     for line in (t["crashes"] + t["missed"] + t["bad"])[:40]:
         print("  " + line)
     os.sys.exit(0)

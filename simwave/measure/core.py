@@ -13,6 +13,8 @@
 2. :mod:`~simwave.measure.stages.find_transitions` — transitions (1 pass);
 2b. :mod:`~simwave.measure.stages.input_aligned` — with a reference input, the output's
    transition per input transition and its own levels (2 to 5 passes);
+2c. :mod:`~simwave.measure.stages.output_aligned` — without one, a multi-level output's
+   transitions on the levels of the settled ends beside each (2 passes);
 3. :mod:`~simwave.measure.stages.transition_metrics` — per-transition metrics (1 pass);
 4. :mod:`~simwave.measure.stages.steady_state` — steady state, sine and tone fits (no pass);
 5. :mod:`~simwave.measure.stages.assemble` — the result dictionary (no pass).
@@ -39,6 +41,7 @@ from simwave.measure.stages import (
     classify,
     find_transitions,
     input_aligned,
+    output_aligned,
     record,
     state_levels,
     steady_state,
@@ -81,6 +84,7 @@ def run_stages(w: Work) -> dict:
     classify.run(w)
     find_transitions.run(w)
     input_aligned.run(w)
+    output_aligned.run(w)
     transition_metrics.run(w)
     steady_state.run(w)
     return assemble.run(w)

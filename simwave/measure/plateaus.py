@@ -50,8 +50,18 @@ FLAT_FACTOR = 1.6
 FLAT_RANGE_FRACTION = 1e-3
 #: Fewest windows in a plateau (one could be a window caught half-way along a slow edge).
 MIN_PLATEAU_WINDOWS = 2
-#: Plateaus must cover at least this fraction of the record for it to be a staircase.
+#: Plateaus must cover at least this fraction of the record for it to be a staircase ...
 MIN_COVER = 0.5
+#: ... and of an output's (no reference input), whose ringing after each step takes part
+#: of every state (our choice; a sine or noise has no run of flat windows at two levels).
+MIN_COVER_OUTPUT = 0.25
+#: An output's plateau is a state it holds when it lasts at least this fraction of the
+#: typical state (:func:`held_plateaus`; our choice).
+HELD_FRACTION = 0.25
+#: ... and it differs from the next by more than this many disturbance spans (our choice:
+#: 1.5 spans are 4 RMS of hum, and 7 to 10 RMS of white noise over windows of 40 to 400
+#: samples, under the 10 RMS a step must have to be told from the disturbance).
+HELD_STEP_SPANS = 1.5
 
 
 @dataclass
@@ -140,9 +150,10 @@ class Staircase:
 
     _range_floor: float = 0.0
 
-    def usable(self) -> bool:
-        """A staircase: at least one transition, and plateaus over most of the record."""
-        return len(self.plateaus) >= 2 and self.cover >= MIN_COVER
+    def usable(self, cover: float = MIN_COVER) -> bool:
+        """A staircase: at least one transition, and plateaus over ``cover`` of the record
+        (most of it for an input; an output's ringing takes more of it)."""
+        return len(self.plateaus) >= 2 and self.cover >= cover
 
 
 def find_plateaus(stats: WindowStats, n: int, rest_first: bool = False) -> Staircase:
@@ -202,6 +213,36 @@ def find_plateaus(stats: WindowStats, n: int, rest_first: bool = False) -> Stair
     sc = Staircase(merged, dist, size, n)
     sc._range_floor = floor
     return sc
+
+
+def held_plateaus(sc: Staircase, fraction: float = HELD_FRACTION) -> Staircase:
+    """The plateaus an output holds, without those of its ringing: with noise, the slow
+    swings of a ringing output after a step have flat windows at their turning points,
+    which pass as short plateaus. A state is held at least ``fraction`` of the typical
+    state's length (the length-weighted median: half the plateaus' samples lie in longer
+    ones; our choice); neighbours left within ``HELD_STEP_SPANS`` disturbance spans of
+    each other are joined (a still-ringing overshoot held long enough is no state of its
+    own). A state held much more briefly than the others, or a change of level smaller
+    than that, is then read as part of a transition (the limits of this rule)."""
+    if len(sc.plateaus) < 3:
+        return sc
+    lengths = np.sort([p.end - p.start + 1 for p in sc.plateaus])
+    # the length-weighted median: half the plateaus' samples lie in longer ones
+    cum = np.cumsum(lengths)
+    typical = float(lengths[int(np.searchsorted(cum, 0.5 * cum[-1]))])
+    kept = [p for p in sc.plateaus if p.end - p.start + 1 >= fraction * typical or p.windows == 0]
+    merged: list[Plateau] = []
+    for p in kept:
+        if merged and abs(p.level - merged[-1].level) <= HELD_STEP_SPANS * sc.step_floor:
+            q = merged[-1]
+            w = max(q.windows + p.windows, 1)
+            merged[-1] = Plateau(q.start, p.end, (q.level * q.windows + p.level * p.windows) / w,
+                                 q.windows + p.windows, max(q.spread, p.spread))
+        else:
+            merged.append(p)
+    out = Staircase(merged, sc.disturbance_pp, sc.window, sc.n)
+    out._range_floor = sc._range_floor
+    return out
 
 
 def gap_finders(sc: Staircase, pcts: tuple) -> list[tuple[int, int, EdgeFinder, Plateau, Plateau]]:

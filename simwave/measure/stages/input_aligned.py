@@ -89,16 +89,20 @@ def run(w: Work) -> None:
         aligned_channel_levels(w, c, ch, segs)
 
 
-def aligned_round(w: Work, todo: dict[int, list]) -> dict[int, tuple]:
+def aligned_round(
+    w: Work, todo: dict[int, list], cuts: dict[int, list] | None = None
+) -> dict[int, tuple]:
     """Levels of the input-aligned segments (already collected) and, in one pass, the
     output transition of each input transition: {channel: (segments, {input transition:
-    output Edge}, [(input transition, why there is no output transition)])}."""
+    output Edge}, [(input transition, why there is no output transition)])}. ``cuts``:
+    the transitions the segments were cut at, per channel, when not the reference's
+    (the output's own, :mod:`.output_aligned`)."""
     o = w.o
     plans: dict[int, list] = {}
     unmatched: dict[int, list] = {}
     for c, segs in todo.items():
         ch = w.outs[c]
-        in_edges = w.refs[w.ref_for(c)].edges
+        in_edges = cuts[c] if cuts is not None else w.refs[w.ref_for(c)].edges
         work.decide(w, segs, ch)
         plans[c], unmatched[c] = [], []
         for i in range(len(in_edges)):
@@ -123,7 +127,7 @@ def aligned_round(w: Work, todo: dict[int, list]) -> dict[int, tuple]:
     pass_aligned_edges(w, plans)
     found: dict[int, tuple] = {}
     for c, plan in plans.items():
-        in_edges = w.refs[w.ref_for(c)].edges
+        in_edges = cuts[c] if cuts is not None else w.refs[w.ref_for(c)].edges
         matched: dict[int, Edge] = {}
         for i, _lo, _hi, direction, refs, finder in plan:
             e = next(

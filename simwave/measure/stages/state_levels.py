@@ -11,7 +11,9 @@ output with no reference input, up to four more passes check the histogram's lev
 against the ends of the output's own state intervals and replace them where ringing fools
 the histogram (``levels``, ``segments``, ``level_mode``, ``established``); the full round
 also finds the transitions on the histogram's reference levels (``speculated``), which
-the transitions stage takes instead of a pass of its own when those levels are kept.
+the transitions stage takes instead of a pass of its own when those levels are kept. An
+output of more than two settled levels (or of two that neither establishes) gets
+``staircase`` and ``multilevel`` from its own plateaus, with no pass.
 
 Out: ``w.hist`` and the channel fields above. Next: :mod:`.classify`.
 """
@@ -39,7 +41,9 @@ FIRST_ROUND_SEGMENTS = 64
 def run(w: Work) -> None:
     """The state levels of every channel (see the module's docstring)."""
     pass_levels(w)
+    output_staircases(w, two_levels=False)
     levels_from_output_intervals(w)
+    output_staircases(w, two_levels=True)
 
 
 def pass_levels(w: Work) -> None:
@@ -85,6 +89,40 @@ def staircase(w: Work, ch: Channel) -> None:
         return
     if ch.two_state_fraction >= TWO_STATE_FRACTION and sc.n_levels <= 2:
         return  # two clean states: the histogram's levels serve every transition
+    set_multilevel(w, ch, sc)
+
+
+def output_staircases(w: Work, two_levels: bool) -> None:
+    """Without a reference input, an output of more than two settled levels (a staircase,
+    set-point changes; before the output's state intervals are read, which only serve
+    two levels), or (``two_levels``, after them) of two that neither the histogram nor its
+    own state intervals establish (ringing that keeps its samples off them), is measured
+    transition by transition between its own plateaus: the transitions come from the
+    output itself (:mod:`.output_aligned` then reads each one's levels from the settled
+    ends beside it)."""
+    o = w.o
+    if o.state_level_method == "minmax" or o.signal_kind not in ("auto", "transitions"):
+        return
+    if o.signal_kind == "auto" and (o.sine_hz is not None or o.tones_hz is not None):
+        return
+    for c, ch in enumerate(w.outs):
+        if w.ref_for(c) is not None or ch.constant or ch.levels is None or ch.multilevel:
+            continue
+        sc = pl.held_plateaus(pl.find_plateaus(ch.windows, w.n, rest_first=w.rest_sample))
+        if not sc.usable(pl.MIN_COVER_OUTPUT):
+            continue
+        two_state = ch.established or ch.two_state_fraction >= TWO_STATE_FRACTION
+        if (not two_levels and sc.n_levels > 2) or (
+            two_levels and sc.n_levels == 2 and not two_state
+        ):
+            ch.staircase = sc
+            # the two-level reading of the output's intervals does not apply
+            ch.segments, ch.level_mode, ch.established = [], None, False
+            set_multilevel(w, ch, sc)
+
+
+def set_multilevel(w: Work, ch: Channel, sc: pl.Staircase) -> None:
+    """Mark a channel as measured between its plateaus, with their extremes as levels."""
     ch.multilevel = True
     lo = min(p.level for p in sc.plateaus)
     hi = max(p.level for p in sc.plateaus)
@@ -118,6 +156,7 @@ def levels_from_output_intervals(w: Work) -> None:
         c
         for c, ch in enumerate(w.outs)
         if w.ref_for(c) is None and ch.levels is not None and not ch.constant
+        and not ch.multilevel
     ]
     if not cands:
         return

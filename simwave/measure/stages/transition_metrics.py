@@ -211,7 +211,7 @@ def transient_section(
                 f"({ch.refs[0]:.6g}) to the other ({ch.refs[2]:.6g})"
             )
     d["transition_summary"] = summarize(rows, WORST_IS_MAX + ("peak_time_s",), worst=True)
-    multilevel = ref is not None and ref.multilevel
+    multilevel = ch.multilevel or (ref is not None and ref.multilevel)
     pulses = [] if multilevel else pulse_table(ch.edges, w.rate, w.t0)
     if pulses:
         d["pulses"] = pulses
@@ -233,7 +233,7 @@ def transition_levels(w: Work, ch: Channel, r: EdgeRegions, index: int, row: dic
         method = work.method_text(
             before.method if r.final > r.initial else after.method,
             after.method if r.final > r.initial else before.method,
-            "input-aligned",
+            ch.level_mode or "input-aligned",
         )
         row["initial_level_detail"] = before.detail(w.rate, w.t0, amp)
         row["final_level_detail"] = after.detail(w.rate, w.t0, amp)
