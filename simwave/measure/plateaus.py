@@ -173,15 +173,18 @@ def find_plateaus(stats: WindowStats, n: int, rest_first: bool = False) -> Stair
     flat_tol = max(FLAT_FACTOR * dist, floor)
     step_floor = max(dist, floor)
     runs: list[list[int]] = []
+    total = 0.0  # running sum of the current run's window means (its level in O(1))
     for i in np.flatnonzero(span <= flat_tol):
         i = int(i)
         if runs and runs[-1][-1] == i - 1:
             cur = runs[-1]
-            level = float(np.mean(means[cur]))
+            level = total / len(cur)
             if abs(means[i] - level) <= step_floor:
                 cur.append(i)
+                total += float(means[i])
                 continue
         runs.append([i])
+        total = float(means[i])
     plateaus = []
     for r in runs:
         if len(r) < MIN_PLATEAU_WINDOWS:
