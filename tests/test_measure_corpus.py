@@ -174,40 +174,54 @@ def check_record(rec: dict, tally: dict) -> None:
                 f"{rec['disturbance']}{', cut' if rec['cut'] else ''}) transition {k}"
         row = by_input.get(round(t_k * fs)) or by_input.get(round(t_k * fs) + 1) or \
             by_input.get(round(t_k * fs) - 1)
-        if big:
-            tally["eligible"] += 1
-            tally["found"] += row is not None
-            if row is None:
-                tally["missed"].append(where)
+        _count(tally, big, row is not None, where)
         if row is None:
             continue
-        a = rec["levels"][k]
-        b = rec["levels"][k + 1]
-        unc = row.get("uncertainty") or {}
-        rms = row.get("disturbance_rms") or 0.0
-        peak = row.get("disturbance_peak") or 0.0
-        for key, truth in (("initial_level", a), ("final_level", b)):
-            u = unc.get(key) or 0.0
-            _check_value(row, key, truth, 4 * u + 3 * rms + 1e-3 * abs(delta), tally, where)
+        u_t = (row.get("uncertainty") or {}).get("crossing_50_s") or 0.0
         tr = truth_for(rec["kind"], rec["zeta"], rec["scale"], 2.0)
-        u_t = unc.get("crossing_50_s") or 0.0
-        dur_key = "rise_time_s" if b > a else "fall_time_s"
-        u_d = unc.get("transition_duration_s") or 0.0
-        _check_value(row, dur_key, tr["rise_time_s"], 2 * T + u_d, tally, where)
         _check_value(row, "delay_s", tr["delay_s"], 2 * T + 3 * u_t, tally, where)
-        _check_value(row, "overshoot_pct", tr["overshoot_pct"],
-                     (unc.get("overshoot_pct") or 0.0) + 0.15, tally, where)
-        # settling: the truth for the band narrowed and widened by the disturbance's peak
-        d_pct = 100.0 * peak / abs(delta)
-        wide = truth_for(rec["kind"], rec["zeta"], rec["scale"], 2.0 + d_pct)["settling_time_s"]
-        if 2.0 - d_pct > 0.05:
-            narrow = truth_for(rec["kind"], rec["zeta"], rec["scale"], 2.0 - d_pct)[
-                "settling_time_s"]
-        else:
-            narrow = math.inf
-        mid = 0.5 * (wide + min(narrow, 10 * wide))
-        half = 0.5 * (min(narrow, 10 * wide) - wide) + 2 * T
-        _check_value(row, "settling_time_s", mid, half, tally, where)
+        _check_row(row, rec, k, tally, where, origin_s=0.0, slack_s=0.0)
+
+
+def _count(tally: dict, big: bool, found: bool, where: str) -> None:
+    """A step of at least 10 disturbance RMS counts toward the transitions found."""
+    if big:
+        tally["eligible"] += 1
+        tally["found"] += found
+        if not found:
+            tally["missed"].append(where)
+
+
+def _check_row(row: dict, rec: dict, k: int, tally: dict, where: str, origin_s: float,
+               slack_s: float) -> None:
+    """Levels, duration, overshoot and settling of transition k against the truth; the
+    settling time counted from ``origin_s`` after the step (within ``slack_s`` more)."""
+    T = 1.0 / rec["fs"]
+    delta = rec["steps"][k][1]
+    a, b = rec["levels"][k], rec["levels"][k + 1]
+    unc = row.get("uncertainty") or {}
+    rms = row.get("disturbance_rms") or 0.0
+    peak = row.get("disturbance_peak") or 0.0
+    for key, truth in (("initial_level", a), ("final_level", b)):
+        u = unc.get(key) or 0.0
+        _check_value(row, key, truth, 4 * u + 3 * rms + 1e-3 * abs(delta), tally, where)
+    tr = truth_for(rec["kind"], rec["zeta"], rec["scale"], 2.0)
+    dur_key = "rise_time_s" if b > a else "fall_time_s"
+    u_d = unc.get("transition_duration_s") or 0.0
+    _check_value(row, dur_key, tr["rise_time_s"], 2 * T + u_d, tally, where)
+    _check_value(row, "overshoot_pct", tr["overshoot_pct"],
+                 (unc.get("overshoot_pct") or 0.0) + 0.15, tally, where)
+    # settling: the truth for the band narrowed and widened by the disturbance's peak
+    d_pct = 100.0 * peak / abs(delta)
+    wide = truth_for(rec["kind"], rec["zeta"], rec["scale"], 2.0 + d_pct)["settling_time_s"]
+    if 2.0 - d_pct > 0.05:
+        narrow = truth_for(rec["kind"], rec["zeta"], rec["scale"], 2.0 - d_pct)[
+            "settling_time_s"]
+    else:
+        narrow = math.inf
+    mid = 0.5 * (wide + min(narrow, 10 * wide)) - origin_s
+    half = 0.5 * (min(narrow, 10 * wide) - wide) + 2 * T + slack_s
+    _check_value(row, "settling_time_s", mid, half, tally, where)
 
 
 def check_record_output_only(rec: dict, tally: dict) -> None:
@@ -242,42 +256,17 @@ def check_record_output_only(rec: dict, tally: dict) -> None:
         near = [j for j, r in enumerate(rows) if j not in used
                 and off(r, t_k) <= 0.5 * tr["rise_time_s"] + 3 * T]
         j = min(near, key=lambda j: off(rows[j], t_k), default=None)
-        if big:
-            tally["eligible"] += 1
-            tally["found"] += j is not None
-            if j is None:
-                tally["missed"].append(where)
+        _count(tally, big, j is not None, where)
         if j is None:
             continue
         used.add(j)
         row = rows[j]
         a, b = rec["levels"][k], rec["levels"][k + 1]
-        unc = row.get("uncertainty") or {}
-        rms = row.get("disturbance_rms") or 0.0
-        peak = row.get("disturbance_peak") or 0.0
         if row.get("direction") != ("rising" if b > a else "falling"):
             tally["bad"].append(f"{where}: direction {row.get('direction')}")
-        for key, truth in (("initial_level", a), ("final_level", b)):
-            u = unc.get(key) or 0.0
-            _check_value(row, key, truth, 4 * u + 3 * rms + 1e-3 * abs(delta), tally, where)
-        dur_key = "rise_time_s" if b > a else "fall_time_s"
-        u_d = unc.get("transition_duration_s") or 0.0
-        _check_value(row, dur_key, tr["rise_time_s"], 2 * T + u_d, tally, where)
-        _check_value(row, "overshoot_pct", tr["overshoot_pct"],
-                     (unc.get("overshoot_pct") or 0.0) + 0.15, tally, where)
         # settling from the output's 10 % instant (which the disturbance moves by u_t)
-        d_pct = 100.0 * peak / abs(delta)
-        u_t = unc.get("crossing_50_s") or 0.0
-        start = tr["start_s"]
-        wide = truth_for(rec["kind"], rec["zeta"], rec["scale"], 2.0 + d_pct)["settling_time_s"]
-        if 2.0 - d_pct > 0.05:
-            narrow = truth_for(rec["kind"], rec["zeta"], rec["scale"], 2.0 - d_pct)[
-                "settling_time_s"]
-        else:
-            narrow = math.inf
-        mid = 0.5 * (wide + min(narrow, 10 * wide)) - start
-        half = 0.5 * (min(narrow, 10 * wide) - wide) + 2 * T + 3 * u_t
-        _check_value(row, "settling_time_s", mid, half, tally, where)
+        u_t = (row.get("uncertainty") or {}).get("crossing_50_s") or 0.0
+        _check_row(row, rec, k, tally, where, origin_s=tr["start_s"], slack_s=3 * u_t)
 
 
 def _tally() -> dict:
