@@ -358,3 +358,31 @@ def test_source_date_epoch_makes_outputs_byte_identical(tmp_path, monkeypatch):
             simwave.simulate("1/(1m*s+1)", "step:rate=1k,duration=0.05", output=path)
     assert a.read_bytes() == b.read_bytes()
     assert simwave.read(a).attrs["written"] == "2023-11-14T22:13:20+00:00"
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.floats(allow_nan=True, allow_infinity=True), min_size=1, max_size=20),
+       st.text(max_size=8))
+def test_metrics_json_reads_back_as_the_standard_library_writes_it(tmp_path_factory, values,
+                                                                   text):
+    # The metrics file is written by orjson (speed); its numbers must read back to the same
+    # float64 values as Python's own json module writes them (shortest round-trip repr), and
+    # non-finite values must become null with their reasons, as before.
+    from simwave.run import write_json
+
+    path = tmp_path_factory.mktemp("json") / "m.json"
+    data = {"values": values, "numpy": np.array(values[:3]), "count": np.int64(len(values)),
+            "text": text, "nested": [{"v": v} for v in values[:2]]}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # the null-values note
+        write_json(path, data)
+    got = json.loads(path.read_text(encoding="utf-8"))
+    finite = [v if np.isfinite(v) else None for v in values]
+    assert got["values"] == finite
+    assert [np.float64(v).tobytes() for v in got["values"] if v is not None] == \
+        [np.float64(v).tobytes() for v in values if np.isfinite(v)]
+    assert got["numpy"] == finite[:3] and got["count"] == len(values) and got["text"] == text
+    nulls = [i for i, v in enumerate(values) if not np.isfinite(v)]
+    assert sorted(got.get("null_reasons", {})) == sorted(
+        [f"values[{i}]" for i in nulls] + [f"numpy[{i}]" for i in nulls if i < 3]
+        + [f"nested[{i}].v" for i in nulls if i < 2])
