@@ -41,9 +41,10 @@ FIRST_ROUND_SEGMENTS = 64
 def run(w: Work) -> None:
     """The state levels of every channel (see the module's docstring)."""
     pass_levels(w)
-    output_staircases(w, two_levels=False)
+    plateaus: dict = {}  # per output channel, found once for both calls
+    output_staircases(w, two_levels=False, found=plateaus)
     levels_from_output_intervals(w)
-    output_staircases(w, two_levels=True)
+    output_staircases(w, two_levels=True, found=plateaus)
 
 
 def pass_levels(w: Work) -> None:
@@ -92,14 +93,14 @@ def staircase(w: Work, ch: Channel) -> None:
     set_multilevel(w, ch, sc)
 
 
-def output_staircases(w: Work, two_levels: bool) -> None:
+def output_staircases(w: Work, two_levels: bool, found: dict | None = None) -> None:
     """Without a reference input, an output of more than two settled levels (a staircase,
     set-point changes; before the output's state intervals are read, which only serve
     two levels), or (``two_levels``, after them) of two that neither the histogram nor its
     own state intervals establish (ringing that keeps its samples off them), is measured
     transition by transition between its own plateaus: the transitions come from the
     output itself (:mod:`.output_aligned` then reads each one's levels from the settled
-    ends beside it)."""
+    ends beside it). ``found``: the plateaus of each channel, kept between the two calls."""
     o = w.o
     if o.state_level_method == "minmax" or o.signal_kind not in ("auto", "transitions"):
         return
@@ -108,7 +109,11 @@ def output_staircases(w: Work, two_levels: bool) -> None:
     for c, ch in enumerate(w.outs):
         if w.ref_for(c) is not None or ch.constant or ch.levels is None or ch.multilevel:
             continue
-        sc = pl.held_plateaus(pl.find_plateaus(ch.windows, w.n, rest_first=w.rest_sample))
+        sc = (found or {}).get(c)
+        if sc is None:
+            sc = pl.held_plateaus(pl.find_plateaus(ch.windows, w.n, rest_first=w.rest_sample))
+            if found is not None:
+                found[c] = sc
         if not sc.usable(pl.MIN_COVER_OUTPUT):
             continue
         two_state = ch.established or ch.two_state_fraction >= TWO_STATE_FRACTION
