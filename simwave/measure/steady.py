@@ -252,8 +252,17 @@ def spectrum_peak_hz(y: np.ndarray, rate: float) -> float:
     M. Gasior and J. L. Gonzalez, "Improving FFT frequency measurement resolution by
     parabolic and Gaussian spectrum interpolation", AIP Conf. Proc. 732, 2004.
     """
-    n = y.size
-    spec = np.abs(np.fft.rfft((y - np.mean(y)) * cosine_window(n, HANN)))
+    return peak_hz_of(hann_magnitude(y), y.size, rate)
+
+
+def hann_magnitude(y: np.ndarray) -> np.ndarray:
+    """|rfft| of the window about its mean, Hann-weighted (the spectrum the peak and the
+    concentration below are read from)."""
+    return np.abs(np.fft.rfft((y - np.mean(y)) * cosine_window(y.size, HANN)))
+
+
+def peak_hz_of(spec: np.ndarray, n: int, rate: float) -> float:
+    """:func:`spectrum_peak_hz` on a spectrum already taken by :func:`hann_magnitude`."""
     if spec.size < 3:
         raise MeasurementError("window too short for a spectrum")
     k = int(np.argmax(spec[1:])) + 1
@@ -264,6 +273,32 @@ def spectrum_peak_hz(y: np.ndarray, rate: float) -> float:
         if den < 0:
             offset = 0.5 * (la - lc) / den
     return (k + offset) * rate / n
+
+
+#: Half-width in bins of the band :func:`tone_concentration` sums: the Hann main lobe is
+#: +/-2 bins and its sidelobes fall 18 dB per octave, so a tone leaves far less than 1e-4
+#: of its windowed energy outside +/-8 bins (Harris 1978, Hann window figures).
+CONCENTRATION_HALF_BINS = 8
+
+
+def tone_concentration(spec: np.ndarray) -> tuple[float, int]:
+    """Spectral concentration of a Hann spectrum from :func:`hann_magnitude`: the largest
+    fraction of the windowed energy found in any ``2 * CONCENTRATION_HALF_BINS + 1``
+    consecutive bins, and the centre bin of that band.
+
+    A sine holds nearly all of its windowed energy in one such band; white noise spreads
+    its energy evenly, so any one band of a long window holds a small share (about
+    17 / (n / 2) of it, a few times more at its largest).
+    """
+    p = spec * spec
+    total = float(p.sum())
+    width = 2 * CONCENTRATION_HALF_BINS + 1
+    if total <= 0 or p.size <= width:
+        return 1.0, 0
+    c = np.concatenate(([0.0], np.cumsum(p)))
+    band = c[width:] - c[:-width]
+    j = int(np.argmax(band))
+    return float(band[j]) / total, j + CONCENTRATION_HALF_BINS
 
 
 def find_tones(

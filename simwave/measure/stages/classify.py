@@ -27,6 +27,19 @@ SINE_AUTO_EXPLAINED = 0.9
 SINE_MIN_EXPLAINED = 0.5
 #: A window is a ramp when a straight line explains this fraction of its variance.
 RAMP_R2 = 0.999
+#: Cheap screen before the (costly, iterative) four-parameter fit: a window whose Hann
+#: spectrum holds less than this fraction of its energy in any 17 consecutive bins
+#: (:func:`~simwave.measure.steady.tone_concentration`) is no sine, and the fit is skipped.
+#: Our choice, set well below what a fit passing SINE_AUTO_EXPLAINED implies: at the
+#: least-squares optimum the residual is orthogonal to the sine and the offset, so the
+#: sine holds >= 0.9 of the AC energy; Hann-weighted it keeps >= 3/8 of that in its band
+#: (the window's mean square), the residual at most 0.1 (the window's peak is 1), so the
+#: band holds at least (sqrt(0.9 * 3/8) - sqrt(0.1))^2 = 0.07 of the windowed energy
+#: even for a residual placed to cancel it. White noise over 65,536 samples: about 0.001.
+SINE_MIN_CONCENTRATION = 0.02
+#: ... the screen decides nothing when that band is centred this close to DC (fewer than
+#: about 10 cycles in the window: the sine's lobe and the offset's overlap there).
+SCREEN_MIN_BIN = 10
 
 
 def run(w: Work) -> None:
@@ -89,13 +102,14 @@ def tone_kind(w: Work, y: np.ndarray, t: np.ndarray, is_reference: bool) -> str:
                 fit = st.fit_tones(y, t, tones, refine=True)
                 if fit.explained >= SINE_AUTO_EXPLAINED:
                     return "multitone"
-        try:
-            f0 = st.spectrum_peak_hz(y, w.rate)
-            fit = st.fit_tones(y, t, [f0], refine=True)
-            if fit.explained >= SINE_AUTO_EXPLAINED and fit.tones[0].frequency_hz > 0:
-                return "sine"
-        except MeasurementError:
-            pass
+        if could_be_sine(spec := st.hann_magnitude(y)):
+            try:
+                f0 = st.peak_hz_of(spec, y.size, w.rate)
+                fit = st.fit_tones(y, t, [f0], refine=True)
+                if fit.explained >= SINE_AUTO_EXPLAINED and fit.tones[0].frequency_hz > 0:
+                    return "sine"
+            except MeasurementError:
+                pass
         if not is_reference:
             tones = st.find_tones(y, w.rate)
             if len(tones) >= 2:
@@ -103,6 +117,13 @@ def tone_kind(w: Work, y: np.ndarray, t: np.ndarray, is_reference: bool) -> str:
                 if fit.explained >= SINE_AUTO_EXPLAINED:
                     return "multitone"
     return "other"
+
+
+def could_be_sine(spec: np.ndarray) -> bool:
+    """False when the Hann spectrum ``spec`` rules a sine out (SINE_MIN_CONCENTRATION):
+    one FFT instead of the four-parameter fit's iterations over the window."""
+    share, centre = st.tone_concentration(spec)
+    return centre < SCREEN_MIN_BIN or share >= SINE_MIN_CONCENTRATION
 
 
 def require_sine(w: Work, ch: Channel, kind: str) -> None:
