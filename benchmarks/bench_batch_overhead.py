@@ -10,7 +10,10 @@ Run:  python benchmarks/bench_batch_overhead.py [--files 2000] [--long-files 40]
    per file, no metrics) and the per-pair overhead of simwave over it in worker
    time (wall x jobs / pairs minus the loop's time per pair). The measuring step
    alone (``simwave.measure`` on one output against its input) is timed too: its
-   cost belongs to the measuring rebuild, not to the batch machinery.
+   cost belongs to the measuring rebuild, not to the batch machinery. Then where a
+   short pair's time goes, in one process (best of 3 over up to 200 files): the plain
+   loop, ``simwave run`` alone, and the run with measuring and the metrics JSON, of
+   which measuring in memory.
 2. Long pairs: M WAVs of 10 s x 3 systems (same batch command); target >= 4x the
    baseline's pairs/s (the issue's run: 200 files; ``--long-files`` scales it down,
    the ratio is what is compared).
