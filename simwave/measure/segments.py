@@ -419,9 +419,13 @@ def analyse_segment(seg: Segment, y: np.ndarray, first: int, fraction: float) ->
     seg.rms_dev = float(np.sqrt(np.mean(dev * dev))) if w.size else 0.0
     seg.peak_dev = float(np.max(np.abs(dev))) if w.size else 0.0
     if y.size:
-        back = np.maximum.accumulate(np.abs(y[::-1] - seg.median))
         k = np.unique(np.linspace(0, y.size - 1, min(y.size, BACK_POINTS)).astype(np.int64))
-        seg.back_k, seg.back_dev = k + 1, back[k]
+        # running maximum of |y - median| from the end back, read at k only: the largest of
+        # each stretch up to the next k, then a running maximum of those (a max is exact,
+        # so the same values as the running maximum over every sample, at a quarter the cost)
+        dev_back = np.abs(y[::-1] - seg.median)
+        stretch = np.maximum.reduceat(dev_back, np.concatenate(([0], k[:-1] + 1)))
+        seg.back_k, seg.back_dev = k + 1, np.maximum.accumulate(stretch)
     if w_len >= MIN_END_WINDOW:
         m = w_len // 4
         meds = [float(np.median(w[i * m : (i + 1) * m])) for i in range(3)]
