@@ -106,11 +106,9 @@ def check_plot_path(path: str | os.PathLike[str]) -> str:
         raise PlotError(
             f"{p}: cannot write a plot as {shown}; use a file name ending in .png or .svg"
         )
-    folder = os.path.dirname(os.path.abspath(p))
-    if not os.path.isdir(folder):
-        raise PlotError(f"{p}: folder {folder} does not exist")
-    if not os.access(folder, os.W_OK):
-        raise PlotError(f"{p}: folder {folder} is not writable")
+    from simwave.signals.atomic import check_target_folder
+
+    check_target_folder(p, PlotError)
     return p
 
 

@@ -115,11 +115,9 @@ def check_report_path(path: str | os.PathLike[str]) -> str:
         raise ReportError(f"{p}: is a folder, not a report file name (give NAME.html)")
     if os.path.splitext(p)[1].lower() not in (".html", ".htm"):
         raise ReportError(f"{p}: a report is an HTML page; use a file name ending in .html")
-    folder = os.path.dirname(os.path.abspath(p))
-    if not os.path.isdir(folder):
-        raise ReportError(f"{p}: folder {folder} does not exist")
-    if not os.access(folder, os.W_OK):
-        raise ReportError(f"{p}: folder {folder} is not writable")
+    from simwave.signals.atomic import check_target_folder
+
+    check_target_folder(p, ReportError)
     return p
 
 

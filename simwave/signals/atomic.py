@@ -112,6 +112,15 @@ def guard_outputs(outputs: Mapping[str, str | os.PathLike[str] | None],
         check_output_path(path)
 
 
+def check_target_folder(p: str, error: type[Exception]) -> None:
+    """Raise ``error`` when the folder that would hold the file ``p`` is missing or read-only."""
+    folder = os.path.dirname(os.path.abspath(p))
+    if not os.path.isdir(folder):
+        raise error(f"{p}: folder {folder} does not exist")
+    if not os.access(folder, os.W_OK):
+        raise error(f"{p}: folder {folder} is not writable")
+
+
 #: Temporary files of this process not yet renamed or removed (see remove_live_temporaries).
 _LIVE: set[str] = set()
 
