@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from simwave.measure.levels import fft_convolve_same
+from simwave.measure.levels import fft_convolve_same, next_fast_len
 from simwave.measure.steady import BLACKMAN_HARRIS_4, HANN, cosine_window
 
 
@@ -48,3 +48,33 @@ def test_measuring_does_not_import_scipy_signal(tmp_path):
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "False"
+
+
+def test_next_fast_len_equals_scipy():
+    # the FFT length of the histogram's convolution: scipy.fft.next_fast_len(n, real=True)
+    from scipy import fft
+
+    ns = list(range(1, 5000)) + [16384 + 8001 - 1, 16384 + 129 - 1, 2**20 + 1, 3**11 + 2]
+    assert [next_fast_len(n) for n in ns] == [fft.next_fast_len(n, True) for n in ns]
+
+
+def test_measuring_a_wide_histogram_imports_no_scipy():
+    # a noisy step: its histogram is smoothed by the FFT convolution (kernel radius >= 64
+    # bins), which uses numpy's FFT; scipy.fft and scipy.ndimage cost 0.2-0.3 s of import
+    import subprocess
+    import sys
+
+    code = (
+        "import sys, numpy as np, simwave\n"
+        "rng = np.random.default_rng(1)\n"
+        "x = np.r_[np.zeros(3000), np.ones(3000)] + 0.05 * rng.standard_normal(6000)\n"
+        "import importlib\n"
+        "lv = importlib.import_module('simwave.measure.levels')\n"
+        "radii = []\n"
+        "orig = lv._smoothed\n"
+        "lv._smoothed = lambda w, h: (radii.append(int(4 * h + 0.5)), orig(w, h))[1]\n"
+        "simwave.measure(simwave.Waveform(x, 1000.0))\n"
+        "print(min(radii) >= 64, sorted(m for m in sys.modules if m.startswith('scipy')))\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "True []"

@@ -12,8 +12,6 @@ from dataclasses import dataclass
 from typing import Sequence
 
 import numpy as np
-from scipy import fft as sp_fft
-from scipy.ndimage import gaussian_filter1d
 
 from simwave.errors import MeasurementError
 
@@ -139,6 +137,10 @@ def _smoothed(w: np.ndarray, h_bins: float) -> np.ndarray:
         return w
     radius = int(4.0 * h_bins + 0.5)
     if radius < 64:
+        # imported here: scipy.ndimage costs 0.2-0.3 s of import, paid only by the records
+        # whose histogram needs a narrow kernel
+        from scipy.ndimage import gaussian_filter1d
+
         return gaussian_filter1d(w, h_bins, mode="constant")
     k = np.exp(-0.5 * (np.arange(-radius, radius + 1) / h_bins) ** 2)
     return fft_convolve_same(w, k / k.sum())
@@ -150,14 +152,36 @@ def fft_convolve_same(a: np.ndarray, k: np.ndarray) -> np.ndarray:
     The same steps as ``scipy.signal.fftconvolve(a, k, mode="same")`` (real FFTs of the
     next fast length, product, inverse, centred slice), so the two agree bit for bit
     (tests/test_measure_windows.py), without importing scipy.signal (about a second on a
-    loaded machine, paid by every process that measures).
+    loaded machine, paid by every process that measures) or scipy.fft (0.2-0.3 s): numpy's
+    FFT is the same pocketfft code as scipy.fft's, and :func:`next_fast_len` picks scipy's
+    length, so the transforms agree bit for bit too (same test).
     """
     n = a.size + k.size - 1
-    nf = sp_fft.next_fast_len(n, True)
-    spec = sp_fft.rfftn(a, [nf], axes=[0]) * sp_fft.rfftn(k, [nf], axes=[0])
-    full = sp_fft.irfftn(spec, [nf], axes=[0])[:n]
+    nf = next_fast_len(n)
+    spec = np.fft.rfft(a, nf) * np.fft.rfft(k, nf)
+    full = np.fft.irfft(spec, nf)[:n]
     start = (n - a.size) // 2
     return full[start : start + a.size]
+
+
+def next_fast_len(n: int) -> int:
+    """Smallest 5-smooth number (2^a 3^b 5^c) >= ``n``: scipy.fft.next_fast_len(n, real=True)
+    (the lengths pocketfft's real transforms factor fastest), without importing scipy.fft."""
+    if n <= 6:
+        return max(int(n), 1)
+    best = 1 << (int(n) - 1).bit_length()  # the next power of two is a candidate
+    p5 = 1
+    while p5 < best:
+        p35 = p5
+        while p35 < best:
+            # the smallest power of two times p35 that reaches n
+            q = -(-int(n) // p35)
+            cand = p35 << (q - 1).bit_length()
+            if cand < best:
+                best = cand
+            p35 *= 3
+        p5 *= 5
+    return best
 
 
 def _silverman_bandwidth(w: np.ndarray, x: np.ndarray) -> float:
