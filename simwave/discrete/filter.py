@@ -50,6 +50,7 @@ import scipy.signal as sig
 from simwave.discrete.incremental import (
     IncrementalModel,
     increment_round_off,
+    section_response_difference,
     section_round_off,
 )
 from simwave.discrete.realization import exp_increment, expm, increment_response
@@ -84,6 +85,15 @@ PIECE_VALUES = 1 << 16
 #: 1 kHz), so 1e-11 keeps the sections' real error near 3e-12, 30x under the
 #: 1e-10 target.
 SECTIONS_LIMIT = 1e-11
+
+#: ``auto`` also runs the incremental form when the sections' frequency response differs
+#: from the increment form's by more than this fraction of its peak
+#: (:func:`simwave.discrete.incremental.section_response_difference`, hold methods: their
+#: zeros come from the delta-domain pencil). The sections' step-response error was
+#: measured at 0.2-1.7x this difference (Butterworth 2-20, fs/fc 4.8-4800), so below it
+#: they stay under 1e-10 of the peak; ordinary models are far below it (Butterworth <= 11
+#: at fs/fc >= 4.8: at most 7e-11, most under 1e-11), so they keep the faster sections.
+RESPONSE_LIMIT = 5e-11
 
 
 @dataclass(eq=False)
@@ -391,32 +401,50 @@ class DiscreteSystem:
         self._choose_realization(realization)
 
     def _choose_realization(self, wanted: str) -> None:
-        """Sections where they are exact enough, the incremental form where they are not."""
+        """Sections where they are exact enough, the incremental form where they are not.
+
+        Two checks: the sections' coefficient round-off (``section_round_off``, poles
+        near z = 1) and, for the hold methods, how far the sections' response is from
+        the increment form's (``section_response_difference``: zeros from the pencil
+        that the sections do not carry exactly). ``auto`` takes the sections only when
+        both are within their limits.
+        """
         if wanted not in REALIZATIONS:
             raise DiscretizationError(
                 f"unknown realization {wanted!r}; known: {', '.join(REALIZATIONS)}"
             )
         sec_level = section_round_off(self.sos)
         inc_level = increment_round_off(self._inc.poles_increment()) if self._inc else None
+        response = getattr(self._design, "response", None)
+        diff = None
+        if (wanted != "incremental" and response is not None and self._thiran_d is None
+                and sec_level <= SECTIONS_LIMIT):
+            diff = section_response_difference(self.sos, *response)
         if wanted == "auto":
-            use_inc = self._inc is not None and sec_level > SECTIONS_LIMIT
+            use_inc = self._inc is not None and (
+                sec_level > SECTIONS_LIMIT or (diff is not None and diff > RESPONSE_LIMIT))
         else:
             use_inc = wanted == "incremental"
             if use_inc and self._inc is None:
                 raise DiscretizationError("this model has no incremental realization")
         self.realization = "incremental" if use_inc else "sections"
-        self.round_off_level = float(inc_level if use_inc else sec_level)
-        why = (
-            f"second-order sections would round to about {sec_level:.1e} of the signal "
-            f"(limit {SECTIONS_LIMIT:.0e}); incremental state space instead"
-            if use_inc and wanted == "auto"
-            else f"as asked ({wanted})" if wanted != "auto"
-            else f"second-order sections round to about {sec_level:.1e} of the signal"
-        )
+        sec_total = sec_level if diff is None else max(sec_level, diff)
+        self.round_off_level = float(inc_level if use_inc else sec_total)
+        if wanted != "auto":
+            why = f"as asked ({wanted})"
+        elif use_inc and sec_level > SECTIONS_LIMIT:
+            why = (f"second-order sections would round to about {sec_level:.1e} of the signal "
+                   f"(limit {SECTIONS_LIMIT:.0e}); incremental state space instead")
+        elif use_inc:
+            why = (f"second-order sections would differ from the model by {diff:.1e} of its "
+                   f"peak response (their zeros are not exact; limit {RESPONSE_LIMIT:.0e}); "
+                   "incremental state space instead")
+        else:
+            why = f"second-order sections round to about {sec_total:.1e} of the signal"
         self.options["realization"] = self.realization
         self.options["realization_reason"] = why
         self.options["round_off_level"] = self.round_off_level
-        self.options["sections_round_off_level"] = sec_level
+        self.options["sections_round_off_level"] = sec_total
 
     # ----------------------------------------------------------------- construction
     def _make_sos(self) -> np.ndarray:

@@ -50,7 +50,7 @@ from simwave.errors import DiscretizationError
 from simwave.discrete.names import DEFAULT_METHOD, METHODS  # noqa: F401 - re-exported
 from simwave.discrete.realization import (
     analog_state_space,
-    delta_gain,
+    delta_gain_response,
     exp_increment,
     hold_increments,
     pencil_zeros,
@@ -82,7 +82,10 @@ class Design:
     space (E, G, C, D): x[k+1] = x[k] + E x[k] + G u[k], y[k] = C x[k] + D u[k],
     E = Phi - I block lower triangular with 1 x 1 and 2 x 2 (modal) diagonal
     blocks, every entry to its own relative accuracy (see
-    :func:`simwave.discrete.realization.exp_increment`).
+    :func:`simwave.discrete.realization.exp_increment`). ``response`` (hold
+    methods) is (theta, h): the increment form's frequency response at angles
+    theta (radians per sample), what the gain was matched among; the choice of
+    realization compares the sections with it.
     """
 
     zeros: np.ndarray
@@ -93,6 +96,7 @@ class Design:
     bilinear_k: float | None = None
     notes: dict[str, Any] = field(default_factory=dict)
     increment: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray] | None = None
+    response: tuple[np.ndarray, np.ndarray] | None = None
 
 
 # --------------------------------------------------------------------------- validation
@@ -361,14 +365,15 @@ def design(
     # one as T -> 0, so zeros near z = 1 come out as z - 1 to full relative accuracy.
     wz = pencil_zeros(E / T, Gam / T, Cd, Dd) * T
     thetas = np.concatenate([[0.0], np.abs(poles) * T, np.geomspace(1e-9, math.pi, 48)])
-    kd = delta_gain(E, Gam, Cd, Dd, wz, wp, thetas)
+    kd, th, h = delta_gain_response(E, Gam, Cd, Dd, wz, wp, thetas)
     if kd == 0.0:
         wz = np.zeros(0, dtype=np.complex128)
     pd = np.exp(poles * T)
     if frac > 0:
         pd = np.concatenate([pd, [0.0]])
     return Design(tidy_roots(1.0 + wz), tidy_roots(pd), kd, (A, B, C, D),
-                  correction=correction, notes=notes, increment=(E, Gam, Cd, Dd))
+                  correction=correction, notes=notes, increment=(E, Gam, Cd, Dd),
+                  response=(th, h))
 
 
 def _dc_gain(zeros, poles, gain) -> float:
@@ -510,8 +515,11 @@ def discretize(
         space, x[k+1] = x[k] + E x[k] + G u[k], that keeps its digits when poles
         are near z = 1 (rates far above the system's frequencies, stiff systems,
         integrators), several times slower. ``auto`` (default) runs sections
-        unless their expected round-off exceeds 1e-11 of the signal; the choice,
-        the reason and the expected round-off level are in ``options``.
+        unless their expected round-off exceeds 1e-11 of the signal or, for the
+        hold methods, their frequency response differs from the increment form's
+        by more than 5e-11 of its peak (zeros of a high relative degree or a
+        fractional dead time that the sections do not carry exactly); the
+        choice, the reason and the expected round-off level are in ``options``.
 
     Returns
     -------

@@ -30,6 +30,7 @@ __all__ = [
     "exp_increment",
     "hold_increments",
     "delta_gain",
+    "delta_gain_response",
     "state_blocks",
 ]
 
@@ -478,6 +479,14 @@ def delta_gain(E, G, C, D, w_zeros, w_poles, theta_candidates) -> float:
     where |H| is largest keeps the match away from stopband round-off (where
     |H| can be 1e-19 of its peak, and the gain would be fitted to noise).
     """
+    return delta_gain_response(E, G, C, D, w_zeros, w_poles, theta_candidates)[0]
+
+
+def delta_gain_response(E, G, C, D, w_zeros, w_poles, theta_candidates):
+    """(k, theta, h): :func:`delta_gain`'s k, and the angles (radians per sample) and
+    responses D + C (w I - E)^{-1} G it was chosen among (as computed: a pole at a
+    candidate point gives a non-finite value there, passed over by the match).
+    """
     w_zeros = np.asarray(w_zeros, dtype=np.complex128)
     w_poles = np.asarray(w_poles, dtype=np.complex128)
     th = np.unique(np.clip(np.asarray(theta_candidates, dtype=np.float64), 0.0, math.pi))
@@ -489,9 +498,9 @@ def delta_gain(E, G, C, D, w_zeros, w_poles, theta_candidates) -> float:
         keep = near > 1e-6 * np.maximum(scale, 1e-300)
         if np.any(keep):
             w = w[keep]
+            th = th[keep]
     # A direct evaluation of (w I - E) at w = 0 is exact for a nonsingular E.
     h = increment_response(E, G, C, D, w)
-    h = np.where(np.isfinite(h), h, 0.0)
-    i = int(np.argmax(np.abs(h)))
+    i = int(np.argmax(np.abs(np.where(np.isfinite(h), h, 0.0))))
     unit = np.prod(w[i] - w_zeros) / np.prod(w[i] - w_poles)
-    return float(np.real(h[i] / unit))
+    return float(np.real(h[i] / unit)), th, h
