@@ -78,3 +78,21 @@ def test_measuring_a_wide_histogram_imports_no_scipy():
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "True []"
+
+
+def test_lean_median_and_first_quartile_equal_numpy_bit_for_bit():
+    # segments.median and plateaus.first_quartile repeat np.median's and np.percentile's
+    # (method "linear") steps without their wrapping; same values, signed zeros included
+    from simwave.measure.plateaus import first_quartile
+    from simwave.measure.segments import median
+
+    rng = np.random.default_rng(5)
+    for t in range(3000):
+        n = int(rng.integers(1, 50)) if t % 10 else int(rng.integers(1, 20000))
+        a = rng.standard_normal(n) * 10.0 ** float(rng.integers(-200, 200))
+        if t % 3 == 0:
+            a = np.round(a * 3)  # ties and signed zeros
+        if t % 7 == 0:
+            a[: n // 2] = -0.0
+        for got, want in ((median(a), np.median(a)), (first_quartile(a), np.percentile(a, 25))):
+            assert got == float(want) and np.signbit(got) == np.signbit(want), (n, got, want)

@@ -270,3 +270,35 @@ def test_preshoot_of_non_minimum_phase_step():
     # relative 1e-4: the final level (the amplitude) is found to the histogram resolution
     assert tr["preshoot_pct"] == pytest.approx(-100 * resp.min(), rel=1e-4)
     assert tr["preshoot_pct"] > 1.0
+
+
+def test_edge_finder_run_by_run_equals_event_by_event(monkeypatch):
+    # EdgeFinder.feed takes a block's events run by run when they come in long runs and
+    # one by one otherwise; both give the same transitions and carried state, in any split
+    import importlib
+
+    tr = importlib.import_module("simwave.measure.transient")
+
+    rng = np.random.default_rng(11)
+
+    def found(y, cuts, runs_per_sample):
+        monkeypatch.setattr(tr, "RUNS_PER_SAMPLE", runs_per_sample)
+        f = tr.EdgeFinder(0.2, 0.5, 0.8)
+        pos = 0
+        for c in cuts + [y.size]:
+            f.feed(y[pos:c], pos)
+            pos = c
+        edges = [(e.direction, e.k_start, e.k_mid, e.j) for e in f.edges]
+        return edges, (f.last_event, f.last_state, f.last_below_mid, f.last_above_mid)
+
+    for t in range(200):
+        n = int(rng.integers(2, 4000))
+        period = int(rng.integers(2, 400))
+        y = ((np.arange(n) // period) % 2) + rng.uniform(0, 0.4) * rng.standard_normal(n)
+        cuts = sorted(set(rng.integers(1, n, int(rng.integers(0, 5))).tolist()))
+        runs = found(y, cuts, 1 << 30)  # never too many runs: run by run
+        events = found(y, cuts, 1)  # always too many: event by event
+        whole = found(y, [], 1 << 30)
+        assert runs == events
+        assert runs[0] == whole[0]
+        assert len(runs[0]) > 0 or n < 2 * period

@@ -7,6 +7,7 @@ array of counts per channel whatever the record length.
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 from typing import Sequence
@@ -102,19 +103,30 @@ class LevelHistogram:
         cache = self._centers
         if c not in cache:
             w = (self.hi[c] - self.lo[c]) / self.n_bins
-            x = self.lo[c] + (np.arange(self.n_bins) + 0.5) * w
+            x = self.lo[c] + _half_steps(self.n_bins) * w
             x.flags.writeable = False
             cache[c] = x
         return cache[c]
 
     def fraction_near(self, c: int, levels: Sequence[float], half_width: float) -> float:
         """Fraction of the samples within ``half_width`` of any of ``levels``."""
-        x = self.centers(c)
-        near = np.zeros(self.n_bins, dtype=bool)
+        counts = self.counts[c]
+        # only the bins holding samples: the sums are of integers, exact in any order
+        held = np.flatnonzero(counts)
+        x = self.centers(c)[held]
+        near = np.zeros(held.size, dtype=bool)
         for lv in levels:
             near |= np.abs(x - lv) <= half_width
-        total = self.counts[c].sum()
-        return float(self.counts[c][near].sum() / total) if total else 0.0
+        total = counts.sum()
+        return float(counts[held][near].sum() / total) if total else 0.0
+
+
+@functools.lru_cache(maxsize=4)
+def _half_steps(n_bins: int) -> np.ndarray:
+    """``np.arange(n_bins) + 0.5``: bin centres in bins (computed once, read-only)."""
+    x = np.arange(n_bins) + 0.5
+    x.flags.writeable = False
+    return x
 
 
 def _weighted_quantile(
@@ -212,10 +224,11 @@ def _fwhm(smooth: np.ndarray, w: np.ndarray) -> tuple[int, int, float]:
     """Bins (lo, hi) of the highest peak down to half its height, and the samples there."""
     k = int(np.argmax(smooth))
     below = smooth < 0.5 * smooth[k]
-    left = np.flatnonzero(below[:k])
-    right = np.flatnonzero(below[k:])
-    lo = int(left[-1]) + 1 if left.size else 0
-    hi = k + int(right[0]) - 1 if right.size else smooth.size - 1
+    # the last bin below half height before the peak and the first after it
+    i = int(np.argmax(below[k - 1 :: -1])) if k > 0 else 0
+    lo = k - i if k > 0 and below[k - 1 - i] else 0
+    i = int(np.argmax(below[k:]))
+    hi = k + i - 1 if below[k + i] else smooth.size - 1
     return lo, hi, float(w[lo : hi + 1].sum())
 
 

@@ -289,9 +289,10 @@ def median(a: np.ndarray) -> float:
     h = n >> 1
     # np.median takes np.mean of the middle one or two, whose sum starts from 0. (which
     # makes -0. into 0.), divided by the count
+    # (numpy's partition points, the last one too, so equal values land alike)
     if n & 1:
-        return float((0.0 + np.partition(a, h)[h]) / 1.0)
-    p = np.partition(a, (h - 1, h))
+        return float((0.0 + np.partition(a, (h, -1))[h]) / 1.0)
+    p = np.partition(a, (h - 1, h, -1))
     return float(((0.0 + p[h - 1]) + p[h]) / 2.0)
 
 

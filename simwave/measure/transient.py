@@ -124,28 +124,56 @@ class EdgeFinder:
         n = y.size
         if n == 0:
             return
+        # events: samples at or above the high reference level (state 1), else at or below
+        # the low one (state 0); a transition is an event whose state differs from the
+        # event before it. Found from the runs of each state (few, even where nearly every
+        # sample is an event), not sample by sample.
         above = y >= self.high
-        ev = np.flatnonzero((y <= self.low) | above)
-        if ev.size:
-            states = above[ev].astype(np.int8)
+        below = y <= self.low
+        below &= ~above
+        many = 2 * max(n // RUNS_PER_SAMPLE, 1)
+        ca = above[1:] != above[:-1]
+        cb = below[1:] != below[:-1]
+        if np.count_nonzero(ca) > many or np.count_nonzero(cb) > many:
+            # short runs (noise about a reference level): event by event
+            first = last = np.flatnonzero(below | above)
+            states = above[first].astype(np.int8)
+        else:
+            a_first, a_last = _runs(above, ca)
+            b_first, b_last = _runs(below, cb)
+            first = np.concatenate((a_first, b_first))
+            order = np.argsort(first, kind="stable")
+            first = first[order]
+            last = np.concatenate((a_last, b_last))[order]
+            states = np.concatenate(
+                (np.ones(a_first.size, np.int8), np.zeros(b_first.size, np.int8))
+            )[order]
+        if first.size:
             changes = np.flatnonzero(states[1:] != states[:-1]) + 1
             if self.last_state >= 0 and states[0] != self.last_state:
                 changes = np.concatenate(([0], changes))
             for c in changes.tolist():
-                local = int(ev[c])
+                local = int(first[c])
                 direction = 1 if states[c] == 1 else -1
-                prev_idx = self.last_event if c == 0 else start + int(ev[c - 1])
+                prev_idx = self.last_event if c == 0 else start + int(last[c - 1])
                 k_mid = self._last_near_mid(y, start, prev_idx, local, direction)
                 self.edges.append(Edge(direction, int(prev_idx), k_mid, start + local))
             self.last_state = int(states[-1])
-            self.last_event = start + int(ev[-1])
+            self.last_event = start + int(last[-1])
         # the last samples below and above the mid reference level, carried to the next block
-        below_mid = y < self.mid
-        if below_mid.any():
-            self.last_below_mid = start + n - 1 - int(np.argmax(below_mid[::-1]))
-        above_mid = y > self.mid
-        if above_mid.any():
-            self.last_above_mid = start + n - 1 - int(np.argmax(above_mid[::-1]))
+        # (the block's last sample is one of them unless it lies on the level)
+        if y[-1] < self.mid:
+            self.last_below_mid = start + n - 1
+        else:
+            below_mid = y < self.mid
+            if below_mid.any():
+                self.last_below_mid = start + n - 1 - int(np.argmax(below_mid[::-1]))
+        if y[-1] > self.mid:
+            self.last_above_mid = start + n - 1
+        else:
+            above_mid = y > self.mid
+            if above_mid.any():
+                self.last_above_mid = start + n - 1 - int(np.argmax(above_mid[::-1]))
 
     def _last_near_mid(self, y: np.ndarray, start: int, prev_idx: int, local: int,
                        direction: int) -> int:
@@ -158,6 +186,25 @@ class EdgeFinder:
         if near.any():
             return start + lo + part.size - 1 - int(np.argmax(near[::-1]))
         return self.last_below_mid if direction > 0 else self.last_above_mid
+
+
+#: Above this many runs of one state per this many samples a block's events are taken one by
+#: one rather than run by run (cheaper then; the same transitions either way).
+RUNS_PER_SAMPLE = 32
+
+
+def _runs(mask: np.ndarray, changed: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """First and last local index of every run of True in ``mask`` (non-empty;
+    ``changed``: ``mask[1:] != mask[:-1]``)."""
+    change = np.flatnonzero(changed) + 1
+    into = mask[change]
+    first = change[into]
+    last = change[~into] - 1
+    if mask[0]:
+        first = np.concatenate(([0], first))
+    if mask[-1]:
+        last = np.concatenate((last, [mask.size - 1]))
+    return first, last
 
 
 @dataclass
