@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import copy
 import datetime as _dt
+import math
 import os
 import threading
 import time
@@ -56,6 +57,7 @@ class Source:
     path: str | None
     make_blocks: Callable[[int], Iterator[np.ndarray]]
     waveform: Waveform | None = None  # set when the whole input is already in memory
+    close: Callable[[], None] | None = None  # releases a file opened for make_blocks
 
     @property
     def n_channels(self) -> int:
@@ -91,6 +93,18 @@ def open_source(
         opts.setdefault("rate", rate)
     if channels:
         opts.setdefault("channels", list(channels))
+    from simwave.signals.io import open_audio_blocks
+
+    opened = open_audio_blocks(text, **opts)
+    if opened is not None:
+        # An audio file is opened once: its header gives what the one-sample block and
+        # info() gave (the same reader), and the run's blocks continue from it.
+        if opened.n_samples == 0:
+            opened.close()
+            raise SimwaveError(f"{text}: the input holds no samples")
+        return Source(opened.rate, opened.channels, opened.units, opened.t0,
+                      opened.n_samples, opened.attrs, text, text, opened.arrays,
+                      close=opened.close)
     # The readers take file paths and generated-signal specs alike. The metadata come
     # from a one-sample first block, so a CSV file or a generated signal is not read
     # through twice; the length (for the progress bar only) comes from the header where
@@ -401,6 +415,7 @@ def simulate(
     block_size: int = DEFAULT_BLOCK,
     progress: Callable[[int, int | None], None] | None = None,
     output_ics: Sequence[float] | None = None,
+    _keep: dict[str, Any] | None = None,
 ) -> Waveform | RunReport:
     """Run a waveform through the analog system H(s) and return (or write) the output.
 
@@ -433,6 +448,10 @@ def simulate(
         Write the input beside the output (extra CSV columns / HDF5 dataset).
     keep_going : bool
         Do not stop when the output turns NaN or infinite.
+    _keep : dict, optional
+        Internal (:func:`execute`): for a file run of a short record, filled with the
+        input as read and the output as the file holds it (see :func:`_keep_for_measuring`),
+        so that measuring needs not read either file back.
 
     Returns
     -------
@@ -453,65 +472,73 @@ def simulate(
     output_ics = initial_output  # the discrete model's own name for it
     sys_ = _as_system(system)
     src = open_source(source, rate=rate, channels=channels, read_options=read_options)
-    factor = int(oversample)
-    if factor < 1:
-        raise SimwaveError(f"oversample must be a whole number >= 1, got {oversample}")
-    if block_size < 1:
-        raise SimwaveError(f"block size must be >= 1, got {block_size}")
-    model_rate = src.rate * factor
-    with model_failures(sys_, model_rate, method):
-        prep = _prepared_model(sys_, model_rate, method, prewarp_hz, delay_s, match_hz)
-        model, check = prep.model, copy.deepcopy(prep.check)
-        # The full report (with the suggested-rate search) costs tens of milliseconds:
-        # made for file runs, whose summary prints it, and whenever the model is poor.
-        full = output is not None or check["poor"]
-        accuracy = prep.full_accuracy() if full else None
-    caught: list[str] = list(prep.warnings) + (list(prep.accuracy_warnings) if full else [])
-    for text in prep.model_warnings:
-        if text not in caught:
-            caught.append(text)
-    if check["poor"]:
-        caught.append(_poor_model_warning(check, accuracy, factor, model))
-    over_info = None
-    if factor > 1:
-        base = _prepared_model(sys_, src.rate, method, prewarp_hz, delay_s, match_hz)
-        over_info = {
-            "factor": factor,
+    try:  # until the run's loop owns it, a file opened for the run is closed on errors
+        factor = int(oversample)
+        if factor < 1:
+            raise SimwaveError(f"oversample must be a whole number >= 1, got {oversample}")
+        if block_size < 1:
+            raise SimwaveError(f"block size must be >= 1, got {block_size}")
+        model_rate = src.rate * factor
+        with model_failures(sys_, model_rate, method):
+            prep = _prepared_model(sys_, model_rate, method, prewarp_hz, delay_s, match_hz)
+            model, check = prep.model, copy.deepcopy(prep.check)
+            # The full report (with the suggested-rate search) costs tens of milliseconds:
+            # made for file runs, whose summary prints it, and whenever the model is poor.
+            full = output is not None or check["poor"]
+            accuracy = prep.full_accuracy() if full else None
+        caught: list[str] = list(prep.warnings) + (list(prep.accuracy_warnings) if full else [])
+        for text in prep.model_warnings:
+            if text not in caught:
+                caught.append(text)
+        if check["poor"]:
+            caught.append(_poor_model_warning(check, accuracy, factor, model))
+        over_info = None
+        if factor > 1:
+            base = _prepared_model(sys_, src.rate, method, prewarp_hz, delay_s, match_hz)
+            over_info = {
+                "factor": factor,
+                "model_rate_hz": model_rate,
+                "in_band_error_at_input_rate": copy.deepcopy(base.check),
+                "in_band_error_at_model_rate": check,
+            }
+        for text in caught:
+            warnings.warn(text, stacklevel=2)
+
+        provenance = {
+            "simwave_version": simwave.__version__,
+            "system": sys_.text if sys_.text is not None else repr(sys_),
+            "system_name": sys_.name,
+            "zeros": [_complex_text(z) for z in np.atleast_1d(sys_.zeros)],
+            "poles": [_complex_text(p) for p in np.atleast_1d(sys_.poles)],
+            "gain": sys_.gain,
+            "dead_time_s": sys_.delay_s + (delay_s or 0.0),
+            "method": method,
+            "prewarp_hz": prewarp_hz,
             "model_rate_hz": model_rate,
-            "in_band_error_at_input_rate": copy.deepcopy(base.check),
-            "in_band_error_at_model_rate": check,
+            "oversample": factor,
+            "initial": (initial if output_ics is None
+                        else f"output initial conditions {list(output_ics)}"),
+            "input": src.label,
+            "written": _written_time(),
         }
-    for text in caught:
-        warnings.warn(text, stacklevel=2)
 
-    provenance = {
-        "simwave_version": simwave.__version__,
-        "system": sys_.text if sys_.text is not None else repr(sys_),
-        "system_name": sys_.name,
-        "zeros": [_complex_text(z) for z in np.atleast_1d(sys_.zeros)],
-        "poles": [_complex_text(p) for p in np.atleast_1d(sys_.poles)],
-        "gain": sys_.gain,
-        "dead_time_s": sys_.delay_s + (delay_s or 0.0),
-        "method": method,
-        "prewarp_hz": prewarp_hz,
-        "model_rate_hz": model_rate,
-        "oversample": factor,
-        "initial": (initial if output_ics is None
-                    else f"output initial conditions {list(output_ics)}"),
-        "input": src.label,
-        "written": _written_time(),
-    }
-
-    meter = _LevelMeter(src.n_channels)
-    pieces: list[np.ndarray] = []
-    if output is not None and src.n_samples:
-        _check_room(output, src, factor, write_options, include_input)
-    sink = _Sink(output, src, provenance, write_options, include_input, keep_going, meter, pieces,
-                 block_size)
-    state = None
-    n_in = 0
-    in_peak = np.zeros(src.n_channels)
-    blocks_in = None
+        meter = _LevelMeter(src.n_channels)
+        pieces: list[np.ndarray] = []
+        if output is not None and src.n_samples:
+            _check_room(output, src, factor, write_options, include_input)
+        sink = _Sink(output, src, provenance, write_options, include_input, keep_going, meter,
+                     pieces, block_size)
+        kept_in: list[np.ndarray] | None = None
+        if _keep is not None and output is not None and _keepable(src):
+            kept_in, sink.kept = [], []
+        state = None
+        n_in = 0
+        in_peak = np.zeros(src.n_channels)
+        blocks_in = None
+    except BaseException:
+        if src.close is not None:
+            src.close()
+        raise
     try:
         up = dec = None
         if factor > 1:  # imported here: scipy.signal is slow to import, and only needed here
@@ -530,6 +557,8 @@ def simulate(
             block = np.asarray(block, dtype=np.float64)
             if block.ndim == 1:
                 block = block[:, None]
+            if kept_in is not None:
+                kept_in.append(block)
             if block.shape[0] == 0:
                 continue
             if state is None:
@@ -569,7 +598,11 @@ def simulate(
         close = getattr(blocks_in, "close", None)
         if close is not None:
             close()
+        if src.close is not None:
+            src.close()
     done = sink.done
+    if kept_in is not None:
+        _keep_for_measuring(_keep, src, kept_in, sink)
 
     if output is not None:
         return RunReport(
@@ -647,6 +680,8 @@ class _Sink:
         self._pending_input: list[np.ndarray] = []
         self._writer = None
         self._behind: WriteBehind | WriteNow | None = None
+        self.kept: list[np.ndarray] | None = None  # output blocks kept for measuring
+        self.read_back = None  # after close: (convert, metadata) from the writer, or None
         # A file whose header says it fits in one block is read and written on this
         # thread: the two pipeline threads cost ~2-4 ms to start and hand over, which is
         # most of a short batch pair, and one block has nothing to overlap.
@@ -666,6 +701,8 @@ class _Sink:
             self._pending_input.append(inp)
         if out.shape[0] == 0:
             return
+        if self.kept is not None:
+            self.kept.append(out)
         # The meter's extremes are NaN or infinite exactly when some sample is, so the
         # search for the first bad sample runs only then (a pass over the block saved).
         if not self.meter.add(out) and not self.keep_going:
@@ -688,6 +725,8 @@ class _Sink:
         if self._writer is not None:
             self._behind.close()
             self.write_result = self._writer.close()
+            if self.kept is not None:
+                self.read_back = self._writer.read_back()
             self._writer = None
 
     def abort(self) -> None:
@@ -696,6 +735,33 @@ class _Sink:
         self._behind.abort()
         self._writer.abort()
         self._writer = None
+
+
+#: Largest record (values per stream: samples x channels) whose input and output a file run
+#: keeps for measuring: the measuring step holds a file this size in memory anyway
+#: (``simwave.measure.source.IN_MEMORY_VALUES``, the same number, 16 MB of float64).
+KEEP_VALUES = 1 << 21
+
+
+def _keepable(src: Source) -> bool:
+    """Whether a file run's input and output are short enough to keep for measuring
+    (:data:`KEEP_VALUES`); :func:`_measurable_in_memory` says which jobs may ask."""
+    return (src.path is not None and src.n_samples is not None
+            and src.n_samples * src.n_channels <= KEEP_VALUES)
+
+
+def _keep_for_measuring(keep: dict[str, Any], src: Source, kept_in: list[np.ndarray],
+                        sink: "_Sink") -> None:
+    """Fill ``keep`` with the run's input and its output as the written file gives it back,
+    when the writer can say exactly what reading the file would give (else leave it empty)."""
+    if sink.read_back is None or not kept_in or not sink.kept:
+        return
+    convert, meta = sink.read_back
+    out = sink.kept[0] if len(sink.kept) == 1 else np.concatenate(sink.kept)
+    inp = kept_in[0] if len(kept_in) == 1 else np.concatenate(kept_in)
+    keep["input"] = Waveform(inp, src.rate, src.t0, list(src.channels), list(src.units))
+    keep["output"] = Waveform(convert(out), meta["rate"], meta["t0"], meta["channels"],
+                              meta["units"])
 
 
 def _check_room(output, src: Source, factor: int, write_options, include_input: bool) -> None:
@@ -768,12 +834,14 @@ def execute(job: RunJob, progress: Callable[[int, int | None], None] | None = No
     guard_outputs({"the output": job.output, "the metrics file": job.metrics},
                   {"the input": job.source if os.path.exists(job.source) else None})
     system = _as_system(job.system)
+    kept: dict[str, Any] | None = {} if _measurable_in_memory(job) else None
     report = simulate(
         system, job.source, job.method, job.rate, job.initial,
         output=job.output, prewarp_hz=job.prewarp_hz, delay_s=job.delay_s,
         match_hz=job.match_hz, initial_output=job.initial_output, oversample=job.oversample,
         channels=job.channels, read_options=job.read_options, write_options=job.write_options,
         include_input=job.include_input, keep_going=job.keep_going, progress=progress,
+        _keep=kept,
     )
     result: dict[str, Any] = {"run": report.to_dict(), "metrics": None}
     if job.metrics is not None:
@@ -782,7 +850,9 @@ def execute(job: RunJob, progress: Callable[[int, int | None], None] | None = No
         # failure does not undo it. It becomes a warning with the reason, recorded in
         # result["metrics_error"], and no metrics file is written.
         try:
-            metrics = measure_run(job, system, len(report.channels)).to_dict()
+            metrics = _measure_kept(job, system, kept) if kept else None
+            if metrics is None:
+                metrics = measure_run(job, system, len(report.channels)).to_dict()
             write_json(job.metrics, {"run": result["run"], "metrics": metrics},
                        protect=[job.source, job.output])
         except SimwaveError as exc:
@@ -831,6 +901,52 @@ def measure_run(job: RunJob, system: System, n_channels: int):
         )
 
 
+def _measurable_in_memory(job: RunJob) -> bool:
+    """Whether ``job``'s output may be measured from the arrays its run produced.
+
+    Only where that gives exactly what measuring the two files gives: an audio input read
+    without a rate override or gap filling (its reader then says nothing that reading it
+    again would repeat) and an output holding the run's channels alone; the writer then
+    says whether its file reads back to known values (:meth:`WaveformWriter.read_back`),
+    and the run keeps short records only (:data:`KEEP_VALUES`).
+    """
+    from simwave.signals.formats import resolve_format
+    from simwave.signals.spec import is_signal_spec
+
+    opts = job.read_options
+    if (job.metrics is None or job.include_input or job.rate is not None
+            or opts.get("rate") is not None or opts.get("fill_gaps")
+            or is_signal_spec(job.source)):
+        return False
+    return resolve_format(job.source, opts.get("format"))[0] == "audio"
+
+
+def _measure_kept(job: RunJob, system: System, kept: dict[str, Any]) -> dict | None:
+    """Measure a finished run from its kept input and output (see :func:`simulate`'s
+    ``_keep``): the same numbers as :func:`measure_run` on the two files, which it saves
+    reading back. The result names the two files, as measuring them does. None when the
+    measurement fails: the caller then measures the files, so that the error reads as
+    before (it names the file)."""
+    from simwave.measure import measure
+
+    if "output" not in kept:
+        return None
+    opts = dict(job.measure_options)
+    opts.setdefault("rest_before_record", job.initial == "rest" and job.initial_output is None)
+    try:
+        with measuring_failures(job.output):
+            result = measure(
+                kept["output"], reference=kept["input"], system=system,
+                read_options=output_read_options(job, kept["output"].n_channels),
+                reference_read_options=input_read_options(job), **opts,
+            ).to_dict()
+    except SimwaveError:
+        return None
+    result["source"]["output"] = os.fspath(job.output)
+    result["source"]["reference"] = os.fspath(job.source)
+    return result
+
+
 def write_json(path: str | os.PathLike, data: Any, protect: Sequence[str] = ()) -> None:
     """Write JSON atomically (temporary file beside the target, then os.replace).
 
@@ -842,11 +958,43 @@ def write_json(path: str | os.PathLike, data: Any, protect: Sequence[str] = ()) 
     """
     from simwave.signals.atomic import write_text_atomic
 
-    clean, reasons = with_null_reasons(data)
+    # The rebuilt copy (with a path text per value, for the reasons) is needed only when
+    # some value is not finite; otherwise the data serialise to the same text as it.
+    clean, reasons = (data, {}) if _all_finite(data) else with_null_reasons(data)
     note = null_reasons_note(reasons)
     if note:
         warnings.warn(f"{path}: {note}", stacklevel=2)
     write_text_atomic(os.fspath(path), json_text(clean), protect=[p for p in protect if p])
+
+
+_PLAIN_LEAVES = (str, int, bool, type(None))
+
+
+def _all_finite(value: Any) -> bool:
+    """True when :func:`simwave.guards.json_ready` would find no value to make null: no
+    NaN or infinity among the floats, numpy floats and float arrays of ``value``."""
+    t = type(value)
+    if t is float:
+        return math.isfinite(value)
+    if t in _PLAIN_LEAVES:
+        return True
+    if isinstance(value, dict):
+        for v in value.values():
+            if not _all_finite(v):
+                return False
+        return True
+    if isinstance(value, (list, tuple)):
+        for v in value:
+            if not _all_finite(v):
+                return False
+        return True
+    if isinstance(value, (float, np.floating)):
+        return math.isfinite(float(value))
+    if isinstance(value, np.ndarray):
+        if value.dtype.kind == "f":
+            return bool(np.isfinite(value).all())
+        return value.dtype.kind != "O" or _all_finite(value.tolist())
+    return True
 
 
 def json_text(data: Any) -> str:

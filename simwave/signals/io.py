@@ -277,6 +277,50 @@ def blocks(path: Any, size: int, **opts: Any) -> Iterator[Waveform]:
         pipe.report()
 
 
+class OpenedAudio:
+    """An audio file opened once for a run: its header's description and its blocks.
+
+    :func:`open_audio_blocks` gives it. ``rate``, ``t0``, ``channels``, ``units`` and
+    ``attrs`` are what the first block of :func:`blocks` carries, ``n_samples`` what
+    :func:`info` says; :meth:`arrays` yields the sample arrays of :func:`blocks` (the
+    first call from the file opened here, a later one from the file opened again).
+    """
+
+    def __init__(self, path: str, opts: dict[str, Any]) -> None:
+        self.path, self.opts = path, opts
+        self._pipe: _Pipeline | None = _Pipeline(path, opts)
+        src = self._pipe.src
+        self.rate, self.t0, self.n_samples = src.rate, src.t0, int(src.n_samples)
+        self.channels, self.units = list(self._pipe.channels), list(self._pipe.units)
+        self.attrs = self._pipe.attrs()
+
+    def arrays(self, size: int) -> Iterator[np.ndarray]:
+        """The samples in blocks of ``size`` rows, as :func:`blocks` gives their data."""
+        pipe, self._pipe = self._pipe, None
+        if pipe is None:
+            pipe = _Pipeline(self.path, self.opts)
+        with closing(pipe):
+            yield from rechunk(pipe.arrays(), int(size))
+            pipe.report()
+
+    def close(self) -> None:
+        """Close the file if :meth:`arrays` never read it."""
+        pipe, self._pipe = self._pipe, None
+        if pipe is not None:
+            pipe.close()
+
+
+def open_audio_blocks(path: Any, **opts: Any) -> OpenedAudio | None:
+    """Open an audio file once for reading it whole in blocks (``simulate``), or None
+    where that would not give exactly what :func:`blocks` and :func:`info` give: another
+    format, a generated signal, gap filling (whose counts the first block carries)."""
+    if _spec_source(path) is not None or opts.get("fill_gaps"):
+        return None
+    if resolve_format(os.fspath(path), opts.get("format"))[0] != "audio":
+        return None
+    return OpenedAudio(os.fspath(path), dict(opts))
+
+
 def read(path: Any, **opts: Any) -> Waveform:
     """Read a whole waveform file.
 
@@ -688,6 +732,15 @@ class WaveformWriter:
             result.n_channels = self.n_channels
         self.result = result
         return result
+
+    def read_back(self) -> tuple[Callable[[np.ndarray], np.ndarray], dict[str, Any]] | None:
+        """After :meth:`close`: what :func:`read` of the file would give, where the writer
+        knows it exactly without reading (``(convert, metadata)``, see
+        :meth:`simwave.signals.audio.AudioSink.read_back`); None otherwise (CSV, HDF5,
+        extra streams, codings that change the samples)."""
+        if self.family != "audio" or self.extra or not self._closed or self.result is None:
+            return None
+        return self.sink.read_back()
 
     def abort(self) -> None:
         """Drop everything written; the target is left as it was."""
