@@ -20,12 +20,18 @@ from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wai
 from concurrent.futures.process import BrokenProcessPool
 from typing import Any, Iterable, Iterator
 
-from simwave.batch.tasks import PairTask, WorkerStop, run_task, worker_init
+from simwave.batch.tasks import PairTask, WorkerStop, run_task, run_tasks, worker_init
 from simwave.errors import BatchError
 from simwave.threads import THREAD_VARIABLES, limit_blas_threads
 
 #: A pair whose worker died this many times is recorded as failed (not retried again).
 MAX_CRASHES = 2
+#: The pool sends pairs to its workers in groups that take about this long (seconds, from
+#: the pairs finished so far; our choice): a short pair (~10-20 ms) sent alone cost a
+#: message each way, pickling and two thread hand-overs in the batch process.
+GROUP_SECONDS = 0.05
+#: At most this many pairs in one group (so the last groups still share the workers).
+MAX_GROUP = 16
 
 
 def default_jobs() -> int:
@@ -141,7 +147,7 @@ class PoolEngine:
     def __init__(self, jobs: int) -> None:
         self.jobs = int(jobs)
         self._executor: ProcessPoolExecutor | None = None
-        self._pending: dict[Future, PairTask] = {}
+        self._pending: dict[Future, list[PairTask]] = {}
         # Start the forkserver now: it imports WORKER_PRELOAD while this process reads
         # the journal and makes the tasks.
         with worker_thread_limits(self.jobs):
@@ -157,51 +163,79 @@ class PoolEngine:
         return ProcessPoolExecutor(max_workers=self.jobs, mp_context=ctx,
                                    initializer=worker_init)
 
+    def _group_size(self, pace: list[float]) -> int:
+        """Pairs per group: about :data:`GROUP_SECONDS` of work at the pace seen so far."""
+        if not pace[1]:
+            return 1
+        return max(1, min(MAX_GROUP, int(GROUP_SECONDS * pace[1] / max(pace[0], 1e-6))))
+
     def results(self, tasks: Iterable[PairTask]) -> Iterator[tuple[PairTask, dict]]:
         todo = iter(tasks)
         retry: list[PairTask] = []
         crashes: dict[int, int] = {}
-        window = max(4, self.jobs * 4)
+        window = max(4, self.jobs * 4)  # pairs sent and not yet back
         self._executor = self._new_executor()
         state = {"broken": False, "finished": 0, "dead_starts": 0}
+        pace = [0.0, 0]  # seconds and count of the pairs finished (elapsed_s as they report)
+
+        def in_pool() -> int:
+            return sum(len(group) for group in self._pending.values())
 
         def refill() -> None:
-            while len(self._pending) < window and not state["broken"]:
-                task = retry.pop() if retry else next(todo, None)
-                if task is None:
-                    return
+            while in_pool() < window and not state["broken"]:
+                if retry:
+                    # Pairs that were in a pool when it broke run one at a time, alone, so
+                    # that a second death is counted against the pair that caused it.
+                    if self._pending:
+                        return
+                    group = [retry.pop()]
+                else:
+                    group = list(itertools.islice(todo, self._group_size(pace)))
+                    if not group:
+                        return
                 try:
-                    self._pending[self._executor.submit(run_task, task)] = task
+                    self._pending[self._executor.submit(run_tasks, group)] = group
                 except BrokenProcessPool:
                     state["broken"] = True
-                    retry.append(task)
+                    retry.extend(group)
+
+        def finished(group: list[PairTask], results: list[dict]) -> Iterator[tuple]:
+            for task, result in zip(group, results, strict=False):  # a stop: fewer results
+                elapsed = result.get("elapsed_s") if isinstance(result, dict) else None
+                if isinstance(elapsed, (int, float)):
+                    pace[0] += elapsed
+                    pace[1] += 1
+                state["finished"] += 1
+                yield task, result
 
         with worker_thread_limits(self.jobs):  # spawn starts the workers at the first submits
             refill()
         while self._pending or state["broken"]:
             done, _ = wait(list(self._pending), return_when=FIRST_COMPLETED)
             for fut in done:
-                task = self._pending.pop(fut)
+                group = self._pending.pop(fut)
                 try:
-                    result = fut.result()
+                    results = fut.result()
                 except BrokenProcessPool:
                     state["broken"] = True
-                    retry.append(task)
+                    retry.extend(group)
                     continue
-                except WorkerStop:
+                except WorkerStop as stop:
+                    partial = stop.args[0] if stop.args else []
+                    yield from finished(group, partial)
                     raise KeyboardInterrupt from None
                 except Exception as exc:  # noqa: BLE001 - e.g. a result that does not pickle
-                    result = failed_result(task, f"{type(exc).__name__}: {exc}")
-                state["finished"] += 1
-                yield task, result
+                    results = [failed_result(task, f"{type(exc).__name__}: {exc}")
+                               for task in group]
+                yield from finished(group, results)
             if state["broken"]:
                 # Every pair still in the pool fails the same way; collect them, rebuild.
                 wait(list(self._pending))
-                for fut, task in list(self._pending.items()):
+                for fut, group in list(self._pending.items()):
                     if fut.exception() is None:
-                        yield task, fut.result()
+                        yield from finished(group, fut.result())
                     else:
-                        retry.append(task)
+                        retry.extend(group)
                 self._pending.clear()
                 self._executor.shutdown(wait=True, cancel_futures=True)
                 # A pool that breaks twice in a row before finishing any pair cannot start
@@ -230,7 +264,7 @@ class PoolEngine:
         self.close()
 
     def in_flight(self) -> list[PairTask]:
-        return list(self._pending.values())
+        return [task for group in self._pending.values() for task in group]
 
     def stop(self) -> None:
         """Stop now: cancel queued pairs, SIGTERM the workers (they clean up), reap them."""

@@ -40,6 +40,10 @@ from simwave.signals.atomic import sweep_stale_parts
 EXIT_OK, EXIT_FAILED, EXIT_INTERRUPTED = 0, 1, 130
 #: Every pair ran, and some result is outside its tolerance bands ([limits]).
 EXIT_LIMITS = 3
+#: Journal lines are handed to the operating system at most this often (seconds) and when
+#: the batch ends or stops; a batch process killed outright loses at most the lines of
+#: that long (their pairs run again on resume; a torn last line is skipped when read).
+JOURNAL_FLUSH_S = 0.5
 
 
 @dataclass
@@ -255,6 +259,7 @@ def run_batch(
         by_index = {p.index: p for p in plan.pairs}
         tasks = (PairTask(p.index, p.system.definition, plan.job_fields(p)) for p in todo)
         done = failed = 0
+        flushed = time.monotonic()
         with open_journal(plan.journal_path) as journal:
             try:
                 for task, result in eng.results(tasks):
@@ -270,7 +275,10 @@ def run_batch(
                         "fingerprint": plan.fingerprint(pair),
                         "result": result,
                     }, default=str, allow_nan=True) + "\n")
-                    journal.flush()
+                    now = time.monotonic()
+                    if now - flushed >= JOURNAL_FLUSH_S:
+                        journal.flush()
+                        flushed = now
                     if progress is not None:
                         progress(done, len(todo), failed)
             except KeyboardInterrupt:

@@ -179,6 +179,22 @@ def run_task(task: Any, capture_warnings: bool = True) -> dict[str, Any]:
             _state["busy"] = False
 
 
+def run_tasks(tasks: list, capture_warnings: bool = True) -> list[dict[str, Any]]:
+    """Run several engine tasks one after another in this worker (:func:`run_task` each).
+
+    The pool sends short pairs in such groups: one message each way per group instead of
+    per pair. A stop raises :class:`WorkerStop` holding the results of the tasks that
+    finished before it, so the batch records them.
+    """
+    done: list[dict[str, Any]] = []
+    for task in tasks:
+        try:
+            done.append(run_task(task, capture_warnings))
+        except WorkerStop:
+            raise WorkerStop(done) from None
+    return done
+
+
 def summarize_result(result: dict, index: int, elapsed_s: float,
                      extra_warnings: list[str] | None = None) -> dict[str, Any]:
     """The small result of a successful :func:`simwave.run.execute` call (see :func:`run_pair`)."""
