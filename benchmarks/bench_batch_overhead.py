@@ -13,7 +13,9 @@ Run:  python benchmarks/bench_batch_overhead.py [--files 2000] [--long-files 40]
    cost belongs to the measuring rebuild, not to the batch machinery. Then where a
    short pair's time goes, in one process (best of 3 over up to 200 files): the plain
    loop, ``simwave run`` alone, and the run with measuring and the metrics JSON, of
-   which measuring in memory.
+   which measuring in memory. Beside each batch run: its CPU time per pair over all its
+   processes, and the workers' own CPU and elapsed time per pair (from the journal), which
+   say more than wall time when other processes share the cores.
 2. Long pairs: M WAVs of 10 s x 3 systems (same batch command); target >= 4x the
    baseline's pairs/s (the issue's run: 200 files; ``--long-files`` scales it down,
    the ratio is what is compared).
@@ -27,6 +29,7 @@ from __future__ import annotations
 import argparse
 import json
 import os
+import resource
 import shutil
 import subprocess
 import sys
@@ -79,8 +82,14 @@ os.makedirs(out, exist_ok=True)
 files = sorted(glob.glob(os.path.join(data, "*.wav")))[:n]
 system = simwave.System.parse(text)
 sos = system.discretize(48000.0, "ramp-invariant").sos
+fresh = [0]
 def target(i, ext):
-    return os.path.join(out, f"{i:05d}.{ext}")
+    # a new folder per pass, as the batch writes into a fresh one: replacing an existing
+    # file that was not synced makes ext4 start writing it back at the rename (~3 ms)
+    return os.path.join(out, str(fresh[0]), f"{i:05d}.{ext}")
+def new_folder():
+    fresh[0] += 1
+    os.makedirs(os.path.join(out, str(fresh[0])))
 def plain():
     for i, path in enumerate(files):
         x, rate = soundfile.read(path, always_2d=True)
@@ -97,11 +106,13 @@ def measure_only():
     for y, x in held:
         simwave.measure(y, reference=x, system=system, rest_before_record=True)
 times = {}
-run_and_measure()  # warm: models cached, files exist (the batch replaces them too)
+new_folder()
+run_and_measure()  # warm: models cached
 held = [(simwave.read(target(i, "wav")), simwave.read(p)) for i, p in enumerate(files)]
 for _ in range(3):
     for name, f in (("plain", plain), ("run", run_only), ("all", run_and_measure),
                     ("measure", measure_only)):
+        new_folder()
         t0 = time.perf_counter()
         f()
         times[name] = min(times.get(name, 1e9), (time.perf_counter() - t0) / len(files))
@@ -129,10 +140,46 @@ def batch_cmd(data: str, out: str, systems: list[str], jobs: int) -> list[str]:
     return argv + [os.path.join(data, "*.wav")]
 
 
+#: CPU seconds (all processes of the run: batch process, forkserver, workers) and the
+#: workers' own per-pair figures from the journal, of the last :func:`_timed` run.
+LAST: dict[str, float | None] = {}
+
+
 def _timed(argv: list[str], tree: str | None, out: str) -> float:
-    """Wall time of one batch process into a fresh output folder (it must exit 0)."""
+    """Wall time of one batch process into a fresh output folder (it must exit 0).
+
+    Also records in :data:`LAST` the CPU time of the whole run (this process's reaped
+    children: the batch process and everything it started) and, from the journal, the
+    workers' mean CPU and elapsed time per pair (``cpu_s``, ``elapsed_s``; None where the
+    tree's journal has no ``cpu_s``).
+    """
     shutil.rmtree(out, ignore_errors=True)
-    return time_process(argv, tree_env(tree))
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
+    wall = time_process(argv, tree_env(tree))
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    LAST.clear()
+    LAST["cpu_s"] = (after.ru_utime + after.ru_stime) - (before.ru_utime + before.ru_stime)
+    try:
+        with open(os.path.join(out, ".simwave-batch-journal.jsonl"), encoding="utf-8") as fh:
+            results = [json.loads(line)["result"] for line in fh if line.strip()]
+    except (OSError, ValueError, KeyError):
+        results = []
+    cpus = [r.get("cpu_s") for r in results]
+    LAST["pair_cpu_s"] = (sum(cpus) / len(cpus)) if results and None not in cpus else None
+    els = [r.get("elapsed_s") for r in results]
+    LAST["pair_elapsed_s"] = (sum(els) / len(els)) if results and None not in els else None
+    return wall
+
+
+def _cpu_text(figures: dict | None, pairs: int) -> str:
+    """CPU per pair of a batch run, all its processes, and the workers' own per pair."""
+    if not figures:
+        return ""
+    text = f"CPU {figures['cpu_s'] / pairs * 1e3:6.2f} ms/pair (all processes)"
+    if figures.get("pair_cpu_s") is not None:
+        text += (f", in the worker {figures['pair_cpu_s'] * 1e3:6.2f} ms CPU / "
+                 f"{figures['pair_elapsed_s'] * 1e3:6.2f} ms elapsed")
+    return text
 
 
 def main() -> None:
@@ -151,8 +198,11 @@ def main() -> None:
         make_inputs(short, args.files, 0.05)
         make_inputs(long_, args.long_files, 10.0)
         best: dict[str, float] = {}
+        cpu: dict[str, dict[str, float | None]] = {}  # of each contender's fastest run
 
         def keep(key: str, seconds: float) -> None:
+            if seconds < best.get(key, float("inf")) and key != "plain":
+                cpu[key] = dict(LAST)
             best[key] = min(best.get(key, float("inf")), seconds)
 
         for _ in range(args.rounds):
@@ -190,6 +240,7 @@ def main() -> None:
             print(f"   simwave batch [{label:<6}]        {t:7.2f} s {n / t:8.1f} pairs/s  "
                   f"{worker_ms:6.2f} ms/pair of worker time, overhead over the loop "
                   f"{worker_ms - plain_ms:+7.2f} ms/pair")
+            print(f"      {_cpu_text(cpu.get(f'short {label}'), n)}")
         print(f"   target >= 150 pairs/s: now {n / best['short now']:.1f} pairs/s")
         if args.baseline:
             print(f"   now / before = {best['short before'] / best['short now']:.2f}x pairs/s")
@@ -201,8 +252,8 @@ def main() -> None:
         print(f"     plain read/sosfilt/write {ms['plain']:6.2f} | simwave run (model, "
               f"checks, output, report) {ms['run']:6.2f} | + measuring and metrics JSON "
               f"{ms['all'] - ms['run']:6.2f}, of which simwave.measure in memory "
-              f"{ms['measure']:6.2f}, reading back and JSON "
-              f"{ms['all'] - ms['run'] - ms['measure']:6.2f}")
+              f"{ms['measure']:6.2f}, the rest (reading back or keeping the arrays, "
+              f"metrics JSON and its file) {ms['all'] - ms['run'] - ms['measure']:6.2f}")
         print(f"     total {ms['all']:6.2f} ms/pair in process = "
               f"{j * 1e3 / ms['all']:.0f} pairs/s on {j} workers before pool and start-up costs")
         m = args.long_files * len(SYSTEMS)
@@ -210,7 +261,8 @@ def main() -> None:
               f"--jobs {j}")
         for label in trees:
             t = best[f"long {label}"]
-            print(f"   simwave batch [{label:<6}] {t:7.2f} s {m / t:7.2f} pairs/s")
+            print(f"   simwave batch [{label:<6}] {t:7.2f} s {m / t:7.2f} pairs/s  "
+                  f"{_cpu_text(cpu.get(f'long {label}'), m)}")
         if args.baseline:
             print(f"   now / before = {best['long before'] / best['long now']:.2f}x pairs/s "
                   "(target >= 4x)")

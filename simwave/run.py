@@ -528,9 +528,10 @@ def simulate(
             _check_room(output, src, factor, write_options, include_input)
         sink = _Sink(output, src, provenance, write_options, include_input, keep_going, meter,
                      pieces, block_size)
-        kept_in: list[np.ndarray] | None = None
+        kept_in: _Kept | None = None
         if _keep is not None and output is not None and _keepable(src):
-            kept_in, sink.kept = [], []
+            kept_in = _Kept(src.n_samples, src.n_channels)
+            sink.kept = _Kept(src.n_samples, src.n_channels)
         state = None
         n_in = 0
         in_peak = np.zeros(src.n_channels)
@@ -558,7 +559,7 @@ def simulate(
             if block.ndim == 1:
                 block = block[:, None]
             if kept_in is not None:
-                kept_in.append(block)
+                kept_in.add(block)
             if block.shape[0] == 0:
                 continue
             if state is None:
@@ -680,7 +681,7 @@ class _Sink:
         self._pending_input: list[np.ndarray] = []
         self._writer = None
         self._behind: WriteBehind | WriteNow | None = None
-        self.kept: list[np.ndarray] | None = None  # output blocks kept for measuring
+        self.kept: _Kept | None = None  # the output, kept for measuring
         self.read_back = None  # after close: (convert, metadata) from the writer, or None
         # A file whose header says it fits in one block is read and written on this
         # thread: the two pipeline threads cost ~2-4 ms to start and hand over, which is
@@ -702,7 +703,7 @@ class _Sink:
         if out.shape[0] == 0:
             return
         if self.kept is not None:
-            self.kept.append(out)
+            self.kept.add(out)
         # The meter's extremes are NaN or infinite exactly when some sample is, so the
         # search for the first bad sample runs only then (a pass over the block saved).
         if not self.meter.add(out) and not self.keep_going:
@@ -750,15 +751,42 @@ def _keepable(src: Source) -> bool:
             and src.n_samples * src.n_channels <= KEEP_VALUES)
 
 
-def _keep_for_measuring(keep: dict[str, Any], src: Source, kept_in: list[np.ndarray],
+class _Kept:
+    """A record's blocks gathered into one array of the length its header gave (one copy
+    per block, no list of blocks to join; a single block is kept as it is)."""
+
+    def __init__(self, n_samples: int, n_channels: int) -> None:
+        self.shape = (int(n_samples), int(n_channels))
+        self.data: np.ndarray | None = None
+        self.n = 0
+        self.ok = True
+
+    def add(self, block: np.ndarray) -> None:
+        m = block.shape[0]
+        if not self.ok or self.n + m > self.shape[0] or block.shape[1] != self.shape[1]:
+            self.ok = False  # not the length the header said: measure the files instead
+            return
+        if self.n == 0 and m == self.shape[0]:
+            self.data = block
+        else:
+            if self.data is None:
+                self.data = np.empty(self.shape)
+            self.data[self.n:self.n + m] = block
+        self.n += m
+
+    def array(self) -> np.ndarray | None:
+        return self.data if self.ok and self.n == self.shape[0] and self.n > 0 else None
+
+
+def _keep_for_measuring(keep: dict[str, Any], src: Source, kept_in: _Kept,
                         sink: "_Sink") -> None:
     """Fill ``keep`` with the run's input and its output as the written file gives it back,
     when the writer can say exactly what reading the file would give (else leave it empty)."""
-    if sink.read_back is None or not kept_in or not sink.kept:
+    out = sink.kept.array() if sink.kept is not None else None
+    inp = kept_in.array()
+    if sink.read_back is None or out is None or inp is None:
         return
     convert, meta = sink.read_back
-    out = sink.kept[0] if len(sink.kept) == 1 else np.concatenate(sink.kept)
-    inp = kept_in[0] if len(kept_in) == 1 else np.concatenate(kept_in)
     keep["input"] = Waveform(inp, src.rate, src.t0, list(src.channels), list(src.units))
     keep["output"] = Waveform(convert(out), meta["rate"], meta["t0"], meta["channels"],
                               meta["units"])

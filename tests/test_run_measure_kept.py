@@ -49,6 +49,10 @@ def _inputs(folder):
     odd[300:] = 1.0 + np.arange(n - 300) * 2.0**-30
     odd[2000:] = 1e-39 * np.arange(400)
     made["odd"] = simwave.Waveform(odd, RATE)
+    # longer than one block (65,536 samples): the kept blocks are gathered
+    m = 70000
+    train = np.where((np.arange(m) // 9000) % 2 == 1, 0.2, 0.0)
+    made["blocks"] = simwave.Waveform(train + 1e-3 * rng.standard_normal(m), RATE)
     paths = {}
     for name, wave in made.items():
         paths[name] = str(folder / f"{name}.wav")

@@ -345,7 +345,7 @@ class AudioSink:
         self.gain = 1.0
         self.spool = None
         self.f = None
-        self.stored_meta = ""  # the comment string the file holds
+        self.stored_names: tuple | None = None  # channels, units, t0 the comment holds
         if on_clip == "normalize":
             if peak_hint is None:
                 # peak unknown until the end: keep float64 samples in a spool file beside
@@ -381,7 +381,9 @@ class AudioSink:
         if meta:
             try:
                 self.f.comment = meta
-                self.stored_meta = meta
+                # what the reader takes from the comment: the JSON text's values (names and
+                # units are str, t0 a float: each reads back as the same value)
+                self.stored_names = (list(self.channels), list(self.units), float(self.t0))
             except (sf.LibsndfileError, RuntimeError):
                 pass  # container without string chunks (e.g. OGG): names and units not kept
 
@@ -491,16 +493,15 @@ class AudioSink:
         """
         if (self.subtype not in FLOAT_SUBTYPES or self.format not in ("WAV", "WAVEX")
                 or not self._identity or self.calibrated or self.gain != 1.0 or self.clipped
-                or not self.stored_meta):
+                or self.stored_names is None):
             return None
-        meta = json.loads(self.stored_meta).get(_META_KEY) or {}
-        channels, units = meta.get("channels"), meta.get("units")
-        if not (isinstance(channels, list) and isinstance(units, list)
-                and len(channels) == self.n_channels and len(units) == self.n_channels):
+        channels, units, t0 = self.stored_names
+        if not (len(channels) == self.n_channels and len(units) == self.n_channels
+                and all(type(c) is str for c in channels + units) and math.isfinite(t0)):
             return None
         convert = _through_float32 if self.subtype == "FLOAT" else _unchanged
-        return convert, {"rate": float(self.rate), "t0": float(meta.get("t0", 0.0)),
-                         "channels": list(channels), "units": list(units)}
+        return convert, {"rate": float(self.rate), "t0": t0, "channels": list(channels),
+                         "units": list(units)}
 
     def _drop_spool(self) -> None:
         if self.spool is not None:
