@@ -175,3 +175,51 @@ def test_every_method_reports():
         r = discretize(sysm, 48000.0, method).accuracy()
         assert r.method == method
         assert math.isfinite(r.max_mag_error_db) and math.isfinite(r.max_phase_error_deg)
+
+
+def test_check_frequencies_same_grid_as_root_by_root():
+    # The analog roots' points are made for all roots at once (new-system cost work); the
+    # grid must be the root-by-root one, bit for bit (|r| by the scalar abs).
+    import math
+
+    import numpy as np
+
+    from simwave import System
+    from simwave.discrete.accuracy import _WIDTHS, check_frequencies
+
+    def reference(system, rate, lo, hi, discrete_poles, n_log=96):
+        pts = [np.geomspace(lo, hi, n_log)]
+        for r in np.concatenate([np.atleast_1d(system.poles), np.atleast_1d(system.zeros)]):
+            wn = abs(r)
+            if wn == 0:
+                continue
+            zeta = min(1.0, abs(r.real) / wn)
+            fn = wn / (2 * math.pi)
+            pts.append(fn * (1.0 + np.array(_WIDTHS) * max(zeta, 1e-12)))
+            pts.append([abs(r.imag) / (2 * math.pi)])
+        for q in np.atleast_1d(discrete_poles):
+            rad = abs(q)
+            if rad == 0 or q.imag < 0:
+                continue
+            fc = math.atan2(q.imag, q.real) * rate / (2 * math.pi)
+            half = max(abs(1.0 - rad), 1e-15) * rate / (2 * math.pi)
+            pts.append(fc + np.array(_WIDTHS) * half)
+        f = np.concatenate([np.ravel(p) for p in pts])
+        return np.unique(f[(f >= lo) & (f <= hi)])
+
+    rng = np.random.default_rng(2)
+    for t in range(500):
+        n = int(rng.integers(1, 10))
+        p = (rng.standard_normal(n) + 1j * rng.standard_normal(n)) * 10 ** rng.uniform(-3, 5)
+        if t % 4 == 0:
+            p[0] = 0
+        if t % 3 == 0:
+            p = p.real.copy()
+        system = System.from_zpk(rng.standard_normal(int(rng.integers(0, n))) * 100,
+                                 np.concatenate([p, p.conj()]), 1.0)
+        rate = 10 ** rng.uniform(2, 6)
+        dp = np.exp(np.asarray(system.poles) / rate)
+        with np.errstate(all="ignore"):
+            got = check_frequencies(system, rate, rate * 1e-4, 0.45 * rate, dp)
+            want = reference(system, rate, rate * 1e-4, 0.45 * rate, dp)
+        assert np.array_equal(got, want, equal_nan=True)

@@ -72,3 +72,144 @@ def test_pencil_zeros_equal_scipy_ss2zpk_for_low_order():
     z_ref, _, _ = sig.ss2zpk(Phi, Gam, C, D)
     np.testing.assert_allclose(np.sort_complex(pencil_zeros(Phi, Gam, C, D)),
                                np.sort_complex(z_ref), rtol=1e-12)
+
+
+# --------------------------------------------------------------------------- fast paths, same bits
+# The new-system cost work (issue 13) replaced general numpy/scipy calls by the same
+# operations written out; each must give the library call's bits (signs of zero included).
+
+def _same_bits(a, b):
+    a, b = np.asarray(a), np.asarray(b)
+    return (a.shape == b.shape and np.array_equal(a, b, equal_nan=True)
+            and np.array_equal(np.signbit(a.real), np.signbit(b.real))
+            and np.array_equal(np.signbit(np.imag(a)), np.signbit(np.imag(b))))
+
+
+def test_poly_real_gives_numpys_poly_bits():
+    from simwave.discrete.realization import poly_real
+
+    rng = np.random.default_rng(7)
+    special = [0.0, -0.0, 1.0, -1.0, 1e-300, -1e-300, 1e-170, 1e160, 1e308, np.inf, np.nan]
+    cases = []
+    for a in special:
+        cases.append([complex(a, 0.0)])
+        for b in special:
+            cases += [[complex(a), complex(b)], [complex(a, b), complex(a, -b)]]
+    for _ in range(30000):
+        x = rng.standard_normal(3) * 10 ** rng.uniform(-12, 6, 3)
+        cases += [[complex(x[0], x[1]), complex(x[0], -x[1])], [complex(x[0]), complex(x[2])],
+                  [complex(x[1])]]
+    with np.errstate(all="ignore"):
+        bad = [c for c in cases if not _same_bits(poly_real(c), np.real(np.poly(c)))]
+    assert bad == []
+
+
+def test_series_state_space_equals_the_block_matrix_products():
+    from simwave.discrete.realization import series_state_space
+
+    def reference(parts):  # the matrix-product form it replaced
+        A, B, C, D = np.zeros((0, 0)), np.zeros((0, 1)), np.zeros((1, 0)), np.ones((1, 1))
+        for Ai, Bi, Ci, Di in parts:
+            n, k = A.shape[0], Ai.shape[0]
+            A = np.block([[A, np.zeros((n, k))], [Bi @ C, Ai]])
+            B = np.vstack([B, Bi @ D])
+            C = np.hstack([Di @ C, Ci])
+            D = Di @ D
+        return A, B, C, D
+
+    rng = np.random.default_rng(3)
+    for t in range(2000):
+        parts = []
+        for _ in range(int(rng.integers(1, 9))):
+            k = int(rng.integers(1, 3))
+            B = rng.standard_normal((k, 1)) * 10 ** rng.uniform(-5, 5)
+            B[0] = (0.0, -0.0, B[0, 0])[t % 3]
+            C = rng.standard_normal((1, k)) * (t % 4 != 0)
+            parts.append((rng.standard_normal((k, k)), B, C,
+                          rng.standard_normal((1, 1)) * (t % 5 != 0)))
+        for got, want in zip(series_state_space(parts), reference(parts), strict=True):
+            assert _same_bits(got, want)
+
+
+def test_generalized_eigenvalues_equal_scipys():
+    import scipy.linalg as sla
+
+    from simwave.discrete.realization import _generalized_eigvals
+
+    rng = np.random.default_rng(4)
+    for t in range(500):
+        n = int(rng.integers(1, 22))
+        M = rng.standard_normal((n + 1, n + 1)) * 10 ** rng.uniform(-8, 3)
+        if t % 5 == 0:
+            M[-1, :] = 0.0
+        N = np.zeros_like(M)
+        N[:n, :n] = np.eye(n)
+        ab = sla.eigvals(M, N, homogeneous_eigvals=True)
+        alpha, beta = _generalized_eigvals(M, N)
+        assert _same_bits(alpha, ab[0]) and _same_bits(beta, ab[1])
+    M[0, 0] = np.nan
+    with pytest.raises(ValueError, match="infs or NaNs"):
+        _generalized_eigvals(M, N)
+
+
+def test_section_round_off_uses_numpys_roots():
+    import math
+
+    from simwave.discrete.incremental import section_round_off
+
+    def reference(sos):  # the per-section np.roots form it replaced
+        worst = 0.0
+        for row in sos:
+            a = row[3:]
+            if a[1] == 0.0 and a[2] == 0.0:
+                continue
+            for r in np.roots(a):
+                th = math.atan2(abs(r.imag), r.real)
+                z = complex(math.cos(th), math.sin(th))
+                den = abs(a[0] * z * z + a[1] * z + a[2])
+                if den == 0.0:
+                    return math.inf
+                worst = max(worst, float(np.sum(np.abs(a))) / den)
+        return np.finfo(np.float64).eps * worst
+
+    rng = np.random.default_rng(3)
+    for t in range(1000):
+        z, p, k = sig.butter(int(rng.integers(1, 12)), rng.uniform(0.001, 0.99), output="zpk")
+        if t % 3 == 0:
+            p = np.concatenate([p, rng.uniform(-0.999, 0.9999, 1)])
+            z = np.concatenate([z, [0.3]])
+        sos = sig.zpk2sos(z, p, k)
+        if t % 5 == 0:
+            sos[0, 5] = 0.0
+        if t % 7 == 0:
+            sos[-1, 4:] = 0.0
+        assert section_round_off(sos) == reference(sos)
+
+
+def test_tidy_roots_pairs_as_before_with_ties_and_nan():
+    from simwave.discrete.realization import tidy_roots
+
+    def reference(roots, rtol=1e-9):  # the np.argmin form it replaced
+        rest, out = list(np.asarray(roots, dtype=np.complex128).ravel()), []
+        while rest:
+            r = rest.pop(0)
+            if abs(r.imag) <= rtol * max(abs(r), 1e-300) or not rest:
+                out.append(complex(r.real, 0.0))
+                continue
+            partner = rest.pop(int(np.argmin([abs(c - np.conj(r)) for c in rest])))
+            mean = 0.5 * (r + np.conj(partner))
+            out.extend([mean, np.conj(mean)])
+        return np.array(out, dtype=np.complex128)
+
+    rng = np.random.default_rng(9)
+    for t in range(3000):
+        n = int(rng.integers(1, 10))
+        q = (rng.standard_normal(n) + 1j * rng.standard_normal(n) * (rng.random(n) > 0.3)) \
+            * 10 ** rng.uniform(-5, 5)
+        r = np.concatenate([q, q.conj() * (1 + 1e-12 * rng.standard_normal(n))])
+        rng.shuffle(r)
+        if t % 50 == 0:
+            r[0] = complex(np.nan, 1.0)
+        if t % 37 == 0:
+            r = np.concatenate([r, r])
+        assert _same_bits(tidy_roots(r), reference(r))

@@ -47,6 +47,7 @@ IN_BAND_DB = 20.0
 
 #: Offsets, in half-power half-widths, around every resonance put on the grid.
 _WIDTHS = (-4.0, -2.0, -1.0, -0.5, -0.25, 0.0, 0.25, 0.5, 1.0, 2.0, 4.0)
+_WIDTHS_ARRAY = np.array(_WIDTHS)
 
 
 def check_frequencies(system, rate: float, lo: float, hi: float, discrete_poles=None,
@@ -63,14 +64,17 @@ def check_frequencies(system, rate: float, lo: float, hi: float, discrete_poles=
     """
     pts = [np.geomspace(lo, hi, n_log)]
     roots = np.concatenate([np.atleast_1d(system.poles), np.atleast_1d(system.zeros)])
-    for r in roots:
-        wn = abs(r)
-        if wn == 0:
-            continue
-        zeta = min(1.0, abs(r.real) / wn)
+    # every root at once: the same elementwise operations as one root at a time (|r| by
+    # the scalar abs: numpy's array abs of complex128 can differ from it in the last bit)
+    roots = np.asarray(roots, dtype=np.complex128)
+    wn = np.array([abs(r) for r in roots], dtype=np.float64)
+    keep = wn != 0
+    roots, wn = roots[keep], wn[keep]
+    if roots.size:
+        zeta = np.minimum(1.0, np.abs(roots.real) / wn)
         fn = wn / (2 * math.pi)
-        pts.append(fn * (1.0 + np.array(_WIDTHS) * max(zeta, 1e-12)))
-        pts.append([abs(r.imag) / (2 * math.pi)])
+        pts.append(fn[:, None] * (1.0 + _WIDTHS_ARRAY[None, :] * np.maximum(zeta, 1e-12)[:, None]))
+        pts.append(np.abs(roots.imag) / (2 * math.pi))
     if discrete_poles is not None:
         for q in np.atleast_1d(discrete_poles):
             rad = abs(q)

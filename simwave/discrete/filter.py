@@ -53,7 +53,7 @@ from simwave.discrete.incremental import (
     section_response_difference,
     section_round_off,
 )
-from simwave.discrete.realization import exp_increment, expm, increment_response
+from simwave.discrete.realization import exp_increment, expm, increment_response, poly_real
 from simwave.errors import DiscretizationError
 
 __all__ = ["DiscreteSystem", "FilterState", "INITIAL_MODES", "run_sections"]
@@ -280,8 +280,8 @@ def _pair_zpk(z: np.ndarray, p: np.ndarray, k: float) -> np.ndarray:
     idx = sorted(range(len(order)), key=lambda n: -min(dist(x) for x in order[n][1]))
     rows = []
     for n in idx:
-        b = np.real(np.poly(assigned[n]))
-        a = np.real(np.poly(order[n][1]))
+        b = poly_real(assigned[n])
+        a = poly_real(order[n][1])
         rows.append(np.concatenate([b, np.zeros(3 - b.size), a, np.zeros(3 - a.size)]))
     sos = np.array(rows, dtype=np.float64)
     sos[0, :3] *= k

@@ -61,6 +61,11 @@ from simwave.discrete.realization import (
 #: Methods whose fractional dead time is exact (modified z-transform).
 EXACT_FRACTION_METHODS = ("step-invariant", "ramp-invariant")
 
+#: The log grid of angles (radians per sample) the hold methods' gain is matched among
+#: (with DC and the poles' natural frequencies); made once.
+_THETA_GRID = np.geomspace(1e-9, math.pi, 48)
+_THETA_GRID.flags.writeable = False
+
 #: A dead time within this many samples of a whole number counts as whole.
 _WHOLE_TOL = 1e-9
 
@@ -364,7 +369,7 @@ def design(
     # Zeros of the delta-domain model (E/T, G, C, D): its pencil tends to the analog
     # one as T -> 0, so zeros near z = 1 come out as z - 1 to full relative accuracy.
     wz = pencil_zeros(E / T, Gam / T, Cd, Dd) * T
-    thetas = np.concatenate([[0.0], np.abs(poles) * T, np.geomspace(1e-9, math.pi, 48)])
+    thetas = np.concatenate([[0.0], np.abs(poles) * T, _THETA_GRID])
     kd, th, h = delta_gain_response(E, Gam, Cd, Dd, wz, wp, thetas)
     if kd == 0.0:
         wz = np.zeros(0, dtype=np.complex128)

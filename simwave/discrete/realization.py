@@ -55,11 +55,43 @@ def tidy_roots(roots: np.ndarray, rtol: float = 1e-9) -> np.ndarray:
         if not rest:
             out.append(complex(r.real, 0.0))  # lone complex value: keep its real part
             continue
-        j = int(np.argmin([abs(c - np.conj(r)) for c in rest]))
+        conj = np.conj(r)
+        dist = [abs(c - conj) for c in rest]
+        if any(d != d for d in dist):  # NaN: numpy's argmin rule (the first NaN)
+            j = int(np.argmin(dist))
+        else:  # the first smallest, as argmin, without building an array
+            j = dist.index(min(dist))
         partner = rest.pop(j)
         mean = 0.5 * (r + np.conj(partner))
         out.extend([mean, np.conj(mean)])
     return np.array(out, dtype=np.complex128)
+
+
+def poly_real(roots) -> np.ndarray:
+    """``np.real(np.poly(roots))`` for at most two roots, the same bits, without its overhead.
+
+    A conjugate pair q, conj(q) gives [1, -(qr + qr), qr qr + qi qi] and two real roots
+    a, b give [1, -a - b, a b]: the operations np.poly's convolution performs on these
+    values (checked equal bit for bit, signs of zero included, in tests/
+    test_discrete_realization.py). Roots with a zero real or imaginary part, products
+    that underflow to zero or overflow (where the complex products could give another
+    sign of zero, or NaN for inf), and anything else go to np.poly itself.
+    """
+    if len(roots) == 1:
+        r = complex(roots[0])
+        if r.imag == 0.0 and r.real != 0.0:
+            return np.array([1.0, -r.real])
+    elif len(roots) == 2:
+        a, b = complex(roots[0]), complex(roots[1])
+        out = None
+        if a.imag == 0.0 and b.imag == 0.0 and a.real != 0.0 and b.real != 0.0:
+            out = (-a.real - b.real, a.real * b.real)
+        elif a.imag != 0.0 and a.real != 0.0 and b.real == a.real and b.imag == -a.imag:
+            out = (-(a.real + a.real), a.real * a.real + a.imag * a.imag)
+        # a product that underflows to 0 or anything that overflows: np.poly's own signs
+        if out is not None and out[1] != 0.0 and math.isfinite(out[0]) and math.isfinite(out[1]):
+            return np.array([1.0, out[0], out[1]])
+    return np.real(np.poly(roots))
 
 
 # --------------------------------------------------------------------------- analog realization
@@ -105,7 +137,7 @@ def _group_sections(
 
 def _section_ss(zeros: list[complex], poles: list[complex], g: float):
     """State space of g * prod(s - z) / prod(s - p) for one first/second-order section."""
-    num = g * np.real(np.poly(zeros)) if zeros else np.array([g])
+    num = g * poly_real(zeros) if zeros else np.array([g])
     n = len(poles)
     num = np.concatenate([np.zeros(n + 1 - num.size), num])  # pad to degree n
     if n == 1:
@@ -114,7 +146,7 @@ def _section_ss(zeros: list[complex], poles: list[complex], g: float):
         c = num[1] + d * p  # g(s - z)/(s - p) = d + (num1 + d p)/(s - p)
         beta = math.sqrt(abs(c)) if c != 0 else 1.0
         return (np.array([[p]]), np.array([[beta]]), np.array([[c / beta]]), np.array([[d]]))
-    den = np.real(np.poly(poles))  # [1, a1, a0]
+    den = poly_real(poles)  # [1, a1, a0]
     d = num[0]
     b1 = num[1] - d * den[1]
     b0 = num[2] - d * den[2]
@@ -218,17 +250,28 @@ def series_state_space(parts):
     The previous block's output y = C x + D u feeds the next block's input, so
     the states stack block-lower-triangularly (Ogata, *Modern Control
     Engineering*, 5th ed., ch. 9, series connection; section number from memory).
+    Filled in place: every entry is one product of two numbers (B_i C and D_i C are
+    outer products of a column and a row), the same as the matrix products would give;
+    + 0.0 makes a product's -0.0 the +0.0 a matrix product's sum (from 0) gives.
     """
-    A = np.zeros((0, 0))
-    B = np.zeros((0, 1))
-    C = np.zeros((1, 0))
+    sizes = [np.shape(part[0])[0] for part in parts]
+    n = int(sum(sizes))
+    A = np.zeros((n, n))
+    B = np.zeros((n, 1))
+    C = np.zeros((1, n))
     D = np.ones((1, 1))
-    for Ai, Bi, Ci, Di in parts:
-        n, k = A.shape[0], Ai.shape[0]
-        A = np.block([[A, np.zeros((n, k))], [Bi @ C, Ai]])
-        B = np.vstack([B, Bi @ D])
-        C = np.hstack([Di @ C, Ci])
+    at = 0
+    for (Ai, Bi, Ci, Di), k in zip(parts, sizes, strict=True):
+        Bi = np.asarray(Bi, dtype=np.float64)
+        Di = np.asarray(Di, dtype=np.float64)
+        if at:
+            A[at : at + k, :at] = Bi * C[:, :at] + 0.0  # (k, 1) * (1, at): Bi @ C
+        A[at : at + k, at : at + k] = Ai
+        B[at : at + k] = Bi * D[0, 0] + 0.0  # Bi @ D
+        C[:, :at] = Di[0, 0] * C[:, :at] + 0.0  # Di @ C
+        C[:, at : at + k] = Ci
         D = Di @ D
+        at += k
     return A, B, C, D
 
 
@@ -395,13 +438,39 @@ def pencil_zeros(Phi, Gam, C, D) -> np.ndarray:
     M = np.block([[Phi, Gam], [C, D]])
     N = np.zeros_like(M)
     N[:n, :n] = np.eye(n)
-    ab = sla.eigvals(M, N, homogeneous_eigvals=True)
-    alpha, beta = ab[0], ab[1]
+    alpha, beta = _generalized_eigvals(M, N)
     scale = max(1.0, float(np.max(np.abs(M))))
     finite = np.abs(beta) * 1e9 * scale > np.abs(alpha)
     finite &= np.abs(beta) > 1e-13 * scale
     z = alpha[finite] / beta[finite]
     return tidy_roots(z)
+
+
+_GGEV = None
+
+
+def _generalized_eigvals(M: np.ndarray, N: np.ndarray):
+    """(alpha, beta) of ``scipy.linalg.eigvals(M, N, homogeneous_eigvals=True)``, same bits.
+
+    The same LAPACK routine (ggev, workspace queried the same way) called directly:
+    scipy's wrapper costs about as much again in argument checks for these small
+    matrices. Non-finite input raises scipy's ValueError; failure, its LinAlgError.
+    """
+    global _GGEV
+    M = np.asarray(M, dtype=np.float64)
+    N = np.asarray(N, dtype=np.float64)
+    if not (np.isfinite(M).all() and np.isfinite(N).all()):
+        raise ValueError("array must not contain infs or NaNs")
+    if _GGEV is None:
+        _GGEV = sla.get_lapack_funcs(("ggev",), (M, N))[0]
+    res = _GGEV(M, N, lwork=-1)
+    lwork = res[-2][0].real.astype(np.int_)
+    alphar, alphai, beta, _, _, _, info = _GGEV(M, N, 0, 0, lwork, 0, 0)
+    if info != 0:
+        raise np.linalg.LinAlgError(
+            f"generalized eig algorithm (ggev) did not converge (LAPACK info={info})")
+    ab = np.vstack((alphar + 1j * alphai, beta))
+    return ab[0], ab[1]
 
 
 def ss_response(Phi, Gam, C, D, z: complex) -> complex:
