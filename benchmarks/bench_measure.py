@@ -108,10 +108,11 @@ for name, f in steps.items():
     f()
 for rnd in range(3):  # interleaved rounds: the machine's load falls on every step alike
     for name, f in steps.items():
-        t = time.perf_counter()
+        t, c = time.perf_counter(), time.process_time()
         for _ in range(pairs):
             f()
         out.setdefault(name, []).append((time.perf_counter() - t) / pairs)
+        out.setdefault("cpu " + name, []).append((time.process_time() - c) / pairs)
 print(__import__("json").dumps({{k: min(v) for k, v in out.items()}}))
 """
 
@@ -158,7 +159,11 @@ def _short(d: str, pairs: int, baseline: str | None, rounds: int) -> None:
     for who, r in best.items():
         base = r["plain read of the two files (soundfile.read x 2)"]
         for name, sec in r.items():
-            print(f"  {who:17s} {name:50s} {1e3 * sec:7.2f} ms  ({sec / base:.1f}x the read)")
+            if name.startswith("cpu "):
+                continue
+            cpu = r.get("cpu " + name, float("nan"))
+            print(f"  {who:17s} {name:50s} {1e3 * sec:7.2f} ms (CPU {1e3 * cpu:6.2f} ms)  "
+                  f"({sec / base:.1f}x the read)")
     mine = best["this checkout"]
     worst = max(mine["simwave.measure, arrays"], mine["simwave.measure, file paths"])
     print(f"  target <= 4 ms per pair: {'met' if worst <= 0.004 else 'NOT met'}")
@@ -203,6 +208,7 @@ def main() -> None:
     a = ap.parse_args()
     d = a.dir or tempfile.mkdtemp(prefix="simwave-bench-measure-")
     os.makedirs(d, exist_ok=True)
+    print("load average (1, 5, 15 min) at start: %.2f %.2f %.2f" % os.getloadavg())
     try:
         imp = _run(STEPS["import only"], "")
         print(f"import simwave alone: {imp.get('seconds', 0):.2f} s, "
@@ -239,6 +245,7 @@ def main() -> None:
                 met = meas["seconds"] <= 3 and meas["peak_mb"] <= 200
                 print(
                     f"  ratio measure / baseline: time {meas['seconds'] / base['seconds']:.2f}x, "
+                    f"CPU {meas['cpu_s'] / base['cpu_s']:.2f}x, "
                     f"peak memory {meas['peak_mb'] / base['peak_mb']:.2f}x; target <= 3 s and "
                     f"<= 200 MB: {'met' if met else 'NOT met'}"
                 )
@@ -249,6 +256,7 @@ def main() -> None:
                         f"{meas['cpu_s'] / old['cpu_s']:.2f}x, peak memory "
                         f"{meas['peak_mb'] / old['peak_mb']:.2f}x"
                     )
+        print("\nload average (1, 5, 15 min) at end: %.2f %.2f %.2f" % os.getloadavg())
     finally:
         if not a.keep and a.dir is None:
             shutil.rmtree(d, ignore_errors=True)

@@ -291,7 +291,7 @@ def test_edge_finder_run_by_run_equals_event_by_event(monkeypatch):
         edges = [(e.direction, e.k_start, e.k_mid, e.j) for e in f.edges]
         return edges, (f.last_event, f.last_state, f.last_below_mid, f.last_above_mid)
 
-    for t in range(200):
+    for _ in range(200):
         n = int(rng.integers(2, 4000))
         period = int(rng.integers(2, 400))
         y = ((np.arange(n) // period) % 2) + rng.uniform(0, 0.4) * rng.standard_normal(n)
@@ -302,3 +302,36 @@ def test_edge_finder_run_by_run_equals_event_by_event(monkeypatch):
         assert runs == events
         assert runs[0] == whole[0]
         assert len(runs[0]) > 0 or n < 2 * period
+
+
+def test_settling_turn_by_chunks_equals_sample_by_sample():
+    # EdgeRegions._track_turn takes a long stretch by chunks (two reductions where the
+    # running maximum does not rise); the largest turn and the carried extreme are those of
+    # the running maximum taken sample by sample
+    import importlib
+
+    tr = importlib.import_module("simwave.measure.transient")
+    rng = np.random.default_rng(4)
+
+    def by_sample(side, extreme, turn, y):
+        v = -side * y
+        if not math.isnan(extreme):
+            v = np.concatenate(([extreme], v))
+        run = np.maximum.accumulate(v)
+        return max(turn, float(np.max(run - v))), float(run[-1])
+
+    for t in range(300):
+        n = int(rng.integers(4 * tr.TURN_CHUNK, 8000))
+        k = np.arange(n)
+        y = [
+            1 - np.exp(-k / rng.uniform(5, 800)) + rng.uniform(0, 1e-3) * rng.standard_normal(n),
+            (1 - np.exp(-k / 96.0)).astype(np.float32).astype(np.float64),
+            np.cumsum(rng.standard_normal(n)),
+        ][t % 3]
+        r = object.__new__(tr.EdgeRegions)
+        r.entry_side = int(rng.choice([-1, 1]))
+        r.run_extreme = math.nan if t % 2 else float(rng.standard_normal())
+        r.turn = 0.0
+        want = by_sample(r.entry_side, r.run_extreme, r.turn, y)
+        r._track_turn(y)
+        assert (r.turn, r.run_extreme) == want

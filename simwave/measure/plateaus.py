@@ -195,17 +195,17 @@ def find_plateaus(stats: WindowStats, n: int, rest_first: bool = False) -> Stair
     step_floor = max(dist, floor)
     runs: list[list[int]] = []
     total = 0.0  # running sum of the current run's window means (its level in O(1))
-    for i in np.flatnonzero(span <= flat_tol):
-        i = int(i)
+    mv = means.tolist()  # Python floats: the same values, without numpy's per-item cost
+    for i in np.flatnonzero(span <= flat_tol).tolist():
         if runs and runs[-1][-1] == i - 1:
             cur = runs[-1]
             level = total / len(cur)
-            if abs(means[i] - level) <= step_floor:
+            if abs(mv[i] - level) <= step_floor:
                 cur.append(i)
-                total += float(means[i])
+                total += mv[i]
                 continue
         runs.append([i])
-        total = float(means[i])
+        total = mv[i]
     plateaus = []
     for r in runs:
         if len(r) < MIN_PLATEAU_WINDOWS:

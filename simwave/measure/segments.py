@@ -508,7 +508,7 @@ class SegmentCollector:
 
     def _flush(self) -> None:
         seg = self.segments[self.cur]
-        y = np.concatenate(self.parts) if self.parts else np.empty(0)
+        y = np.concatenate(self.parts) if self.parts else np.empty(0)  # a copy, even of one
         if y.size:
             analyse_segment(seg, y, self.first, self.fraction)
         self.parts, self.held = [], 0
@@ -529,7 +529,9 @@ class SegmentCollector:
             if lo <= hi:
                 if not self.parts:
                     self.first = lo
-                self.parts.append(np.array(y[lo - start : hi - start + 1], dtype=np.float64))
+                # a view (no copy): the passes' blocks are never written to, and the
+                # segment's samples are joined into one new array when it ends
+                self.parts.append(np.asarray(y[lo - start : hi - start + 1], dtype=np.float64))
                 self.held += hi - lo + 1
                 if self.held > 2 * self.cap:
                     keep = np.concatenate(self.parts)[-self.cap :]

@@ -193,6 +193,16 @@ class EdgeFinder:
 RUNS_PER_SAMPLE = 32
 
 
+#: Samples per chunk of the settling search's running maximum (:meth:`EdgeRegions._track_turn`
+#: on long stretches).
+TURN_CHUNK = 256
+
+
+def _signed(s: int, y: np.ndarray) -> np.ndarray:
+    """``s * y`` for ``s`` = +1 or -1 (y itself, or its negation: the same values)."""
+    return y if s > 0 else np.negative(y)
+
+
 def _runs(mask: np.ndarray, changed: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """First and last local index of every run of True in ``mask`` (non-empty;
     ``changed``: ``mask[1:] != mask[:-1]``)."""
@@ -256,12 +266,15 @@ class EdgeRegions:
             self.last_out_next = float(y[0])
         lo, hi = max(self.pre_start, start), min(e.k_start, last)
         if lo <= hi:
-            self.pre_min = min(self.pre_min, float(np.min(s * y[lo - start : hi - start + 1])))
+            pre = _signed(s, y[lo - start : hi - start + 1])
+            self.pre_min = min(self.pre_min, float(np.min(pre)))
         # settling: the last sample outside the band, from the start of the transition on
         lo, hi = max(e.k_start, start), min(self.post_end, last)
+        settle_lo, dist = lo, None
         if lo <= hi:
             seg = y[lo - start : hi - start + 1]
-            out = np.flatnonzero(np.abs(seg - self.final) > self.band_abs)
+            dist = np.abs(seg - self.final)
+            out = np.flatnonzero(dist > self.band_abs)
             inside = seg
             if out.size:
                 k = lo + int(out[-1])
@@ -275,7 +288,7 @@ class EdgeRegions:
         lo, hi = max(e.j, start), min(self.post_end, last)
         if lo > hi:
             return
-        sy = s * y[lo - start : hi - start + 1]
+        sy = _signed(s, y[lo - start : hi - start + 1])
         a = int(np.argmax(sy))
         if sy[a] > self.peak_val:
             k = lo + a
@@ -294,7 +307,8 @@ class EdgeRegions:
             self.after_reach_min = min(self.after_reach_min, float(np.min(sy)))
         tl = max(self.tail_start, lo)
         if tl <= hi:
-            dev = float(np.max(np.abs(y[tl - start : hi - start + 1] - self.final)))
+            # |y - final| over the tail: part of the settling search's (which covers it)
+            dev = float(np.max(dist[tl - settle_lo : hi - settle_lo + 1]))
             self.tail_dev = max(self.tail_dev, dev)
 
     def _track_turn(self, inside: np.ndarray) -> None:
@@ -303,12 +317,45 @@ class EdgeRegions:
         rose back from its running minimum)."""
         if inside.size == 0 or self.entry_side == 0:
             return
-        v = -self.entry_side * inside  # rising into the band from below: v rises too
+        v = _signed(-self.entry_side, inside)  # rising into the band from below: v rises too
+        if v.size >= 4 * TURN_CHUNK:
+            self._track_turn_chunked(v)
+            return
         if not math.isnan(self.run_extreme):
             v = np.concatenate(([self.run_extreme], v))
         run = np.maximum.accumulate(v)
         self.turn = max(self.turn, float(np.max(run - v)))
         self.run_extreme = float(run[-1])
+
+    def _track_turn_chunked(self, v: np.ndarray) -> None:
+        """:meth:`_track_turn` on a long stretch, by chunks of ``TURN_CHUNK`` samples: where
+        a chunk does not raise the running maximum (the settled part, as a rule), its largest
+        fall is the maximum before it less the chunk's minimum, from two reductions; the
+        running maximum is taken sample by sample only over the chunks that raise it (chunks
+        that do not raise it never change it, so one running maximum over those chunks in
+        order is the whole record's). Each difference is then one the sample-by-sample
+        running maximum also forms, so the same largest turn."""
+        n = v.size
+        starts = np.arange(0, n, TURN_CHUNK)
+        cmax = np.maximum.reduceat(v, starts)
+        cmin = np.minimum.reduceat(v, starts)
+        m = -math.inf if math.isnan(self.run_extreme) else self.run_extreme
+        before = np.empty_like(cmax)  # the running maximum before each chunk
+        before[0] = m
+        np.maximum.accumulate(cmax[:-1], out=before[1:])
+        np.maximum(before[1:], m, out=before[1:])
+        quiet = cmax <= before
+        turn = self.turn
+        if quiet.any():
+            turn = max(turn, float(np.max(before[quiet] - cmin[quiet])))
+        if not quiet.all():
+            w = v[np.repeat(~quiet, TURN_CHUNK)[:n]]
+            if math.isfinite(m):
+                w = np.concatenate(([m], w))
+            run = np.maximum.accumulate(w)
+            turn = max(turn, float(np.max(run - w)))
+        self.turn = turn
+        self.run_extreme = float(max(before[-1], cmax[-1]))
 
     # ------------------------------------------------------------------ results
     def peak(self) -> tuple[float, float] | None:
