@@ -3,9 +3,10 @@
 A measurement makes several passes over the record (range, histogram, transitions,
 regions). Each pass asks :class:`MeasureSource` for aligned blocks of the measured
 channels and the reference channels. A file of at most ``IN_MEMORY_VALUES`` values
-(samples x channels) is read once, when the source is opened, and every pass slices that
-copy; a longer file is read again in blocks through :func:`simwave.blocks` by every pass,
-so nothing but one block per stream is held. Either way the passes see the same blocks.
+(samples x channels) is read once, when the source is opened, and every pass is given
+the blocks read then; a longer file is read again in blocks through :func:`simwave.blocks`
+by every pass, so nothing but one block per stream is held. Either way the passes see the
+same blocks.
 """
 
 from __future__ import annotations
@@ -22,11 +23,13 @@ from simwave.signals.waveform import Waveform
 
 PathLike = (str, os.PathLike)
 
-#: A file holding at most this many values (samples x channels, 16 MB as float64) is read
-#: into memory once instead of once per pass (our choice: a short record's passes cost
-#: little next to opening and decoding its file each time; a long one must stream to
-#: keep memory bounded). The blocks read to find out are the first pass's first blocks.
-IN_MEMORY_VALUES = 1 << 21
+#: A file holding at most this many values (samples x channels, 64 MB as float64: 2.9
+#: minutes of one 48 kHz channel) is read into memory once, as the blocks every pass would
+#: read, instead of once per pass (our choice: its 5 to 7 passes would each decode the
+#: whole file again, while a measurement holds some 70 MB besides, so a record this size
+#: stays near 140 MB, under the 200 MB a 10-minute record may take; a longer one must
+#: stream to keep memory bounded). The blocks read to find out are the first pass's.
+IN_MEMORY_VALUES = 1 << 23
 
 
 def _read_module():
@@ -77,7 +80,7 @@ class _Stream:
         self.block_size = block_size
         self.read_options = read_options
         self.columns = columns
-        self.memory: np.ndarray | None = None  # a short file's samples, read once
+        self.memory: list[np.ndarray] | None = None  # a short file's blocks, read once
         # a long file: the blocks read while finding out, and the open reader after them
         # (the first pass continues from there instead of reading them again)
         self._pending: tuple[list, Iterator[Waveform]] | None = None
@@ -125,7 +128,11 @@ class _Stream:
     def arrays(self) -> Iterator[np.ndarray]:
         if self.rest_sample:
             yield np.zeros((1, len(self.info.channels)))
-        data = self.memory if self.memory is not None else getattr(self.obj, "data", None)
+        if self.memory is not None:
+            for blk in self.memory:
+                yield blk if self.columns is None else blk[:, self.columns]
+            return
+        data = getattr(self.obj, "data", None)
         if data is not None:
             for a in range(0, data.shape[0], self.block_size):
                 blk = data[a : a + self.block_size]
@@ -148,8 +155,9 @@ def _as_2d(piece: Waveform) -> np.ndarray:
 
 def _read_if_short(
     first: Waveform, rest: Iterator[Waveform]
-) -> tuple[np.ndarray | None, tuple[list, Iterator[Waveform]] | None]:
-    """``(samples, None)``: the whole file as one ``(n, n_channels)`` float64 array when it
+) -> tuple[list[np.ndarray] | None, tuple[list, Iterator[Waveform]] | None]:
+    """``(blocks, None)``: the whole file as the ``(n, n_channels)`` float64 blocks a pass
+    reads (kept as they are: no joined copy, whose making would hold the file twice) when it
     holds at most ``IN_MEMORY_VALUES`` values; else ``(None, (blocks read, open reader))``
     for the first pass to continue from."""
     parts = [_as_2d(first)]
@@ -159,7 +167,7 @@ def _read_if_short(
         total += parts[-1].size
         if total > IN_MEMORY_VALUES:
             return None, (parts, rest)
-    return (np.concatenate(parts) if len(parts) > 1 else parts[0]), None
+    return parts, None
 
 
 def _aligned(
