@@ -211,7 +211,7 @@ def main() -> None:
     print("load average (1, 5, 15 min) at start: %.2f %.2f %.2f" % os.getloadavg())
     try:
         imp = _run(STEPS["import only"], "")
-        print(f"import simwave alone: {imp.get('seconds', 0):.2f} s, "
+        print(f"import simwave alone: {imp.get('seconds', 0):.3f} s, "
               f"{imp.get('peak_mb', 0):.0f} MB")
         for kind in a.only.split(","):
             if kind == "short":

@@ -94,7 +94,12 @@ class _Stream:
             first = next(pieces, None)
             if first is None:
                 raise MeasurementError(f"{path}: the file holds no samples")
-            self.memory, self._pending = _read_if_short(first, pieces)
+            long_ = np.shape(first.data)[0] >= block_size  # a file of one block is short
+            if long_ and _frames(path) > IN_MEMORY_VALUES:
+                # too long to hold, known without reading on: the first pass continues
+                self._pending = ([_as_2d(first)], pieces)
+            else:
+                self.memory, self._pending = _read_if_short(first, pieces)
         else:
             raise MeasurementError(
                 f"{label} must be a Waveform or a file path, got {type(obj).__name__}"
@@ -146,6 +151,17 @@ class _Stream:
             pieces = (_as_2d(p) for p in _file_blocks(self.obj, self.block_size, self.read_options))
         for blk in pieces:
             yield blk if self.columns is None else blk[:, self.columns]
+
+
+def _frames(path: str) -> int:
+    """Samples per channel of an audio file as its header gives them (cheap), or 0 when it
+    is no file soundfile knows (CSV, HDF5: their length is known only by reading them)."""
+    try:
+        import soundfile
+
+        return int(soundfile.info(path).frames)
+    except Exception:  # not an audio file, or none soundfile reads: decide by reading
+        return 0
 
 
 def _as_2d(piece: Waveform) -> np.ndarray:
