@@ -283,6 +283,7 @@ def test_edge_finder_run_by_run_equals_event_by_event(monkeypatch):
 
     def found(y, cuts, runs_per_sample):
         monkeypatch.setattr(tr, "RUNS_PER_SAMPLE", runs_per_sample)
+        monkeypatch.setattr(tr, "RUNS_MIN_BLOCK", 1)  # short blocks too
         f = tr.EdgeFinder(0.2, 0.5, 0.8)
         pos = 0
         for c in cuts + [y.size]:

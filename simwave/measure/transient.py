@@ -132,9 +132,10 @@ class EdgeFinder:
         below = y <= self.low
         below &= ~above
         many = 2 * max(n // RUNS_PER_SAMPLE, 1)
-        ca = above[1:] != above[:-1]
-        cb = below[1:] != below[:-1]
-        if np.count_nonzero(ca) > many or np.count_nonzero(cb) > many:
+        if n >= RUNS_MIN_BLOCK:
+            ca = above[1:] != above[:-1]
+            cb = below[1:] != below[:-1]
+        if n < RUNS_MIN_BLOCK or np.count_nonzero(ca) > many or np.count_nonzero(cb) > many:
             # short runs (noise about a reference level): event by event
             first = last = np.flatnonzero(below | above)
             states = above[first].astype(np.int8)
@@ -191,6 +192,9 @@ class EdgeFinder:
 #: Above this many runs of one state per this many samples a block's events are taken one by
 #: one rather than run by run (cheaper then; the same transitions either way).
 RUNS_PER_SAMPLE = 32
+#: ... and a block shorter than this (a short record: the runs' bookkeeping costs more
+#: than it saves) too.
+RUNS_MIN_BLOCK = 4096
 
 
 #: Samples per chunk of the settling search's running maximum (:meth:`EdgeRegions._track_turn`
