@@ -74,10 +74,11 @@ def test_cached_models_blocks_and_channels_give_the_same_bits(case, tmp_path):
         assert np.array_equal(other.view(np.uint64), first.view(np.uint64))
 
 
-@pytest.mark.parametrize("n_channels", [16, 17, 64])
+@pytest.mark.parametrize("n_channels", [3, 4, 8, 16, 17, 64])
 def test_channel_major_pieces_give_sosfilts_bits(n_channels):
     # Reference: scipy.signal.sosfilt along axis 0 in one call (what process() did before
-    # it filtered channel-major pieces); the inputs are long enough for several pieces.
+    # it transposed channel-major pieces and ran sosfilt's loop on them); the inputs are
+    # long enough for several pieces.
     import scipy.signal as sig
 
     from simwave.discrete.filter import PIECE_VALUES, run_sections
@@ -88,7 +89,17 @@ def test_channel_major_pieces_give_sosfilts_bits(n_channels):
     x = rng.standard_normal((n, n_channels))
     x[100:200, 1] = 0.0
     x[150, 1] = -0.0  # signed zeros pass through unchanged
+    x[300, 0] = np.inf  # and infinities and NaN stay in their own channel
+    x[500, n_channels - 1] = np.nan
     zi = rng.standard_normal((sos.shape[0], 2, n_channels))
+    zi_before = zi.copy()
+    with np.errstate(invalid="ignore"):
+        y_ref, zf_ref = sig.sosfilt(sos, x, axis=0, zi=zi)
+        y, zf = run_sections(sos, x, zi)
+    assert np.array_equal(y.view(np.uint64), y_ref.view(np.uint64))
+    assert np.array_equal(zf.view(np.uint64), zf_ref.view(np.uint64))
+    assert np.array_equal(zi, zi_before)  # the given state is not changed
+    x = x[:, ::-1][2000:]  # finite again, and a strided view
     y_ref, zf_ref = sig.sosfilt(sos, x, axis=0, zi=zi)
     y, zf = run_sections(sos, x, zi)
     assert np.array_equal(y.view(np.uint64), y_ref.view(np.uint64))
@@ -126,3 +137,4 @@ def test_level_meter_flags_every_kind_of_bad_sample():
         for n in (1, 1023, 1024, 1025, 5001):
             x = rng.standard_normal((n, k))
             assert np.array_equal(_channel_peaks(x), np.abs(x).max(axis=0))
+

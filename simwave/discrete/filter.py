@@ -1,8 +1,9 @@
 """DiscreteSystem: a runnable discrete model with explicit, carried filter state.
 
 The model runs as second-order sections through ``scipy.signal.sosfilt``
-(one call per block along axis 0 for up to 15 channels; from 16 channels in
-cache-sized channel-major pieces, :func:`run_sections`), followed by an exact
+(one call per block along axis 0 for up to 3 channels; from 4 channels the block is
+transposed in cache-sized pieces and sosfilt's loop runs on it in place,
+:func:`run_sections`), followed by an exact
 delay line for the whole-sample part of the dead time. Everything else a
 block costs is constant work, so processing is as fast as sosfilt itself.
 Models whose sections would lose digits (poles near z = 1: rates far above
@@ -67,15 +68,21 @@ _MAX_HORIZON = 1 << 16
 #: Names accepted by ``realization``.
 REALIZATIONS: tuple[str, ...] = ("auto", "sections", "incremental")
 
-#: From this many channels, :func:`run_sections` filters channel-major pieces of about
-#: ``PIECE_VALUES`` values instead of one sosfilt call along axis 0 (see there). Measured
-#: on 16 M values (bench_filter_core.py): pieces / one call 0.85x at 4 channels, 0.99x at
-#: 8, 1.33x at 16, 1.36x at 64 (CPU time), so fewer channels keep the one call.
-CHANNEL_MAJOR_FROM = 16
+#: From this many channels, :func:`run_sections` transposes the frames into a channel-major
+#: array in cache-sized pieces and filters it in place (see there) instead of one sosfilt
+#: call along axis 0. Measured on 32 M values (process CPU time, one sosfilt call / this):
+#: 4 channels 1.07x, 8 1.25x, 64 1.70x; 2 channels 0.93x, so fewer keep the one call.
+CHANNEL_MAJOR_FROM = 4
 
-#: Values (frames x channels) per channel-major piece: 512 kB of float64, which stays in
+#: Values (frames x channels) per transposed piece: 512 kB of float64, which stays in
 #: this machine class's 1 MB per-core L2 cache with its transposed copy beside it.
 PIECE_VALUES = 1 << 16
+
+try:  # sosfilt's own loop, without its argument handling and its internal copy
+    from scipy.signal._sosfilt import _sosfilt as _sosfilt_loop
+except ImportError:  # another scipy layout: the public call (same bits, slower)
+    _sosfilt_loop = None
+
 
 #: ``auto`` runs second-order sections while their expected round-off level
 #: (:func:`simwave.discrete.incremental.section_round_off`) stays at or below
@@ -136,29 +143,34 @@ def run_sections(sos: np.ndarray, x: np.ndarray, zi: np.ndarray) -> tuple[np.nda
     """``scipy.signal.sosfilt(sos, x, axis=0, zi=zi)`` for x of shape (n, n_channels), same bits.
 
     sosfilt filters each channel as one contiguous row, so along axis 0 it first copies
-    the whole (n, n_channels) array into channel-major order: a strided transposition
-    through main memory, which for many channels costs as much as a good part of the
-    filtering (bench_filter_core.py prints it). From ``CHANNEL_MAJOR_FROM`` channels the
-    frames go through in pieces of about ``PIECE_VALUES`` values, each transposed inside
-    the cache and filtered along its last axis, with the sections' state carried from
-    piece to piece. Every channel sees the same operations in the same order as in one
-    call (sosfilt's loop is per channel and per sample), so the output is bit-identical;
-    tests/test_same_numbers.py checks it.
+    the whole (n, n_channels) array into channel-major order, a strided transposition
+    through main memory, then runs its loop (scipy/signal/_sosfilt.pyx) on that copy in
+    place. From ``CHANNEL_MAJOR_FROM`` channels the transposition is done here instead,
+    in pieces of about ``PIECE_VALUES`` values that stay in cache, straight into the
+    output array, and the same loop then runs on it in place: one copy, and no argument
+    handling per call. The loop is sosfilt's own, per channel and per sample, on the same
+    values in the same order, so the output is bit-identical (tests/test_same_numbers.py
+    compares it with sosfilt, signed zeros, infinities and NaN included).
 
     Returns (y, zf) like sosfilt: y of shape (n, n_channels) (a transposed view of a
     channel-major array, the layout sosfilt itself returns along axis 0) and zf of shape
     (n_sections, 2, n_channels).
     """
     n, nch = x.shape
-    if nch < CHANNEL_MAJOR_FROM or n * nch <= PIECE_VALUES:
+    if (nch < CHANNEL_MAJOR_FROM or n * nch <= PIECE_VALUES or _sosfilt_loop is None
+            or x.dtype != np.float64 or not np.all(sos[:, 3] == 1.0)):
         return sig.sosfilt(sos, x, axis=0, zi=zi)
-    frames = max(256, PIECE_VALUES // nch)
+    zi = np.asarray(zi, dtype=np.float64)
+    if zi.shape != (sos.shape[0], 2, nch):
+        raise ValueError(f"zi must have shape {(sos.shape[0], 2, nch)}, got {zi.shape}")
     out = np.empty((nch, n))
-    zt = np.ascontiguousarray(np.asarray(zi, dtype=np.float64).transpose(0, 2, 1))
+    frames = max(256, PIECE_VALUES // nch)
     for start in range(0, n, frames):
-        stop = min(n, start + frames)
-        out[:, start:stop], zt = sig.sosfilt(sos, x[start:stop].T, axis=-1, zi=zt)
-    return out.T, zt.transpose(0, 2, 1)
+        np.copyto(out[:, start : start + frames], x[start : start + frames].T)
+    # the loop's state layout: (channels, sections, 2), C-contiguous (a copy: zi stays)
+    zc = np.array(zi.transpose(2, 0, 1), order="C")
+    _sosfilt_loop(np.ascontiguousarray(sos, dtype=np.float64), out, zc)
+    return out.T, zc.transpose(1, 2, 0)
 
 
 def _sequence(step, C: np.ndarray, v: np.ndarray, n: int) -> np.ndarray:
@@ -902,7 +914,7 @@ class DiscreteSystem:
         Notes
         -----
         ``scipy.signal.sosfilt`` does the filtering (:func:`run_sections`: one
-        call along axis 0, or channel-major pieces for 16 channels or more); the
+        call along axis 0, or its loop on a channel-major copy for 4 channels or more); the
         whole-sample dead time is a ring buffer. Splitting a signal into blocks
         of any sizes gives bit-for-bit the same output as one call. The
         incremental realization (models with poles near z = 1, see
