@@ -111,7 +111,8 @@ system = ("(2*pi*1k)^4/((s^2 + 0.7654*2*pi*1k*s + (2*pi*1k)^2)"
           "*(s^2 + 1.8478*2*pi*1k*s + (2*pi*1k)^2))")
 w = simwave.Waveform(np.random.default_rng(3).standard_normal((values // nch, nch)), 48000.0)
 # bilinear: no first-sample start correction, so the digests compare the filtering alone
-simwave.simulate(system, w.data[:1000], rate=48000.0, method="bilinear")  # model cached
+# model cached (a Waveform: older trees, e.g. a385a60, take no bare arrays)
+simwave.simulate(system, simwave.Waveform(w.data[:1000], 48000.0), method="bilinear")
 cpu = wall = float("inf")
 for _ in range(repeats):
     c0, w0 = time.process_time(), time.perf_counter()
