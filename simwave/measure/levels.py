@@ -7,6 +7,7 @@ array of counts per channel whatever the record length.
 
 from __future__ import annotations
 
+import bisect
 import functools
 import math
 from dataclasses import dataclass
@@ -176,9 +177,30 @@ def fft_convolve_same(a: np.ndarray, k: np.ndarray) -> np.ndarray:
     return full[start : start + a.size]
 
 
+@functools.lru_cache(maxsize=1)
+def _smooth_lengths() -> list[int]:
+    """Every 5-smooth number up to 2^22, sorted."""
+    top = 1 << 22
+    out = []
+    p5 = 1
+    while p5 <= top:
+        p35 = p5
+        while p35 <= top:
+            p = p35
+            while p <= top:
+                out.append(p)
+                p *= 2
+            p35 *= 3
+        p5 *= 5
+    return sorted(out)
+
+
 def next_fast_len(n: int) -> int:
     """Smallest 5-smooth number (2^a 3^b 5^c) >= ``n``: scipy.fft.next_fast_len(n, real=True)
     (the lengths pocketfft's real transforms factor fastest), without importing scipy.fft."""
+    if 6 < n <= 1 << 22:
+        table = _smooth_lengths()
+        return table[bisect.bisect_left(table, int(n))]
     if n <= 6:
         return max(int(n), 1)
     best = 1 << (int(n) - 1).bit_length()  # the next power of two is a candidate
@@ -207,8 +229,12 @@ def _silverman_bandwidth(w: np.ndarray, x: np.ndarray) -> float:
     n = float(w.sum())
     mean = float(np.sum(w * x) / n)
     sd = math.sqrt(max(float(np.sum(w * (x - mean) ** 2) / n), 0.0))
-    cw = np.cumsum(w)
-    iqr = _weighted_quantile(x, w, 0.75, cw) - _weighted_quantile(x, w, 0.25, cw)
+    # the quartiles from the bins holding samples only: the counts' running sum is exact
+    # (integers), and the first bin where it reaches q n holds samples, so the same bins
+    held = np.flatnonzero(w)
+    xh = x[held]
+    cw = np.cumsum(w[held])
+    iqr = _weighted_quantile(xh, w, 0.75, cw) - _weighted_quantile(xh, w, 0.25, cw)
     spread = min(sd, iqr / 1.34) if iqr > 0 else sd
     return 0.9 * spread * n ** (-0.2)
 

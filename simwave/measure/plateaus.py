@@ -84,8 +84,11 @@ class WindowStats:
     mins: list = field(default_factory=list)
     maxs: list = field(default_factory=list)
     _carry: np.ndarray = field(default_factory=lambda: np.empty(0))
+    # arrays() and the quiet span, computed once after the last feed (read-only)
+    _cache: dict = field(default_factory=dict, repr=False, compare=False)
 
     def feed(self, y: np.ndarray) -> None:
+        self._cache.clear()
         if self._carry.size:
             y = np.concatenate([self._carry, y])
         m = (y.size // self.size) * self.size
@@ -98,22 +101,33 @@ class WindowStats:
 
     def arrays(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """(means, minima, maxima) of the whole windows, and of the last partial one if it
-        holds at least half a window."""
+        holds at least half a window (read-only arrays, made once after the last feed)."""
+        got = self._cache.get("arrays")
+        if got is None:
+            got = self._cache["arrays"] = self._arrays()
+        return got
+
+    def _arrays(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         means, mins, maxs = (list(a) for a in (self.means, self.mins, self.maxs))
         if self._carry.size >= max(self.size // 2, 1):
             c = self._carry
             means.append(np.array([c.mean()]))
             mins.append(np.array([c.min()]))
             maxs.append(np.array([c.max()]))
-        cat = (lambda a: np.concatenate(a) if a else np.empty(0))  # noqa: E731
-        return cat(means), cat(mins), cat(maxs)
+        out = tuple(np.concatenate(a) if a else np.empty(0) for a in (means, mins, maxs))
+        for a in out:
+            a.flags.writeable = False
+        return out  # type: ignore[return-value]
 
 
 def quiet_span(stats: WindowStats) -> float:
     """The disturbance's span (peak to peak): the first quartile of the window spans (what
     noise and hum alone do in a window, where a quarter of the record or more is quiet)."""
-    _, mins, maxs = stats.arrays()
-    return first_quartile(maxs - mins) if mins.size else 0.0
+    got = stats._cache.get("quiet")
+    if got is None:
+        _, mins, maxs = stats.arrays()
+        got = stats._cache["quiet"] = first_quartile(maxs - mins) if mins.size else 0.0
+    return got
 
 
 def first_quartile(a: np.ndarray) -> float:
