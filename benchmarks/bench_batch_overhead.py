@@ -13,9 +13,9 @@ Run:  python benchmarks/bench_batch_overhead.py [--files 2000] [--long-files 40]
    cost belongs to the measuring rebuild, not to the batch machinery. Then where a
    short pair's time goes, in one process (best of 3 over up to 200 files): the plain
    loop, ``simwave run`` alone, and the run with measuring and the metrics JSON, of
-   which measuring in memory. Beside each batch run: its CPU time per pair over all its
-   processes, and the workers' own CPU and elapsed time per pair (from the journal), which
-   say more than wall time when other processes share the cores.
+   which measuring in memory. Beside each batch run: the batch process's CPU time per
+   pair, and the workers' own CPU and elapsed time per pair (from the journal), which say
+   more than wall time when other processes share the cores.
 2. Long pairs: M WAVs of 10 s x 3 systems (same batch command); target >= 4x the
    baseline's pairs/s (the issue's run: 200 files; ``--long-files`` scales it down,
    the ratio is what is compared).
@@ -140,16 +140,17 @@ def batch_cmd(data: str, out: str, systems: list[str], jobs: int) -> list[str]:
     return argv + [os.path.join(data, "*.wav")]
 
 
-#: CPU seconds (all processes of the run: batch process, forkserver, workers) and the
-#: workers' own per-pair figures from the journal, of the last :func:`_timed` run.
+#: CPU seconds of the batch process (the workers, children of its forkserver, are not
+#: reaped by it and not counted) and the workers' own per-pair figures from the journal,
+#: of the last :func:`_timed` run.
 LAST: dict[str, float | None] = {}
 
 
 def _timed(argv: list[str], tree: str | None, out: str) -> float:
     """Wall time of one batch process into a fresh output folder (it must exit 0).
 
-    Also records in :data:`LAST` the CPU time of the whole run (this process's reaped
-    children: the batch process and everything it started) and, from the journal, the
+    Also records in :data:`LAST` the CPU time of the batch process (this process's reaped
+    children) and, from the journal, the
     workers' mean CPU and elapsed time per pair (``cpu_s``, ``elapsed_s``; None where the
     tree's journal has no ``cpu_s``).
     """
@@ -175,7 +176,7 @@ def _cpu_text(figures: dict | None, pairs: int) -> str:
     """CPU per pair of a batch run, all its processes, and the workers' own per pair."""
     if not figures:
         return ""
-    text = f"CPU {figures['cpu_s'] / pairs * 1e3:6.2f} ms/pair (all processes)"
+    text = f"batch process CPU {figures['cpu_s'] / pairs * 1e3:5.2f} ms/pair"
     if figures.get("pair_cpu_s") is not None:
         text += (f", in the worker {figures['pair_cpu_s'] * 1e3:6.2f} ms CPU / "
                  f"{figures['pair_elapsed_s'] * 1e3:6.2f} ms elapsed")
