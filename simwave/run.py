@@ -739,8 +739,9 @@ class _Sink:
 
 
 #: Largest record (values per stream: samples x channels) whose input and output a file run
-#: keeps for measuring: the measuring step holds a file this size in memory anyway
-#: (``simwave.measure.source.IN_MEMORY_VALUES``, the same number, 16 MB of float64).
+#: keeps for measuring (16 MB of float64 each; our choice). The measuring step holds a file
+#: of up to ``simwave.measure.source.IN_MEMORY_VALUES`` values in memory anyway; kept while
+#: the run streams, a larger record would add to the run's own memory.
 KEEP_VALUES = 1 << 21
 
 
