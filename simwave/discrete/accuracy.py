@@ -119,7 +119,7 @@ def method_check(model) -> dict[str, Any]:
     ha, hd = _responses(model, f)
     aa = np.abs(ha)
     finite = np.isfinite(aa)
-    peak = float(np.max(aa[finite])) if np.any(finite) else 0.0
+    peak = float(aa[finite].max()) if finite.any() else 0.0
     with np.errstate(divide="ignore", invalid="ignore"):
         sine = np.where(finite, np.abs(hd - ha) / peak, 0.0) if peak > 0 else np.zeros(f.size)
         keep = finite & (aa >= peak * 10 ** (-IN_BAND_DB / 20))

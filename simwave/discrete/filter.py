@@ -517,7 +517,7 @@ class DiscreteSystem:
         sos = self.sos
         num = sos[:, 0:1] + sos[:, 1:2] * zi + sos[:, 2:3] * zi2
         den = sos[:, 3:4] + sos[:, 4:5] * zi + sos[:, 5:6] * zi2
-        h = np.prod(num / den, axis=0)
+        h = (num / den).prod(axis=0)
         if dead_time and self.delay_line:
             h = h * np.exp(-2j * np.pi * f * self.delay_line / self.rate)
         return h.reshape(np.shape(f_hz)) if np.ndim(f_hz) else h[0]

@@ -232,7 +232,7 @@ def section_round_off(sos: np.ndarray) -> float:
     for a in rows:
         # np.roots strips a trailing zero coefficient: a root at 0 plus the rest
         roots = roots_of[id(a)] if a[2] != 0.0 else [-a[1] / a[0], 0.0]
-        total = float(np.sum(np.abs(a)))
+        total = float(np.abs(a).sum())
         for r in roots:
             r = complex(r)
             th = math.atan2(abs(r.imag), r.real)
@@ -267,14 +267,14 @@ def section_response_difference(sos: np.ndarray, theta: np.ndarray, h: np.ndarra
     with np.errstate(all="ignore"):
         num = sos[:, 0:1] + sos[:, 1:2] * zi + sos[:, 2:3] * zi2
         den = sos[:, 3:4] + sos[:, 4:5] * zi + sos[:, 5:6] * zi2
-        hs = np.prod(num / den, axis=0)
+        hs = (num / den).prod(axis=0)
         ok = np.isfinite(h) & np.isfinite(hs)
-        if not np.any(ok):
+        if not ok.any():
             return 0.0
-        peak = float(np.max(np.abs(h[ok])))
+        peak = float(np.abs(h[ok]).max())
         if not peak > 0:
             return 0.0
-        return float(np.max(np.abs(hs[ok] - h[ok])) / peak)
+        return float(np.abs(hs[ok] - h[ok]).max() / peak)
 
 
 def increment_round_off(incs: np.ndarray, horizon: int | None = None) -> float:

@@ -308,7 +308,7 @@ def expm(A: np.ndarray) -> np.ndarray:
     if n == 0:
         return np.zeros((0, 0))
     eye = np.eye(n)
-    norm = float(np.max(np.sum(np.abs(A), axis=0)))
+    norm = float(np.abs(A).sum(axis=0).max())
     for m in (3, 5, 7, 9):
         if norm <= _THETA[m]:
             b = _PADE[m]
@@ -353,7 +353,7 @@ def exp_increment(M: np.ndarray) -> np.ndarray:
     n = M.shape[0]
     if n == 0:
         return np.zeros((0, 0))
-    norm = float(np.max(np.sum(np.abs(M), axis=0)))
+    norm = float(np.abs(M).sum(axis=0).max())
     s = max(0, int(math.ceil(math.log2(norm * 8.0)))) if norm > 0 else 0
     X = M / 2.0**s
     eye = np.eye(n)
@@ -439,7 +439,7 @@ def pencil_zeros(Phi, Gam, C, D) -> np.ndarray:
     N = np.zeros_like(M)
     N[:n, :n] = np.eye(n)
     alpha, beta = _generalized_eigvals(M, N)
-    scale = max(1.0, float(np.max(np.abs(M))))
+    scale = max(1.0, float(np.abs(M).max()))
     finite = np.abs(beta) * 1e9 * scale > np.abs(alpha)
     finite &= np.abs(beta) > 1e-13 * scale
     z = alpha[finite] / beta[finite]
@@ -562,14 +562,14 @@ def delta_gain_response(E, G, C, D, w_zeros, w_poles, theta_candidates):
     w = np.expm1(1j * th)
     roots = np.concatenate([w_zeros, w_poles])
     if roots.size:
-        scale = np.maximum(np.abs(w), np.max(np.abs(roots)) * 1e-300)
-        near = np.min(np.abs(w[:, None] - roots[None, :]), axis=1)
+        scale = np.maximum(np.abs(w), np.abs(roots).max() * 1e-300)
+        near = np.abs(w[:, None] - roots[None, :]).min(axis=1)
         keep = near > 1e-6 * np.maximum(scale, 1e-300)
-        if np.any(keep):
+        if keep.any():
             w = w[keep]
             th = th[keep]
     # A direct evaluation of (w I - E) at w = 0 is exact for a nonsingular E.
     h = increment_response(E, G, C, D, w)
     i = int(np.argmax(np.abs(np.where(np.isfinite(h), h, 0.0))))
-    unit = np.prod(w[i] - w_zeros) / np.prod(w[i] - w_poles)
+    unit = (w[i] - w_zeros).prod() / (w[i] - w_poles).prod()
     return float(np.real(h[i] / unit)), th, h
