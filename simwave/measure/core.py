@@ -188,6 +188,15 @@ def measure(
             "first sample is not, so the input steps at the first sample; one sample of 0 is "
             "counted before the record (rest_before_record=False to drop the convention)"
         )
+    elif o.rest_before_record and src.prepend_output_rest_sample(output_aligned.leaves_rest):
+        m.rest_sample = m.rest_output = True
+        m.t0 = src.t0
+        m.notes.append(
+            "at-rest convention: the output is 0 before the record and leaves 0 from its "
+            "first sample (no input given: a step there is answered from rest); one sample "
+            "of 0 is counted before the record (rest_before_record=False to drop the "
+            "convention)"
+        )
     return MeasurementResult(run_stages(m))
 
 

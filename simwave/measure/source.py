@@ -130,6 +130,18 @@ class _Stream:
         )
         return s
 
+    def head(self) -> np.ndarray | None:
+        """The first block's samples (at most ``block_size`` rows) without consuming the
+        stream; None when they are not at hand."""
+        data = self.memory if self.memory is not None else getattr(self.obj, "data", None)
+        if data is None and self._pending is not None:
+            data = self._pending[0][0]
+        if data is None:
+            return None
+        blk = np.asarray(data[: self.block_size], dtype=np.float64)
+        blk = blk[:, None] if blk.ndim == 1 else blk
+        return blk if self.columns is None else blk[:, self.columns]
+
     def arrays(self) -> Iterator[np.ndarray]:
         if self.rest_sample:
             yield np.zeros((1, len(self.info.channels)))
@@ -299,6 +311,21 @@ class MeasureSource:
             # not start from rest, whatever the input does
             return False
         self.out.rest_sample = self.ref.rest_sample = self.rest_sample = True
+        self.t0 = self.out.info.t0 - 1.0 / self.rate
+        return True
+
+    def prepend_output_rest_sample(self, leaves_rest: Any) -> bool:
+        """At-rest convention without a reference: an output that leaves the at-rest level
+        from its first sample (``leaves_rest(first block)``, see
+        :func:`simwave.measure.stages.output_aligned.leaves_rest`) answers a step at the
+        first sample; one sample of 0 is put before it, as :meth:`prepend_rest_sample`
+        does with a reference. Returns whether it was."""
+        if self.ref is not None:
+            return False
+        head = self.out.head()
+        if head is None or not leaves_rest(head):
+            return False
+        self.out.rest_sample = self.rest_sample = True
         self.t0 = self.out.info.t0 - 1.0 / self.rate
         return True
 

@@ -73,7 +73,12 @@ def run(w: Work) -> None:
 def auto_kind(w: Work, ch: Channel, is_reference: bool) -> str:
     if ch.constant:
         return "constant"
-    if ch.two_state_fraction >= TWO_STATE_FRACTION or ch.established or ch.multilevel:
+    if (
+        ch.two_state_fraction >= TWO_STATE_FRACTION
+        or ch.established
+        or ch.multilevel
+        or ch.own_levels
+    ):
         return "transitions"
     y = ch.fit_window
     if y.size >= MIN_WINDOW and np.ptp(y) > 0:

@@ -25,7 +25,7 @@ import numpy as np
 from simwave.measure import levels as lv
 from simwave.measure import plateaus as pl
 from simwave.measure import segments as seg
-from simwave.measure.stages import work
+from simwave.measure.stages import output_aligned, work
 from simwave.measure.stages.work import Channel, Work
 from simwave.measure.transient import EdgeFinder
 
@@ -45,6 +45,7 @@ def run(w: Work) -> None:
     output_staircases(w, two_levels=False, found=plateaus)
     levels_from_output_intervals(w)
     output_staircases(w, two_levels=True, found=plateaus)
+    output_aligned.own_intervals(w)
 
 
 def pass_levels(w: Work) -> None:
@@ -112,6 +113,7 @@ def output_staircases(w: Work, two_levels: bool, found: dict | None = None) -> N
         sc = (found or {}).get(c)
         if sc is None:
             sc = pl.held_plateaus(pl.find_plateaus(ch.windows, w.n, rest_first=w.rest_sample))
+            sc = output_aligned.own_plateaus(w, sc, ch.windows)  # starts or ends moving
             if found is not None:
                 found[c] = sc
         if not sc.usable(pl.MIN_COVER_OUTPUT):

@@ -104,6 +104,10 @@ class Channel:
     # own state intervals: a two-state waveform even when ringing keeps most of its
     # samples away from the levels
     established: bool = False
+    # without a reference: a two-level output whose levels neither the histogram nor its
+    # state intervals establish, measured transition by transition on the levels of the
+    # segments beside each (:mod:`.output_aligned`), each level marked as far as it is known
+    own_levels: bool = False
     # input-aligned: the output's response onset delay (samples) the segments were cut with;
     # None when no transition starts from a settled segment (cut where the input moves)
     onset_delay: int | None = None
@@ -149,6 +153,9 @@ class Work:
         self.rate, self.t0 = src.rate, src.t0
         self.notes: list[str] = []
         self.rest_sample = False  # one sample of 0 put before the record (at-rest convention)
+        # ... without a reference, because the output leaves 0 from its first sample: the
+        # segment before its first transition is the departure from rest (level 0)
+        self.rest_output = False
         self.n = 0
         self.outs: list[Channel] = []
         self.refs: list[Channel] = []
@@ -263,11 +270,76 @@ def decide(w: Work, segs: list, ch: Channel, strict: bool = True) -> None:
         other = i - 1 if i > 0 else i + 1
         away = int(np.sign(meds[i] - meds[other])) if 0 <= other < len(segs) else 0
         s.decide(max(amps + [floor]), w.o.settling_band_pct, away, strict=strict)
-        if w.rest_sample and s.start == 0 and s.length < seg.MIN_END_WINDOW:
+        first = w.rest_sample and s.start == 0
+        if first and (s.length < seg.MIN_END_WINDOW or w.rest_output):
             # the segment before a step at the first sample: only the sample of 0 put
-            # before the record (and the output's first answer-free samples); its level
-            # is the at-rest convention's 0
+            # before the record (and the output's first answer-free samples; without a
+            # reference, the output's departure from rest); its level is the at-rest
+            # convention's 0
             s.level, s.method, s.settled, s.note = 0.0, seg.METHOD_REST, True, None
+    if not w.refs and len(segs) >= 2 and segs[-1].end >= w.n - 1:
+        last_too_short(w, segs, ch)
+    if not w.refs:
+        for s in segs:
+            if s.method == seg.METHOD_APPROACHING:
+                not_a_bound(s)
+
+
+#: Without a reference input, the record's last segment counts as settled only when the
+#: output has stayed within the band around its end level for at least this many times the
+#: stretch of transition left out before the segment (about one to one and a half times
+#: the transition's 10-90 % time, with the leads the cuts use): an output at a slow peak
+#: of its ringing, or nearly at the end of a slow approach, when the record ends looks flat
+#: for a moment (our choice; a settled record holds its level far longer).
+LAST_DWELL_GAPS = 1.5
+
+
+def not_a_bound(s: seg.Segment) -> None:
+    """Without a reference input, a segment end still moving on without turning back
+    gives no bound on its level: a first-order lag would stop short of where it goes,
+    but an underdamped output between reaching its final level and its first peak moves
+    the same way and has already passed it; the output alone does not tell them apart.
+    The level is not established (its last value stays in the level detail)."""
+    s.method = seg.METHOD_UNSETTLED
+    s.note = (
+        f"still moving on at the end of the segment without turning back (last value "
+        f"{s.end_value:.6g}): without the input, a lag that stops farther on cannot be told "
+        "from ringing that has already passed its final level, so the level is not known"
+    )
+
+
+def last_too_short(w: Work, segs: list, ch: Channel) -> None:
+    """The record's last segment, judged settled at its end, has not been in the band for
+    long enough (``LAST_DWELL_GAPS``) to tell a settled level from a turn of slow ringing
+    or the end of a slow approach: it is not settled; its level is extrapolated from its
+    ringing, taken as still approaching (the last value), or not established."""
+    s, before = segs[-1], segs[-2]
+    if s.method != seg.METHOD_END or not s.quarters:
+        return
+    gap = s.start - before.end - 1
+    amp = abs(s.level - before.level)
+    within = w.o.settling_band_pct / 100.0 * amp + s.allowance + 4.0 * s.scatter
+    held = s.dwell(within)
+    if held >= LAST_DWELL_GAPS * gap:
+        return
+    s.settled = False
+    why = (
+        f"the record ends {held} samples after the output came within the band around "
+        f"its end level, less than {LAST_DWELL_GAPS:g} times the {gap} samples of the "
+        "transition before it: too short to tell a settled level from a slow turn or the "
+        "end of a slow approach"
+    )
+    away = int(np.sign(s.median - before.level))
+    q = np.asarray(s.quarters)
+    if s.extrapolated is not None:
+        s.level, s.method = s.extrapolated, seg.METHOD_EXTRAPOLATED
+        s.note = f"{why}; level extrapolated from the turning points of its ringing"
+    elif away and s.turning_points == 0 and np.all(away * np.diff(q) >= 0):
+        s.level, s.method = s.end_value, seg.METHOD_APPROACHING
+        s.note = f"{why}; still approaching: the level is its last value (a bound)"
+    else:
+        s.level, s.method = s.median, seg.METHOD_UNSETTLED
+        s.note = why
 
 
 def method_text(m_low: str | None, m_high: str | None, basis: str) -> str:
