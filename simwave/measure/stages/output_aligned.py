@@ -21,6 +21,8 @@ transition). Next: :mod:`.transition_metrics`.
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from simwave.measure import levels as lv
@@ -82,8 +84,9 @@ def _first_run(mask: np.ndarray, run: int = REST_RUN) -> int | None:
 def leaves_rest(head: np.ndarray) -> bool:
     """Whether an output (its first block, ``(n, channels)``) leaves the at-rest level 0
     from its first sample: the first sample lies near 0 (``REST_NEAR``) and the output
-    moves away at once, not after a stretch at rest (``REST_DEPART``, ``REST_GROWTH``), in
-    at least one channel and with no channel starting away from 0. Such an output answers
+    moves away at once, not after a stretch at rest (``REST_DEPART``, ``REST_GROWTH``),
+    without swinging back across 0 (a sine does), in at least one channel and with no
+    channel starting away from 0. Such an output answers
     a step at the first sample (the at-rest convention: the system was at rest, its output
     0, before the record)."""
     leaves = False
@@ -107,20 +110,26 @@ def leaves_rest(head: np.ndarray) -> bool:
         # band's edge and come back; the response does not)
         inside = np.flatnonzero(y[:k4] <= thr)
         k1 = int(inside[-1]) + 1 if inside.size else 0
-        if k4 - k1 >= REST_GROWTH * k1:
+        # a step response from rest stays on the side it left 0 to (ringing about its
+        # final level does not reach back across 0); a sine or tones swing to the other
+        sign = np.sign(head[k4, c])
+        across = float(np.max(-sign * head[:, c]))
+        if k4 - k1 >= REST_GROWTH * k1 and across <= REST_NEAR * top:
             leaves = True
     return leaves
 
 
-def own_plateaus(w: Work, sc: pl.Staircase, stats: pl.WindowStats) -> pl.Staircase:
+def own_plateaus(w: Work, ch, sc: pl.Staircase, stats: pl.WindowStats) -> pl.Staircase:
     """An output's plateaus without a reference, adjusted where the record starts or ends
     in a transition: an output that leaves rest at its first sample (``w.rest_output``)
     holds no state near 0 but the at-rest one, so a first plateau near 0 (within
     ``REST_NEAR`` of its range) is the slow start of its departure: the at-rest state
     (one sample of 0) replaces it; plateaus that touch each other at the record's end are
-    a slow approach still going on when the record ends, one state; and a record cut
+    a slow approach still going on when the record ends, one state, not settled
+    (``ch.tail_moving``: :func:`~.work.held_too_briefly` says so); and a record cut
     short in a transition gets its last state (:func:`trailing_state`)."""
     ps = list(sc.plateaus)
+    tail_moving = False
     means, mins, maxs = stats.arrays()
     rng = float(maxs.max() - mins.min()) if means.size else 0.0
     changed = False
@@ -128,16 +137,20 @@ def own_plateaus(w: Work, sc: pl.Staircase, stats: pl.WindowStats) -> pl.Stairca
         if abs(ps[0].level) <= REST_NEAR * rng:
             ps[0] = pl.Plateau(0, 0, 0.0, 0, 0.0)
             changed = True
+    if w.rest_output and (not ps or ps[0].start > 1):
+        ps.insert(0, pl.Plateau(0, 0, 0.0, 0, 0.0))  # the state it leaves at sample 0
+        changed = True
     at_end = sc.n - 1 - stats.size  # the last partial window is in no plateau
     while len(ps) >= 3 and ps[-1].end >= at_end and ps[-1].start <= ps[-2].end + 1:
         q, p = ps[-2], ps[-1]
         spread = max(q.spread, p.spread)
         ps[-2:] = [pl.Plateau(q.start, p.end, p.level, q.windows + p.windows, spread)]
-        changed = True
+        changed = tail_moving = True
     if changed:
         out = pl.Staircase(ps, sc.disturbance_pp, sc.window, sc.n)
         out._range_floor = sc._range_floor
         sc = out
+    ch.tail_moving = tail_moving
     return trailing_state(sc, stats)
 
 
@@ -164,6 +177,18 @@ def trailing_state(sc: pl.Staircase, stats: pl.WindowStats) -> pl.Staircase:
     out = pl.Staircase(sc.plateaus + [end], sc.disturbance_pp, sc.window, sc.n)
     out._range_floor = sc._range_floor
     return out
+
+
+def own_segments(edges: list, n: int) -> list:
+    """Segments between transitions found on 25/75 % levels, each ending ``OWN_LEAD``
+    times the next transition's 25-75 % time before it, but never losing more than half
+    of its length to that (a first-order lag needs far less lead than a slow second-order
+    start, and a short state keeps its end window)."""
+    segs = seg.segments_between(edges, n, 0.0)
+    for s, e in zip(segs, edges, strict=False):
+        early = min(math.ceil(OWN_LEAD * max(int(e.j) - int(e.k_start), 0)), s.length // 2)
+        s.end = max(s.start, s.end - early)
+    return segs
 
 
 def own_intervals(w: Work) -> None:
@@ -196,11 +221,7 @@ def own_intervals(w: Work) -> None:
         for c, ch in cands.items()
     }
     edges = work.find_edges(w, refs, OWN_MAX_CUTS + 1)
-    segs = {
-        c: seg.segments_between(e, w.n, OWN_LEAD)
-        for c, e in edges.items()
-        if 0 < len(e) <= OWN_MAX_CUTS
-    }
+    segs = {c: own_segments(e, w.n) for c, e in edges.items() if 0 < len(e) <= OWN_MAX_CUTS}
     work.collect(w, segs)
     for c, ss in segs.items():
         ch = w.outs[c]
@@ -258,8 +279,10 @@ def run(w: Work) -> None:
         if ch.edges:
             cuts[c] = list(ch.edges)
             # own levels: cut at its 25/75 % transitions (OWN_LEAD), else at 10/90 %
-            lead = OWN_LEAD if ch.own_levels else OUTPUT_LEAD
-            todo[c] = seg.segments_between(cuts[c], w.n, lead)
+            if ch.own_levels:
+                todo[c] = own_segments(cuts[c], w.n)
+            else:
+                todo[c] = seg.segments_between(cuts[c], w.n, OUTPUT_LEAD)
     if not todo:
         return
     work.collect(w, todo)

@@ -113,7 +113,7 @@ def output_staircases(w: Work, two_levels: bool, found: dict | None = None) -> N
         sc = (found or {}).get(c)
         if sc is None:
             sc = pl.held_plateaus(pl.find_plateaus(ch.windows, w.n, rest_first=w.rest_sample))
-            sc = output_aligned.own_plateaus(w, sc, ch.windows)  # starts or ends moving
+            sc = output_aligned.own_plateaus(w, ch, sc, ch.windows)  # starts or ends moving
             if found is not None:
                 found[c] = sc
         if not sc.usable(pl.MIN_COVER_OUTPUT):

@@ -108,6 +108,9 @@ class Channel:
     # state intervals establish, measured transition by transition on the levels of the
     # segments beside each (:mod:`.output_aligned`), each level marked as far as it is known
     own_levels: bool = False
+    # without a reference: the plateaus at the record's end touch each other at moving
+    # levels (a slow approach or turn still going on when the record ends)
+    tail_moving: bool = False
     # input-aligned: the output's response onset delay (samples) the segments were cut with;
     # None when no transition starts from a settled segment (cut where the input moves)
     onset_delay: int | None = None
@@ -277,20 +280,22 @@ def decide(w: Work, segs: list, ch: Channel, strict: bool = True) -> None:
             # reference, the output's departure from rest); its level is the at-rest
             # convention's 0
             s.level, s.method, s.settled, s.note = 0.0, seg.METHOD_REST, True, None
-    if not w.refs and len(segs) >= 2 and segs[-1].end >= w.n - 1:
-        last_too_short(w, segs, ch)
+    if not w.refs:
+        for i in range(1, len(segs)):
+            held_too_briefly(w, segs, i, ch.tail_moving and i == len(segs) - 1)
     if not w.refs:
         for s in segs:
             if s.method == seg.METHOD_APPROACHING:
                 not_a_bound(s)
 
 
-#: Without a reference input, the record's last segment counts as settled only when the
+#: Without a reference input, a segment after a transition counts as settled only when the
 #: output has stayed within the band around its end level for at least this many times the
 #: stretch of transition left out before the segment (about one to one and a half times
 #: the transition's 10-90 % time, with the leads the cuts use): an output at a slow peak
-#: of its ringing, or nearly at the end of a slow approach, when the record ends looks flat
-#: for a moment (our choice; a settled record holds its level far longer).
+#: of its ringing, or nearly at the end of a slow approach, when the record ends (or the
+#: next transition comes) looks flat for a moment (our choice; a settled state is held far
+#: longer).
 LAST_DWELL_GAPS = 1.5
 
 
@@ -308,29 +313,48 @@ def not_a_bound(s: seg.Segment) -> None:
     )
 
 
-def last_too_short(w: Work, segs: list, ch: Channel) -> None:
-    """The record's last segment, judged settled at its end, has not been in the band for
-    long enough (``LAST_DWELL_GAPS``) to tell a settled level from a turn of slow ringing
-    or the end of a slow approach: it is not settled; its level is extrapolated from its
-    ringing, taken as still approaching (the last value), or not established."""
-    s, before = segs[-1], segs[-2]
+def held_too_briefly(w: Work, segs: list, i: int, moving: bool = False) -> None:
+    """Segment ``i``, judged settled at its end, has not been in the band for long enough
+    (``LAST_DWELL_GAPS``) to tell a settled level from a turn of slow ringing or the end of
+    a slow approach: it is not settled; its level is extrapolated from its ringing, taken
+    as still approaching (the last value), or not established."""
+    s, before = segs[i], segs[i - 1]
     if s.method != seg.METHOD_END or not s.quarters:
         return
     gap = s.start - before.end - 1
     amp = abs(s.level - before.level)
     within = w.o.settling_band_pct / 100.0 * amp + s.allowance + 4.0 * s.scatter
     held = s.dwell(within)
-    if held >= LAST_DWELL_GAPS * gap:
-        return
-    s.settled = False
-    why = (
-        f"the record ends {held} samples after the output came within the band around "
-        f"its end level, less than {LAST_DWELL_GAPS:g} times the {gap} samples of the "
-        "transition before it: too short to tell a settled level from a slow turn or the "
-        "end of a slow approach"
-    )
     away = int(np.sign(s.median - before.level))
     q = np.asarray(s.quarters)
+    # the end window's quarters still move on the way the transition went, by more than
+    # the band: noise may have let them pass the settled test, the trend does not
+    trend = bool(away) and bool(np.all(away * np.diff(q) > 0)) and (
+        away * (q[-1] - q[0]) > w.o.settling_band_pct / 100.0 * amp
+    )
+    short = held < LAST_DWELL_GAPS * gap
+    if not (short or trend or moving):
+        return
+    s.settled = False
+    where = "the record ends" if s.end >= w.n - 1 else "the segment ends"
+    if short:
+        why = (
+            f"{where} {held} samples after the output came within the band around "
+            f"its end level, less than {LAST_DWELL_GAPS:g} times the {gap} samples of the "
+            "transition before it: too short to tell a settled level from a slow turn or "
+            "the end of a slow approach"
+        )
+    elif trend:
+        why = (
+            "the medians of its end window's quarters still move on the way the transition "
+            "went, by more than the band: the noise let it pass the settled test, its trend "
+            "does not"
+        )
+    else:
+        why = (
+            "the window plateaus at the end of the record touch each other at levels still "
+            "moving: a slow approach or turn goes on when the record ends"
+        )
     if s.extrapolated is not None:
         s.level, s.method = s.extrapolated, seg.METHOD_EXTRAPOLATED
         s.note = f"{why}; level extrapolated from the turning points of its ringing"
