@@ -171,3 +171,16 @@ def test_leaves_rest():
     hum = 0.03 * np.sin(2 * np.pi * k / 167.0)
     assert not leaves_rest((later + hum)[:, None])
     assert not leaves_rest((1.0 + growth)[:, None])  # starts away from 0
+
+
+def test_settled_state_longer_than_the_samples_held():
+    # a first-order lag from rest (tau 50 ms, 1 - exp(-t / tau), common practice) held for
+    # 2 s: its state segment is longer than the samples a segment keeps
+    # (max_window_samples), which must not make it look like a turn of slow ringing
+    k = np.arange(20_000)
+    y = 1 - np.exp(-k / RATE / 0.05) + 1e-4 * np.random.default_rng(3).standard_normal(k.size)
+    d = simwave.measure(Waveform(y, RATE), max_window_samples=2000).to_dict()
+    row = _only_row(d)
+    assert row["initial_level"] == 0.0
+    assert row["final_level"] == pytest.approx(1.0, abs=1e-3)
+    assert row["rise_time_s"] == pytest.approx(0.05 * math.log(9), abs=2e-3)

@@ -212,9 +212,11 @@ class Segment:
         has been near its end level for less than ``DWELL_FRACTION`` of its length: the record
         ends at a turning point of slow ringing (flat for a moment, then swinging back), not
         at a settled level."""
-        # single samples stray from the end level by their noise (four robust deviations)
+        # single samples stray from the end level by their noise (four robust deviations);
+        # of a segment longer than the samples held (its last ``cap``), the held part
+        held = int(self.back_k[-1]) if len(self.back_k) else self.length
         if len(self.quarters) != 4 or self.dwell(near + 4.0 * self.scatter) >= (
-            DWELL_FRACTION * self.length
+            DWELL_FRACTION * min(self.length, held)
         ):
             return False
         q = np.asarray(self.quarters)
