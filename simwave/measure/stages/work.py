@@ -280,7 +280,8 @@ def decide(w: Work, segs: list, ch: Channel, strict: bool = True) -> None:
             # reference, the output's departure from rest); its level is the at-rest
             # convention's 0
             s.level, s.method, s.settled, s.note = 0.0, seg.METHOD_REST, True, None
-    if not w.refs:
+    if not w.refs and strict:
+        # (provisional levels, strict=False, are measured again: not judged so closely)
         for i in range(1, len(segs)):
             held_too_briefly(w, segs, i, ch.tail_moving and i == len(segs) - 1)
     if not w.refs:
