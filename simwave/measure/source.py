@@ -133,7 +133,10 @@ class _Stream:
     def head(self) -> np.ndarray | None:
         """The first block's samples (at most ``block_size`` rows) without consuming the
         stream; None when they are not at hand."""
-        data = self.memory if self.memory is not None else getattr(self.obj, "data", None)
+        if self.memory is not None:
+            data = self.memory[0] if isinstance(self.memory, list) else self.memory
+        else:
+            data = getattr(self.obj, "data", None)
         if data is None and self._pending is not None:
             data = self._pending[0][0]
         if data is None:
