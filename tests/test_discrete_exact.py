@@ -18,7 +18,6 @@ analog samples to within float64 round-off grown over long records).
 
 from __future__ import annotations
 
-import warnings
 
 import mpmath as mp
 import numpy as np
@@ -27,9 +26,9 @@ import scipy.signal as sig
 import sympy as sp
 
 from simwave import System
-from simwave.discrete import ModelWarning, discretize
 from simwave.discrete.realization import exp_increment
 
+from discrete_helpers import butter, quiet
 from exact_reference import (
     as_mp,
     impulse_response,
@@ -40,16 +39,6 @@ from exact_reference import (
 )
 
 TARGET = 1e-10
-
-
-def quiet(*args, **kw):
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", ModelWarning)
-        return discretize(*args, **kw)
-
-
-def butter(n: int, fc: float):
-    return sig.butter(n, 2 * np.pi * fc, analog=True, output="zpk")
 
 
 def spread(taus):

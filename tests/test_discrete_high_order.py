@@ -27,31 +27,20 @@ Target: 1e-10 of the peak, the project's exactness target.
 from __future__ import annotations
 
 import functools
-import warnings
 
 import numpy as np
 import pytest
 import scipy.signal as sig
 
 from simwave import System
-from simwave.discrete import ModelWarning, discretize
 from simwave.discrete.filter import RESPONSE_LIMIT
 
+from discrete_helpers import butter, quiet
 from exact_reference import impulse_response, sample_indices, step_response
 
 TARGET = 1e-10
 HOLD_METHODS = ("impulse-invariant", "step-invariant", "ramp-invariant")
 ORDERS = (12, 14, 16, 20)
-
-
-def quiet(*args, **kw):
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", ModelWarning)
-        return discretize(*args, **kw)
-
-
-def butter(n: int, fc: float):
-    return sig.butter(n, 2 * np.pi * fc, analog=True, output="zpk")
 
 
 def periods(order: int) -> float:
