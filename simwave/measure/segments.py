@@ -352,6 +352,52 @@ def _refined_extreme(d: np.ndarray, k: int, q: int, sign: int) -> float:
             break
     return float(np.polynomial.polynomial.polyval(xv, c))
 
+#: Samples per piece searched for a segment's first arrival at its end level (it comes
+#: within the transition, near the segment's start, as a rule).
+ARRIVAL_PIECE = 4096
+
+
+def _first_arrival(d: np.ndarray) -> int:
+    """Index of the first sample of ``d`` (``d[0] != 0``) at or across 0 from ``d[0]``'s
+    side (``sign(d[0]) * d <= 0``), or -1: searched piece by piece, so that the usual
+    early arrival costs no pass over the whole segment."""
+    above = d[0] > 0
+    piece = ARRIVAL_PIECE
+    for a in range(0, d.size, piece):
+        part = d[a : a + piece]
+        hit = part <= 0 if above else part >= 0
+        k = int(hit.argmax())
+        if hit[k]:
+            return a + k
+    return -1
+
+
+def _sign_runs(d: np.ndarray, h: float) -> tuple[np.ndarray, np.ndarray]:
+    """Starts and signs of the runs of ``d`` beyond ``+-h``, samples within it skipped:
+    a run starts at each sample beyond the band whose last sample beyond it lay on the
+    other side (or that is the first beyond it). Empty arrays when no sample is beyond.
+
+    Found from the runs of equal state (+1, 0, -1; int8) rather than from the index of
+    every sample beyond the band: a run of a sign starts where a run of equal state
+    starts, so the starts of the equal-state runs holding +-1 whose state differs from
+    the one before them are the same indices, far fewer to handle.
+    """
+    state = (d > h).view(np.int8) - (d < -h).view(np.int8)
+    if state.size == 0:
+        return np.empty(0, np.int64), np.empty(0, np.int8)
+    idx = np.flatnonzero(state[1:] != state[:-1])
+    idx += 1
+    idx = np.concatenate(([0], idx))
+    v = state[idx]
+    held = v != 0
+    idx, v = idx[held], v[held]
+    if idx.size == 0:
+        return idx, v
+    first = np.flatnonzero(v[1:] != v[:-1])
+    first += 1
+    first = np.concatenate(([0], first))
+    return idx[first], v[first]
+
 
 def turning_point_level(
     y: np.ndarray, level0: float, noise: float
@@ -389,19 +435,16 @@ def turning_point_level(
     if d.size < 5:
         return None, 0, None, "segment too short"
     if d[0] != 0:
-        arrive = np.flatnonzero(np.sign(d[0]) * d <= 0)
-        if arrive.size == 0:
+        arrive = _first_arrival(d)
+        if arrive < 0:
             return None, 0, None, "it never reaches its end level (no ringing about it)"
-        d = d[int(arrive[0]) :]
-    scale = float(np.max(np.abs(d))) if d.size else 0.0
+        d = d[arrive:]
+    # the largest |d| without an |d| array: max(max d, -min d), the same value
+    scale = max(abs(float(d.max())), abs(float(d.min()))) if d.size else 0.0
     h = max(NOISE_HYSTERESIS * noise, 1e-9 * scale)
-    state = np.where(d > h, 1, np.where(d < -h, -1, 0))
-    nz = np.flatnonzero(state)
-    if nz.size == 0:
+    starts, signs = _sign_runs(d, h)
+    if starts.size == 0:
         return None, 0, None, "no ringing above the noise"
-    sv = state[nz]
-    first = np.concatenate(([0], np.flatnonzero(sv[1:] != sv[:-1]) + 1))
-    starts, signs = nz[first], sv[first]
     closed = starts.size - 1  # the last run is still open at the segment's end
     if closed >= 3:
         # extremes of the last three closed runs: a swing cut short is no swing of the
@@ -458,7 +501,9 @@ def analyse_segment(seg: Segment, y: np.ndarray, first: int, fraction: float) ->
         # running maximum of |y - median| from the end back, read at k only: the largest of
         # each stretch up to the next k, then a running maximum of those (a max is exact,
         # so the same values as the running maximum over every sample, at a quarter the cost)
-        dev_back = np.abs(y[::-1] - seg.median)
+        # (one temporary, made absolute in place: the same values as np.abs(y - median))
+        dev_back = np.subtract(y[::-1], seg.median)
+        np.abs(dev_back, out=dev_back)
         stretch = np.maximum.reduceat(dev_back, starts)
         seg.back_k, seg.back_dev = k + 1, np.maximum.accumulate(stretch)
     if w_len >= MIN_END_WINDOW:
