@@ -526,8 +526,14 @@ def simulate(
         pieces: list[np.ndarray] = []
         if output is not None and src.n_samples:
             _check_room(output, src, factor, write_options, include_input)
+        # A short file kept for measuring is read, filtered and written as one block (see
+        # _Sink: the same output and report as block by block, without the copies into the
+        # kept arrays or the pipeline threads, whose overlap a batch's workers do not need)
+        whole = (_keep is not None and output is not None and _keepable(src)
+                 and src.waveform is None and factor == 1)
         sink = _Sink(output, src, provenance, write_options, include_input, keep_going, meter,
-                     pieces, block_size)
+                     pieces, max(block_size, src.n_samples) if whole else block_size,
+                     meter_block=block_size if whole else None)
         kept_in: _Kept | None = None
         if _keep is not None and output is not None and _keepable(src):
             kept_in = _Kept(src.n_samples, src.n_channels)
@@ -550,6 +556,8 @@ def simulate(
         # does a file of one block (see _Sink).
         if src.waveform is not None:  # already in memory: one block, no copies
             blocks_in = src.make_blocks(max(1, src.waveform.n_samples))
+        elif whole:
+            blocks_in = src.make_blocks(max(1, src.n_samples))
         elif sink.overlap:
             blocks_in = read_ahead(src.make_blocks(block_size))
         else:
@@ -670,8 +678,12 @@ class _Sink:
     """Where output blocks go: checks, level meter, then a file writer (behind) or memory."""
 
     def __init__(self, output, src, provenance, write_options, include_input, keep_going, meter,
-                 pieces, block_size: int = DEFAULT_BLOCK) -> None:
+                 pieces, block_size: int = DEFAULT_BLOCK, meter_block: int | None = None
+                 ) -> None:
         self.src = src
+        # The level meter's RMS sums block by block (its rounding depends on the split):
+        # a run that takes a file as one block meters it in the usual blocks' pieces
+        self.meter_block = meter_block
         self.keep_going = keep_going
         self.meter = meter
         self.pieces = pieces
@@ -706,9 +718,14 @@ class _Sink:
             self.kept.add(out)
         # The meter's extremes are NaN or infinite exactly when some sample is, so the
         # search for the first bad sample runs only then (a pass over the block saved).
-        if not self.meter.add(out) and not self.keep_going:
-            _check_finite(out, self.done, self.src.rate, self.src.t0,
-                          inp if inp is not None and inp.shape[0] == out.shape[0] else None)
+        step = self.meter_block or out.shape[0]
+        aligned = inp is not None and inp.shape[0] == out.shape[0]
+        for a in range(0, out.shape[0], step):
+            piece = out[a:a + step] if step < out.shape[0] else out
+            if not self.meter.add(piece) and not self.keep_going:
+                _check_finite(piece, self.done + a, self.src.rate, self.src.t0,
+                              (inp[a:a + step] if step < out.shape[0] else inp)
+                              if aligned else None)
         if self._behind is None:
             self.pieces.append(out)
         elif self.include_input:

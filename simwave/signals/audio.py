@@ -111,6 +111,8 @@ class AudioSource:
     def __init__(self, path: str, *, full_scale: Any = None, offset: Any = None,
                  units: str | None = None, rate: float | None = None) -> None:
         self.path = path
+        #: frames per read; a reader that wants the file in one block may raise it
+        self.read_chunk = READ_CHUNK
         try:
             self.f = sf.SoundFile(path)
         except (sf.LibsndfileError, RuntimeError, TypeError) as exc:
@@ -184,9 +186,12 @@ class AudioSource:
             except (sf.LibsndfileError, RuntimeError, TypeError) as exc:
                 raise _open_error(self.path, exc) from None
         self._started = True
+        # a mono file's one column needs no copy (with more channels the selecting copy's
+        # layout, channel-major, is what later sums per channel have always run on)
+        every = self.f.channels == 1 and list(select) == [0]
         while True:
             try:
-                data = self.f.read(READ_CHUNK, dtype="float64", always_2d=True)
+                data = self.f.read(self.read_chunk, dtype="float64", always_2d=True)
             except (sf.LibsndfileError, RuntimeError) as exc:
                 raise WaveformError(
                     f"{self.path}, sample {got}: cannot decode audio ({exc})") from None
@@ -194,7 +199,8 @@ class AudioSource:
                 break
             if self.scale is not None:
                 data = data * self.scale + self.offset
-            yield Rows(data[:, select], None, sample_places(got, self.rate, self.t0))
+            yield Rows(data if every else data[:, select], None,
+                       sample_places(got, self.rate, self.t0))
             got += data.shape[0]
         if got < self.n_samples:
             raise WaveformError(
@@ -407,7 +413,7 @@ class AudioSink:
             x.astype(np.float64).tofile(self.spool)
             self.count += x.shape[0]
             return
-        self._encode(x)
+        self._encode(x, peak)
         self.count += x.shape[0]
 
     def _normalizing_gain(self, peak: float) -> float:
@@ -417,10 +423,13 @@ class AudioSink:
             return 1.0
         return self.normalize_to / peak
 
-    def _encode(self, x: np.ndarray) -> None:
+    def _encode(self, x: np.ndarray, peak: float | None = None) -> None:
+        # ``peak``: the block's largest |x| when known; within the limit (and no gain), no
+        # sample is beyond it, and the search for one (a pass and a mask) is left out
+        within = self.gain == 1.0 and peak is not None and peak <= self.limit
         if self.gain != 1.0:
             x = x * self.gain
-        if math.isfinite(self.limit):
+        if not within and math.isfinite(self.limit):
             over = np.abs(x) > self.limit
             if over.any():
                 if self.on_clip == "error":

@@ -299,6 +299,10 @@ class OpenedAudio:
         pipe, self._pipe = self._pipe, None
         if pipe is None:
             pipe = _Pipeline(self.path, self.opts)
+        if int(size) > getattr(pipe.src, "read_chunk", int(size)):
+            # blocks longer than the reader's reads: read them whole (one array each, not
+            # pieces joined into a copy; the same samples)
+            pipe.src.read_chunk = int(size)
         with closing(pipe):
             yield from rechunk(pipe.arrays(), int(size))
             pipe.report()

@@ -232,11 +232,13 @@ class GapFiller:
         data = join_rows(self.pending, rows)
         self.pending = None
         v = data.values
-        finite = np.isfinite(v)
-        if finite.all():
+        # all finite exactly when the smallest and largest are (numpy's min and max are
+        # NaN when any value is): two reductions instead of a mask of the whole block
+        if v.size == 0 or (math.isfinite(v.min()) and math.isfinite(v.max())):
             if len(data):
                 self.prev_row = v[-1].copy()
             return data
+        finite = np.isfinite(v)
         if self.max_gap <= 0:
             i, c = np.argwhere(~finite)[0]
             raise self._error(data, int(i), int(c),
