@@ -213,3 +213,73 @@ def test_tidy_roots_pairs_as_before_with_ties_and_nan():
         if t % 37 == 0:
             r = np.concatenate([r, r])
         assert _same_bits(tidy_roots(r), reference(r))
+
+
+def test_small_linear_algebra_helpers_equal_numpys():
+    """solve / eigvals_stack call numpy's own kernels without the wrappers: same bits,
+    same LinAlgError for a singular matrix."""
+    from simwave.discrete.realization import eigvals_stack, solve
+
+    rng = np.random.default_rng(11)
+    for t in range(400):
+        n = int(rng.integers(1, 12))
+        a = rng.standard_normal((n, n)) * 10 ** rng.uniform(-6, 6)
+        b = rng.standard_normal(n)
+        assert _same_bits(solve(a, b), np.linalg.solve(a, b))
+        assert _same_bits(solve(a.T, b), np.linalg.solve(a.T, b))
+        ac = a + 1j * rng.standard_normal((n, n))
+        pts = rng.standard_normal(9) + 1j * rng.standard_normal(9)
+        mats = pts[:, None, None] * np.eye(n)[None] - a[None]
+        rhs = np.broadcast_to(b[:, None].astype(np.complex128), (9, n, 1))
+        assert _same_bits(solve(mats, rhs), np.linalg.solve(mats, rhs))
+        assert _same_bits(solve(ac, b), np.linalg.solve(ac, b))
+        stack = rng.standard_normal((int(rng.integers(1, 6)), 2, 2)) * 10 ** rng.uniform(-5, 5)
+        if t % 4 == 0:
+            stack[:, 1, 1] = 0.0
+            stack[:, 1, 0] = 1.0
+        want = np.asarray(np.linalg.eigvals(stack), dtype=np.complex128)
+        assert _same_bits(eigvals_stack(stack), want)
+    with pytest.raises(np.linalg.LinAlgError):
+        solve(np.zeros((3, 3)), np.ones(3))
+    with pytest.raises(np.linalg.LinAlgError):
+        eigvals_stack(np.full((1, 2, 2), np.nan))
+
+
+def test_python_complex_products_and_roots_keep_numpys_bits():
+    """_prod (np.prod of a list of complex), tidy_roots at extreme sizes, and the pairing of
+    sections (Python complex magnitudes) against numpy's scalars."""
+    from simwave.discrete.filter import _pair_zpk
+    from simwave.discrete.realization import _prod, magnitude, tidy_roots
+
+    rng = np.random.default_rng(12)
+    with np.errstate(all="ignore"):
+        for _ in range(20000):
+            v = [complex(*(rng.standard_normal(2) * 10 ** rng.uniform(-160, 160, 2)))
+                 for _ in range(int(rng.integers(1, 4)))]
+            assert _same_bits(_prod(v), np.prod(v))
+    big = [1e300, 1e301, 1e308, np.inf, -np.inf]
+    for x in big:
+        r = np.array([complex(x, 1.0), complex(x, -1.0), complex(1.0, x), complex(1.0, -x)])
+        with np.errstate(all="ignore"):
+            got = tidy_roots(r)
+            rest, want = list(r), []
+            while rest:  # the numpy-scalar form, inline
+                q = rest.pop(0)
+                if abs(q.imag) <= 1e-9 * max(abs(q), 1e-300) or not rest:
+                    want.append(complex(q.real, 0.0))
+                    continue
+                d = [abs(c - np.conj(q)) for c in rest]
+                partner = rest.pop(int(np.argmin(d)))
+                mean = 0.5 * (q + np.conj(partner))
+                want.extend([mean, np.conj(mean)])
+        assert _same_bits(got, np.array(want, dtype=np.complex128))
+    # the pairing's magnitudes (Python complex) against numpy's complex128 scalars
+    vals = [complex(*(rng.standard_normal(2) * 10 ** rng.uniform(-300, 300, 2)))
+            for _ in range(20000)]
+    vals += [complex(a, b) for a in big + [0.0, -0.0, np.nan] for b in big + [0.0, np.nan]]
+    with np.errstate(all="ignore"):
+        assert all(_same_bits(magnitude(v), abs(np.complex128(v))) for v in vals)
+    for t in range(200):  # and the sections still pair as zpk2sos for these low-passes
+        z, p, k = sig.butter(int(rng.integers(2, 10)) // 2 * 2, rng.uniform(0.01, 0.9),
+                             output="zpk")
+        assert _same_bits(_pair_zpk(z, p, k), sig.zpk2sos(z, p, k, pairing="nearest"))

@@ -50,6 +50,24 @@ _WIDTHS = (-4.0, -2.0, -1.0, -0.5, -0.25, 0.0, 0.25, 0.5, 1.0, 2.0, 4.0)
 _WIDTHS_ARRAY = np.array(_WIDTHS)
 
 
+#: Log grids made by check_frequencies, by (lo, hi, n): the default run's low edge is
+#: 1e-4 of the rate for most systems, so a new system at a rate seen before reuses its grid.
+_LOG_GRIDS: dict[tuple[float, float, int], np.ndarray] = {}
+
+
+def _log_grid(lo: float, hi: float, n: int) -> np.ndarray:
+    """``np.geomspace(lo, hi, n)``, made once per value of (lo, hi, n) (read-only)."""
+    key = (float(lo), float(hi), int(n))
+    grid = _LOG_GRIDS.get(key)
+    if grid is None:
+        grid = np.geomspace(lo, hi, n)
+        grid.flags.writeable = False
+        if len(_LOG_GRIDS) >= 64:
+            _LOG_GRIDS.clear()
+        _LOG_GRIDS[key] = grid
+    return grid
+
+
 def check_frequencies(system, rate: float, lo: float, hi: float, discrete_poles=None,
                       n_log: int = 96) -> np.ndarray:
     """Frequencies (Hz) that cannot step over a narrow resonance, within [lo, hi].
@@ -62,7 +80,7 @@ def check_frequencies(system, rate: float, lo: float, hi: float, discrete_poles=
     centre theta/(2 pi T), half-width about (1 - r)/(2 pi T)), which is where a method
     that moves a resonance puts it.
     """
-    pts = [np.geomspace(lo, hi, n_log)]
+    pts = [_log_grid(lo, hi, n_log)]
     roots = np.concatenate([np.atleast_1d(system.poles), np.atleast_1d(system.zeros)])
     # every root at once: the same elementwise operations as one root at a time (|r| by
     # the scalar abs: numpy's array abs of complex128 can differ from it in the last bit)
@@ -76,13 +94,16 @@ def check_frequencies(system, rate: float, lo: float, hi: float, discrete_poles=
         pts.append(fn[:, None] * (1.0 + _WIDTHS_ARRAY[None, :] * np.maximum(zeta, 1e-12)[:, None]))
         pts.append(np.abs(roots.imag) / (2 * math.pi))
     if discrete_poles is not None:
+        centre, half_width = [], []
         for q in np.atleast_1d(discrete_poles):
             rad = abs(q)
             if rad == 0 or q.imag < 0:
                 continue
-            fc = math.atan2(q.imag, q.real) * rate / (2 * math.pi)
-            half = max(abs(1.0 - rad), 1e-15) * rate / (2 * math.pi)
-            pts.append(fc + np.array(_WIDTHS) * half)
+            centre.append(math.atan2(q.imag, q.real) * rate / (2 * math.pi))
+            half_width.append(max(abs(1.0 - rad), 1e-15) * rate / (2 * math.pi))
+        if centre:  # fc + widths * half for every pole at once: the same products and sums
+            pts.append(np.array(centre)[:, None]
+                       + _WIDTHS_ARRAY[None, :] * np.array(half_width)[:, None])
     f = np.concatenate([np.ravel(p) for p in pts])
     return np.unique(f[(f >= lo) & (f <= hi)])
 

@@ -54,7 +54,14 @@ from simwave.discrete.incremental import (
     section_response_difference,
     section_round_off,
 )
-from simwave.discrete.realization import exp_increment, expm, increment_response, poly_real
+from simwave.discrete.realization import (
+    exp_increment,
+    expm,
+    increment_response,
+    magnitude,
+    poly_real,
+    solve,
+)
 from simwave.errors import DiscretizationError
 
 __all__ = ["DiscreteSystem", "FilterState", "INITIAL_MODES", "run_sections"]
@@ -253,13 +260,16 @@ def _pair_zpk(z: np.ndarray, p: np.ndarray, k: float) -> np.ndarray:
     tol = 1e-12
 
     def split(roots: np.ndarray) -> tuple[list[complex], list[float]]:
-        upper = [complex(x) for x in roots if x.imag > tol * max(1.0, abs(x))]
-        reals = [float(x.real) for x in roots if abs(x.imag) <= tol * max(1.0, abs(x))]
+        # Python complex numbers: |x| is hypot(re, im) as for numpy's scalars (inf where
+        # that overflows, see magnitude)
+        vals = roots.tolist()
+        upper = [x for x in vals if x.imag > tol * max(1.0, magnitude(x))]
+        reals = [x.real for x in vals if abs(x.imag) <= tol * max(1.0, magnitude(x))]
         return upper, reals
 
     p_up, p_re = split(p)
     z_up, z_re = split(z)
-    dist = lambda x: abs(1.0 - abs(x))  # noqa: E731 - closeness to the unit circle
+    dist = lambda x: abs(1.0 - magnitude(x))  # noqa: E731 - closeness to the unit circle
     p_re.sort(key=dist)
     groups: list[list[complex]] = [[q, q.conjugate()] for q in p_up]
     singles: list[list[complex]] = []
@@ -290,14 +300,15 @@ def _pair_zpk(z: np.ndarray, p: np.ndarray, k: float) -> np.ndarray:
             assigned[n] = [first, take_real(g[1])]
     # output order: poles farthest from the unit circle first, closest last
     idx = sorted(range(len(order)), key=lambda n: -min(dist(x) for x in order[n][1]))
-    rows = []
-    for n in idx:
+    sos = np.zeros((len(idx), 6))
+    for row, n in zip(sos, idx, strict=True):
         b = poly_real(assigned[n])
         a = poly_real(order[n][1])
-        rows.append(np.concatenate([b, np.zeros(3 - b.size), a, np.zeros(3 - a.size)]))
-    sos = np.array(rows, dtype=np.float64)
+        row[: b.size] = b  # shorter polynomials are padded with zeros at the end
+        row[3 : 3 + a.size] = a
     sos[0, :3] *= k
     return sos
+
 
 
 def _zpk_to_sos(zd: np.ndarray, pd: np.ndarray, kd: float) -> np.ndarray:
@@ -426,7 +437,6 @@ class DiscreteSystem:
                 f"unknown realization {wanted!r}; known: {', '.join(REALIZATIONS)}"
             )
         sec_level = section_round_off(self.sos)
-        inc_level = increment_round_off(self._inc.poles_increment()) if self._inc else None
         response = getattr(self._design, "response", None)
         diff = None
         if (wanted != "incremental" and response is not None and self._thiran_d is None
@@ -441,7 +451,9 @@ class DiscreteSystem:
                 raise DiscretizationError("this model has no incremental realization")
         self.realization = "incremental" if use_inc else "sections"
         sec_total = sec_level if diff is None else max(sec_level, diff)
-        self.round_off_level = float(inc_level if use_inc else sec_total)
+        # the incremental form's level only where it runs (it is not reported otherwise)
+        self.round_off_level = float(increment_round_off(self._inc.poles_increment())
+                                     if use_inc else sec_total)
         if wanted != "auto":
             why = f"as asked ({wanted})"
         elif use_inc and sec_level > SECTIONS_LIMIT:
@@ -654,7 +666,7 @@ class DiscreteSystem:
         E2 = E @ E
         with np.errstate(all="ignore"):
             try:
-                v = np.linalg.solve(eye + E, w)
+                v = solve(eye + E, np.asarray(w, dtype=np.float64))
             except np.linalg.LinAlgError:
                 return None
             h = np.asarray(C, dtype=np.float64).reshape(-1)
@@ -670,7 +682,7 @@ class DiscreteSystem:
                 a_phi = E2 + (2.0 + a1) * E + ((1.0 + a1) + a2) * eye
                 b_phi = b0 * E2 + (2.0 * b0 + b1) * E + ((b0 + b1) + b2) * eye
                 try:
-                    g = np.linalg.solve(b_phi.T, a_phi.T @ h)
+                    g = solve(b_phi.T, a_phi.T @ h)
                 except np.linalg.LinAlgError:
                     return None  # a section's zero on another section's pole
                 t0, t1, u0, u1 = h @ v, h @ v1, g @ v, g @ v1

@@ -47,7 +47,7 @@ import math
 import numpy as np
 import scipy.signal as sig
 
-from simwave.discrete.realization import state_blocks
+from simwave.discrete.realization import eigvals_stack, state_blocks
 
 __all__ = [
     "IncrementalModel",
@@ -214,6 +214,9 @@ def section_round_off(sos: np.ndarray) -> float:
     the same matrices, so the same values.
     """
     sos = np.asarray(sos, dtype=np.float64)
+    fast = _section_round_off_floats(sos)
+    if fast is not None:
+        return fast
     rows = [row[3:] for row in sos if not (row[4] == 0.0 and row[5] == 0.0)]
     if not rows:
         return _EPS * 0.0
@@ -241,6 +244,63 @@ def section_round_off(sos: np.ndarray) -> float:
             if den == 0.0:
                 return math.inf
             worst = max(worst, total / den)
+    return _EPS * worst
+
+
+def _section_round_off_floats(sos: np.ndarray) -> float | None:
+    """:func:`section_round_off` on Python floats, or None where it must be left to numpy.
+
+    The same IEEE operations on the same values as on numpy's float64 scalars (numpy's
+    sum of three values adds left to right, as written here), without their overhead;
+    the roots from one stacked eigenvalue call (:func:`eigvals_stack`, np.linalg.eigvals'
+    kernel). Non-finite coefficients, a zero leading coefficient or any non-finite
+    intermediate (where numpy's scalars would also warn) return None: the numpy form
+    then runs, with its values and warnings (tests/test_discrete_realization.py compares).
+    """
+    rows = [a for a in sos[:, 3:].tolist() if not (a[1] == 0.0 and a[2] == 0.0)]
+    if not rows:
+        return None
+    for a in rows:
+        if a[0] == 0.0 or not (math.isfinite(a[0]) and math.isfinite(a[1])
+                               and math.isfinite(a[2])):
+            return None
+    second = [j for j, a in enumerate(rows) if a[2] != 0.0]
+    roots_of: dict[int, list] = {}
+    if second:
+        comp = np.zeros((len(second), 2, 2))
+        for k, j in enumerate(second):
+            a = rows[j]
+            comp[k, 0, 0] = -a[1] / a[0]
+            comp[k, 0, 1] = -a[2] / a[0]
+            comp[k, 1, 0] = 1.0
+        if not np.isfinite(comp).all():
+            return None
+        eig = eigvals_stack(comp).tolist()
+        for k, j in enumerate(second):
+            roots_of[j] = eig[k]
+    worst = 0.0
+    for j, a in enumerate(rows):
+        roots = roots_of[j] if a[2] != 0.0 else [-a[1] / a[0], 0.0]
+        total = (abs(a[0]) + abs(a[1])) + abs(a[2])
+        for r in roots:
+            r = complex(r)
+            if not (math.isfinite(r.real) and math.isfinite(r.imag)):
+                return None
+            th = math.atan2(abs(r.imag), r.real)
+            z = complex(math.cos(th), math.sin(th))
+            w = a[0] * z * z + a[1] * z + a[2]
+            if not (math.isfinite(w.real) and math.isfinite(w.imag)):
+                return None
+            try:
+                den = abs(w)
+            except OverflowError:  # numpy: inf, with a warning
+                return None
+            if den == 0.0:
+                return math.inf
+            q = total / den
+            if not math.isfinite(q):
+                return None
+            worst = max(worst, q)
     return _EPS * worst
 
 

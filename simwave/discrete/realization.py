@@ -19,6 +19,62 @@ import numpy as np
 from simwave.errors import DiscretizationError
 import scipy.linalg as sla
 
+try:  # numpy's own LAPACK kernels for solve/eigvals, without their Python wrappers
+    from numpy.linalg import _umath_linalg as _LINALG
+except ImportError:  # another numpy layout: the public calls (same kernels, slower)
+    _LINALG = None
+
+
+def _singular(err, flag):
+    raise np.linalg.LinAlgError("Singular matrix")
+
+
+def solve(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """``np.linalg.solve(a, b)`` for float64 or complex128 arrays, the same bits.
+
+    The same gufunc np.linalg.solve calls (numpy's umath_linalg), with its signature and
+    its error state (a singular matrix raises LinAlgError), without the wrapper's checks
+    (~5 us a call, a fair share of a small design's time). Falls back to np.linalg.solve
+    for anything but float64/complex128 arrays of matching stacked shapes.
+    """
+    if (_LINALG is None or type(a) is not np.ndarray or type(b) is not np.ndarray
+            or a.dtype.char not in "dD" or b.dtype.char not in "dD" or a.ndim < 2
+            or a.shape[-1] != a.shape[-2] or b.ndim < 1):
+        return np.linalg.solve(a, b)
+    gufunc = _LINALG.solve1 if b.ndim == 1 else _LINALG.solve
+    signature = "DD->D" if (a.dtype.char == "D" or b.dtype.char == "D") else "dd->d"
+    with np.errstate(call=_singular, invalid="call", over="ignore", divide="ignore",
+                     under="ignore"):
+        return gufunc(a, b, signature=signature)
+
+
+def magnitude(x: complex) -> float:
+    """|x| of a Python complex as numpy's complex128 scalar gives it: hypot(re, im); where
+    that overflows (Python's abs raises OverflowError) numpy's own inf and warning."""
+    try:
+        return abs(x)
+    except OverflowError:
+        return float(abs(np.complex128(x)))
+
+
+def eigvals_stack(a: np.ndarray) -> np.ndarray:
+    """``np.linalg.eigvals(a)`` for a finite float64 stack (..., n, n), as complex128.
+
+    The same gufunc and error state as np.linalg.eigvals; that function returns a real
+    array when every eigenvalue is real, the same values (callers here take complex
+    values of them). Non-finite input goes to np.linalg.eigvals, which raises.
+    """
+    if (_LINALG is None or type(a) is not np.ndarray or a.dtype.char != "d"
+            or not np.isfinite(a).all()):
+        return np.asarray(np.linalg.eigvals(a), dtype=np.complex128)
+    with np.errstate(call=_nonconvergence, invalid="call", over="ignore", divide="ignore",
+                     under="ignore"):
+        return _LINALG.eigvals(a, signature="d->D")
+
+
+def _nonconvergence(err, flag):
+    raise np.linalg.LinAlgError("Eigenvalues did not converge")
+
 __all__ = [
     "analog_state_space",
     "hold_integrals",
@@ -45,6 +101,8 @@ def tidy_roots(roots: np.ndarray, rtol: float = 1e-9) -> np.ndarray:
     Returns a complex128 array.
     """
     roots = np.asarray(roots, dtype=np.complex128).ravel()
+    if roots.size and _moderate(roots):
+        return _tidy_roots_py(roots.tolist(), rtol)
     rest = list(roots)
     out: list[complex] = []
     while rest:
@@ -64,6 +122,41 @@ def tidy_roots(roots: np.ndarray, rtol: float = 1e-9) -> np.ndarray:
         partner = rest.pop(j)
         mean = 0.5 * (r + np.conj(partner))
         out.extend([mean, np.conj(mean)])
+    return np.array(out, dtype=np.complex128)
+
+
+def _moderate(values: np.ndarray) -> bool:
+    """True when every real and imaginary part is finite and at most 1e300 in size: sums,
+    differences, halves and hypot of two such values neither overflow nor turn NaN, so
+    numpy's scalars would raise no floating-point warning on them either."""
+    parts = values.view(np.float64) if values.dtype == np.complex128 else values
+    return bool(np.isfinite(parts).all()) and float(np.abs(parts).max()) <= 1e300
+
+
+def _tidy_roots_py(rest: list[complex], rtol: float) -> np.ndarray:
+    """:func:`tidy_roots` on Python complex numbers (for values :func:`_moderate` accepts):
+    the same operations on the same values (|r| is hypot(re, im) for a Python complex and
+    numpy's complex128 scalar alike; sums, products and conjugates are IEEE operations),
+    without numpy scalar overhead (tests/test_discrete_realization.py compares the two bit
+    for bit)."""
+    out: list[complex] = []
+    while rest:
+        r = rest.pop(0)
+        if abs(r.imag) <= rtol * max(abs(r), 1e-300):
+            out.append(complex(r.real, 0.0))
+            continue
+        if not rest:
+            out.append(complex(r.real, 0.0))
+            continue
+        conj = r.conjugate()
+        dist = [abs(c - conj) for c in rest]
+        if any(d != d for d in dist):
+            j = int(np.argmin(dist))
+        else:
+            j = dist.index(min(dist))
+        partner = rest.pop(j)
+        mean = 0.5 * (r + partner.conjugate())
+        out.extend([mean, mean.conjugate()])
     return np.array(out, dtype=np.complex128)
 
 
@@ -169,13 +262,26 @@ def _section_ss(zeros: list[complex], poles: list[complex], g: float):
     return A, np.array([[beta], [0.0]]), np.array([[k1 / beta, k2 / beta]]), np.array([[d]])
 
 
+def _prod(values: list[complex]) -> np.complex128:
+    """``np.prod(values)`` of Python complex numbers: numpy's product reduction multiplies
+    left to right with the same complex product (checked bit for bit in tests/
+    test_discrete_realization.py); a numpy scalar, as np.prod returns. A product that is
+    not finite (where numpy would warn) is numpy's own."""
+    out = values[0]
+    for v in values[1:]:
+        out = out * v
+    if not (math.isfinite(out.real) and math.isfinite(out.imag)):
+        return np.prod(values)  # overflow or NaN: numpy's own reduction, with its warnings
+    return np.complex128(out)
+
+
 def _unit_magnitude(zeros: list[complex], poles: list[complex]) -> float:
     """|prod(s - z)/prod(s - p)| at s = j*w_ref, w_ref a scale of the section (never 0 or inf)."""
     scale = max([abs(p) for p in poles] + [abs(z) for z in zeros] + [0.0]) or 1.0
     for factor in (1.0, 1.618, 0.618, 2.414, 0.3):
         s = 1j * scale * factor
-        num = np.prod([s - z for z in zeros]) if zeros else 1.0
-        den = np.prod([s - p for p in poles]) if poles else 1.0
+        num = _prod([s - z for z in zeros]) if zeros else 1.0
+        den = _prod([s - p for p in poles]) if poles else 1.0
         m = abs(num / den)
         if m > 0 and math.isfinite(m):
             return m
@@ -357,12 +463,17 @@ def exp_increment(M: np.ndarray) -> np.ndarray:
     s = max(0, int(math.ceil(math.log2(norm * 8.0)))) if norm > 0 else 0
     X = M / 2.0**s
     eye = np.eye(n)
-    F = eye + X / 12.0
+    F = X / 12.0
+    F += eye
     for k in range(11, 1, -1):  # Horner: X (I + X/2 (I + X/3 (... (I + X/12))))
-        F = eye + (X @ F) / k
+        F = X @ F  # then I + (X F)/k, in place: the same operations (IEEE sums commute)
+        F /= k
+        F += eye
     F = X @ F
     for _ in range(s):
-        F = 2.0 * F + F @ F
+        G = F @ F  # 2 F + F F, in place
+        F *= 2.0
+        F += G
     return F
 
 
@@ -431,11 +542,20 @@ def pencil_zeros(Phi, Gam, C, D) -> np.ndarray:
     # Zeros do not change when the input column is scaled and the output row is
     # scaled; bring both to unit size so that QZ sees a well-scaled pencil (the
     # hold equivalents of high relative degree have input terms of order T^r).
-    col = float(np.linalg.norm(np.vstack([Gam, D])))
+    # np.linalg.norm of a matrix (ord None) is sqrt(x.dot(x)) over its raveled values
+    x = np.concatenate((np.asarray(Gam, dtype=np.float64).ravel(),
+                        np.asarray(D, dtype=np.float64).ravel()))
+    col = float(np.sqrt(x.dot(x)))
     Gam, D = (Gam / col, D / col) if col > 0 else (Gam, D)
-    row = float(np.linalg.norm(np.hstack([C, D])))
+    x = np.concatenate((np.asarray(C, dtype=np.float64).ravel(),
+                        np.asarray(D, dtype=np.float64).ravel()))
+    row = float(np.sqrt(x.dot(x)))
     C, D = (C / row, D / row) if row > 0 else (C, D)
-    M = np.block([[Phi, Gam], [C, D]])
+    M = np.empty((n + 1, n + 1))  # np.block([[Phi, Gam], [C, D]]), filled in place
+    M[:n, :n] = Phi
+    M[:n, n:] = Gam
+    M[n:, :n] = C
+    M[n:, n:] = D
     N = np.zeros_like(M)
     N[:n, :n] = np.eye(n)
     alpha, beta = _generalized_eigvals(M, N)
@@ -447,6 +567,7 @@ def pencil_zeros(Phi, Gam, C, D) -> np.ndarray:
 
 
 _GGEV = None
+_GGEV_LWORK: dict[tuple[int, int], np.ndarray] = {}
 
 
 def _generalized_eigvals(M: np.ndarray, N: np.ndarray):
@@ -463,8 +584,11 @@ def _generalized_eigvals(M: np.ndarray, N: np.ndarray):
         raise ValueError("array must not contain infs or NaNs")
     if _GGEV is None:
         _GGEV = sla.get_lapack_funcs(("ggev",), (M, N))[0]
-    res = _GGEV(M, N, lwork=-1)
-    lwork = res[-2][0].real.astype(np.int_)
+    # the workspace query's answer depends on the size only (LAPACK's block sizes): asked once
+    lwork = _GGEV_LWORK.get(M.shape)
+    if lwork is None:
+        res = _GGEV(M, N, lwork=-1)
+        lwork = _GGEV_LWORK[M.shape] = res[-2][0].real.astype(np.int_)
     alphar, alphai, beta, _, _, _, info = _GGEV(M, N, 0, 0, lwork, 0, 0)
     if info != 0:
         raise np.linalg.LinAlgError(
@@ -514,7 +638,7 @@ def ss_response_many(Phi, Gam, C, D, pts: np.ndarray) -> np.ndarray:
         return np.full(pts.shape, complex(D[0, 0]))
     mats = pts[:, None, None] * np.eye(n)[None] - Phi[None]
     rhs = np.broadcast_to(Gam.astype(np.complex128), (pts.size, n, 1))
-    v = np.linalg.solve(mats, rhs)[:, :, 0]
+    v = solve(mats, rhs)[:, :, 0]
     return D[0, 0] + v @ C[0]
 
 
