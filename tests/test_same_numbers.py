@@ -74,7 +74,7 @@ def test_cached_models_blocks_and_channels_give_the_same_bits(case, tmp_path):
         assert np.array_equal(other.view(np.uint64), first.view(np.uint64))
 
 
-@pytest.mark.parametrize("n_channels", [3, 4, 8, 16, 17, 64])
+@pytest.mark.parametrize("n_channels", [1, 2, 3, 4, 8, 16, 17, 64])
 def test_channel_major_pieces_give_sosfilts_bits(n_channels):
     # Reference: scipy.signal.sosfilt along axis 0 in one call (what process() did before
     # it transposed channel-major pieces and ran sosfilt's loop on them); the inputs are
@@ -87,8 +87,8 @@ def test_channel_major_pieces_give_sosfilts_bits(n_channels):
     sos = sig.butter(6, 0.05, output="sos")
     n = 3 * PIECE_VALUES // n_channels + 17
     x = rng.standard_normal((n, n_channels))
-    x[100:200, 1] = 0.0
-    x[150, 1] = -0.0  # signed zeros pass through unchanged
+    x[100:200, min(1, n_channels - 1)] = 0.0
+    x[150, min(1, n_channels - 1)] = -0.0  # signed zeros pass through unchanged
     x[300, 0] = np.inf  # and infinities and NaN stay in their own channel
     x[500, n_channels - 1] = np.nan
     zi = rng.standard_normal((sos.shape[0], 2, n_channels))
@@ -104,6 +104,11 @@ def test_channel_major_pieces_give_sosfilts_bits(n_channels):
     y, zf = run_sections(sos, x, zi)
     assert np.array_equal(y.view(np.uint64), y_ref.view(np.uint64))
     assert np.array_equal(zf.view(np.uint64), zf_ref.view(np.uint64))
+    for short in (x[:1], x[:1000], x[:999:3]):  # short blocks: sosfilt's one-piece copy
+        y_ref, zf_ref = sig.sosfilt(sos, short, axis=0, zi=zi)
+        y, zf = run_sections(sos, short, zi)
+        assert np.array_equal(y.view(np.uint64), y_ref.view(np.uint64))
+        assert np.array_equal(zf.view(np.uint64), zf_ref.view(np.uint64))
     # the same through DiscreteSystem.process in odd-sized blocks, with a delay line
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")

@@ -1,9 +1,8 @@
 """DiscreteSystem: a runnable discrete model with explicit, carried filter state.
 
-The model runs as second-order sections through ``scipy.signal.sosfilt``
-(one call per block along axis 0 for up to 3 channels; from 4 channels the block is
-transposed in cache-sized pieces and sosfilt's loop runs on it in place,
-:func:`run_sections`), followed by an exact
+The model runs as second-order sections through ``scipy.signal.sosfilt``'s loop
+(on a channel-major copy of each block, made in cache-sized pieces from 4 channels,
+and run in place, :func:`run_sections`), followed by an exact
 delay line for the whole-sample part of the dead time. Everything else a
 block costs is constant work, so processing is as fast as sosfilt itself.
 Models whose sections would lose digits (poles near z = 1: rates far above
@@ -152,10 +151,11 @@ def run_sections(sos: np.ndarray, x: np.ndarray, zi: np.ndarray) -> tuple[np.nda
     sosfilt filters each channel as one contiguous row, so along axis 0 it first copies
     the whole (n, n_channels) array into channel-major order, a strided transposition
     through main memory, then runs its loop (scipy/signal/_sosfilt.pyx) on that copy in
-    place. From ``CHANNEL_MAJOR_FROM`` channels the transposition is done here instead,
-    in pieces of about ``PIECE_VALUES`` values that stay in cache, straight into the
-    output array, and the same loop then runs on it in place: one copy, and no argument
-    handling per call. The loop is sosfilt's own, per channel and per sample, on the same
+    place. From ``CHANNEL_MAJOR_FROM`` channels (and more than ``PIECE_VALUES`` values) the
+    transposition is done here instead, in pieces of about ``PIECE_VALUES`` values that
+    stay in cache, straight into the output array; fewer channels, or a short block, get
+    sosfilt's own one-piece copy. The same loop then runs on it in place: one copy, and
+    no argument handling per call (~20 us, a good part of a 1,000-sample run). The loop is sosfilt's own, per channel and per sample, on the same
     values in the same order, so the output is bit-identical (tests/test_same_numbers.py
     compares it with sosfilt, signed zeros, infinities and NaN included).
 
@@ -164,16 +164,22 @@ def run_sections(sos: np.ndarray, x: np.ndarray, zi: np.ndarray) -> tuple[np.nda
     (n_sections, 2, n_channels).
     """
     n, nch = x.shape
-    if (nch < CHANNEL_MAJOR_FROM or n * nch <= PIECE_VALUES or _sosfilt_loop is None
-            or x.dtype != np.float64 or not np.all(sos[:, 3] == 1.0)):
+    if (_sosfilt_loop is None or n == 0 or x.dtype != np.float64
+            or np.asarray(zi).dtype != np.float64 or sos.ndim != 2 or sos.shape[1] != 6
+            or not np.all(sos[:, 3] == 1.0)):
         return sig.sosfilt(sos, x, axis=0, zi=zi)
     zi = np.asarray(zi, dtype=np.float64)
     if zi.shape != (sos.shape[0], 2, nch):
         raise ValueError(f"zi must have shape {(sos.shape[0], 2, nch)}, got {zi.shape}")
-    out = np.empty((nch, n))
-    frames = max(256, PIECE_VALUES // nch)
-    for start in range(0, n, frames):
-        np.copyto(out[:, start : start + frames], x[start : start + frames].T)
+    if nch < CHANNEL_MAJOR_FROM or n * nch <= PIECE_VALUES:
+        # sosfilt's own copy (the moved axis made C-contiguous in one go), then its loop:
+        # the same work without its argument handling (~20 us, much of a short run)
+        out = np.array(x.T, dtype=np.float64, order="C")
+    else:
+        out = np.empty((nch, n))
+        frames = max(256, PIECE_VALUES // nch)
+        for start in range(0, n, frames):
+            np.copyto(out[:, start : start + frames], x[start : start + frames].T)
     # the loop's state layout: (channels, sections, 2), C-contiguous (a copy: zi stays)
     zc = np.array(zi.transpose(2, 0, 1), order="C")
     _sosfilt_loop(np.ascontiguousarray(sos, dtype=np.float64), out, zc)
@@ -671,8 +677,9 @@ class DiscreteSystem:
                 return None
             h = np.asarray(C, dtype=np.float64).reshape(-1)
             # the size of the correction's response: |t[k]| <= |h| |Phi^k| |v|, and
-            # |Phi^k| stays near 1 in the well-scaled analog realization
-            scale = float(np.linalg.norm(h) * np.linalg.norm(v)) + abs(dy0)
+            # |Phi^k| stays near 1 in the well-scaled analog realization (np.linalg.norm
+            # of a vector is sqrt(x.dot(x)), written out)
+            scale = float(np.sqrt(h.dot(h)) * np.sqrt(v.dot(v))) + abs(dy0)
             if not scale > 0 or abs(dy0 - h @ v) > 1e-13 * scale:
                 return None  # not a pure sum of the modes (fractional delay): fit instead
             zi = np.zeros((self.n_sections, 2))

@@ -327,7 +327,9 @@ def section_response_difference(sos: np.ndarray, theta: np.ndarray, h: np.ndarra
     with np.errstate(all="ignore"):
         num = sos[:, 0:1] + sos[:, 1:2] * zi + sos[:, 2:3] * zi2
         den = sos[:, 3:4] + sos[:, 4:5] * zi + sos[:, 5:6] * zi2
-        hs = (num / den).prod(axis=0)
+        hs = num / den
+        # one section: its row is the product (the reduction copies it: the same bits)
+        hs = hs[0] if hs.shape[0] == 1 else hs.prod(axis=0)
         ok = np.isfinite(h) & np.isfinite(hs)
         if not ok.any():
             return 0.0

@@ -53,6 +53,7 @@ from simwave.discrete.realization import (
     delta_gain_response,
     exp_increment,
     hold_increments,
+    magnitude,
     pencil_zeros,
     series_state_space,
     tidy_roots,
@@ -418,10 +419,10 @@ def model_warnings(system, rate: float, method: str, des: Design, prewarp_hz) ->
             "undamped resonance): it is only marginally stable and its output can drift"
         )
     for what, roots in (("pole", poles), ("zero", zeros)):
-        for r in roots:
+        for r in roots.tolist():  # Python complex: |r| is the same hypot as numpy's scalar
             if r.imag < 0:
                 continue
-            f = abs(r) / (2 * math.pi)
+            f = magnitude(r) / (2 * math.pi)
             if f >= nyq:
                 out.append(
                     f"{what} at {_c(r)} rad/s ({f:.4g} Hz) is at or above the Nyquist "
@@ -635,7 +636,7 @@ def discretize(
         name,
         prewarp_hz=prewarp_hz,
         match_hz=match_hz,
-        dc_gain=system.dc_gain,
+        dc_gain=system.dc_gain if name == "matched-z" else None,  # only matched-z reads it
         frac=hold_frac,
     )
     zd, pd, kd = des.zeros, des.poles, des.gain

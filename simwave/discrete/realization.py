@@ -101,8 +101,11 @@ def tidy_roots(roots: np.ndarray, rtol: float = 1e-9) -> np.ndarray:
     Returns a complex128 array.
     """
     roots = np.asarray(roots, dtype=np.complex128).ravel()
-    if roots.size and _moderate(roots):
-        return _tidy_roots_py(roots.tolist(), rtol)
+    vals = roots.tolist()
+    # finite parts at most 1e300 in size: the sums, differences, halves and hypot below
+    # neither overflow nor turn NaN, so numpy's scalars would warn about nothing either
+    if all(-1e300 <= v.real <= 1e300 and -1e300 <= v.imag <= 1e300 for v in vals):
+        return _tidy_roots_py(vals, rtol)
     rest = list(roots)
     out: list[complex] = []
     while rest:
@@ -125,16 +128,8 @@ def tidy_roots(roots: np.ndarray, rtol: float = 1e-9) -> np.ndarray:
     return np.array(out, dtype=np.complex128)
 
 
-def _moderate(values: np.ndarray) -> bool:
-    """True when every real and imaginary part is finite and at most 1e300 in size: sums,
-    differences, halves and hypot of two such values neither overflow nor turn NaN, so
-    numpy's scalars would raise no floating-point warning on them either."""
-    parts = values.view(np.float64) if values.dtype == np.complex128 else values
-    return bool(np.isfinite(parts).all()) and float(np.abs(parts).max()) <= 1e300
-
-
 def _tidy_roots_py(rest: list[complex], rtol: float) -> np.ndarray:
-    """:func:`tidy_roots` on Python complex numbers (for values :func:`_moderate` accepts):
+    """:func:`tidy_roots` on Python complex numbers (finite parts of at most 1e300):
     the same operations on the same values (|r| is hypot(re, im) for a Python complex and
     numpy's complex128 scalar alike; sums, products and conjugates are IEEE operations),
     without numpy scalar overhead (tests/test_discrete_realization.py compares the two bit
