@@ -59,3 +59,78 @@ def test_first_arrival_matches_the_plain_search(piece, monkeypatch):
             continue
         hits = np.flatnonzero(np.sign(d[0]) * d <= 0)
         assert seg._first_arrival(d) == (int(hits[0]) if hits.size else -1)
+
+
+def _aligned_plain(a, b):
+    """The re-chunking as it was: pieces joined by concatenation (a copy) every time."""
+    buf_a, buf_b, na, nb = [], [], 0, 0
+    it_a, it_b = iter(a), iter(b)
+    done_a = done_b = False
+    while True:
+        while not done_a and na <= nb:
+            nxt = next(it_a, None)
+            if nxt is None:
+                done_a = True
+            else:
+                buf_a.append(nxt)
+                na += nxt.shape[0]
+        while not done_b and nb <= na:
+            nxt = next(it_b, None)
+            if nxt is None:
+                done_b = True
+            else:
+                buf_b.append(nxt)
+                nb += nxt.shape[0]
+        m = min(na, nb)
+        if m == 0:
+            return
+        ca = np.concatenate(buf_a) if len(buf_a) > 1 else buf_a[0]
+        cb = np.concatenate(buf_b) if len(buf_b) > 1 else buf_b[0]
+        yield ca[:m], cb[:m]
+        buf_a = [ca[m:]] if ca.shape[0] > m else []
+        buf_b = [cb[m:]] if cb.shape[0] > m else []
+        na, nb = na - m, nb - m
+
+
+def _pieces(rng, data, kind):
+    """Blocks of ``data`` as a pass gets them: row slices of it (in memory), separate
+    copies (a file read in blocks), or column selections (a reference channel), with the
+    at-rest sample's row of zeros first or not."""
+    n = data.shape[0]
+    cuts = np.unique(np.concatenate(([0, n], rng.integers(0, n, size=int(rng.integers(0, 6))))))
+    out = [np.zeros((1, data.shape[1]))] if kind % 2 else []
+    for a, b in zip(cuts[:-1], cuts[1:], strict=True):
+        piece = data[a:b]
+        if kind // 2 == 1:
+            piece = piece.copy()
+        elif kind // 2 == 2:
+            w = data.shape[1]
+            piece = np.concatenate([piece, piece], axis=1)[:, list(range(w))]  # fancy: a copy
+        elif kind // 2 == 3:
+            piece = np.concatenate([piece, piece], axis=1)[:, 0:data.shape[1]]  # strided view
+        out.append(piece)
+    return out
+
+
+def test_aligned_blocks_match_the_concatenating_rechunk():
+    from simwave.measure import source
+
+    rng = np.random.default_rng(3)
+    for t in range(3000):
+        n, width = int(rng.integers(1, 60)), int(rng.integers(1, 4))
+        x = rng.standard_normal((n, width))
+        y = rng.standard_normal((n, width))
+        ka, kb = int(rng.integers(0, 8)), int(rng.integers(0, 8))
+        if ka % 2 != kb % 2:
+            kb ^= 1  # the at-rest row goes before both streams or neither
+        pa, pb = _pieces(rng, x, ka), _pieces(rng, y, kb)
+        want = list(_aligned_plain(pa, pb))
+        got = list(source._aligned(iter(pa), iter(pb)))
+        assert len(want) == len(got)
+        for (wa, wb), (ga, gb) in zip(want, got, strict=True):
+            for w, g in ((wa, ga), (wb, gb)):
+                assert w.shape == g.shape and np.array_equal(w, g)
+                # the memory order decides how later sums round: the same one
+                assert w.flags.c_contiguous == g.flags.c_contiguous
+                assert [st for st, d in zip(w.strides, w.shape, strict=True) if d > 1] == \
+                    [st for st, d in zip(g.strides, g.shape, strict=True) if d > 1]

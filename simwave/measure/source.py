@@ -201,6 +201,63 @@ def _read_if_short(
     return parts, None
 
 
+def _root(a: np.ndarray) -> np.ndarray:
+    while isinstance(a.base, np.ndarray):
+        a = a.base
+    return a
+
+
+def _joined(parts: list[np.ndarray]) -> np.ndarray:
+    """The pieces as one array: the piece itself when there is one; else, when they lie one
+    after the other in the memory of one C-ordered array (consecutive row slices of a
+    record held in memory), a view of those rows, read-only (the values and C order a copy
+    would hold); else their concatenation (a copy)."""
+    if len(parts) == 1:
+        return parts[0]
+    p0 = parts[0]
+    root = _root(p0)
+    if (p0.ndim == 2 and root.flags.c_contiguous and root.dtype == p0.dtype
+            and all(p.flags.c_contiguous and p.dtype == p0.dtype and p.ndim == 2
+                    and p.shape[1] == p0.shape[1] and p.strides[1] == p.itemsize
+                    and (p.shape[0] <= 1 or p.strides[0] == p.itemsize * p.shape[1])
+                    for p in parts)):
+        width = p0.shape[1]
+        row = p0.itemsize * width
+        at = p0.ctypes.data
+        for p in parts:
+            if p.ctypes.data != at or _root(p) is not root:
+                break
+            at += p.shape[0] * row
+        else:
+            first = (p0.ctypes.data - root.ctypes.data) // p0.itemsize
+            rows = sum(p.shape[0] for p in parts)
+            if row and 0 <= first and first + rows * width <= root.size:
+                view = root.reshape(-1)[first:first + rows * width].reshape(rows, width)
+                view.flags.writeable = False
+                return view
+    return np.concatenate(parts)
+
+
+def _rest(parts: list[np.ndarray], joined: np.ndarray, m: int) -> list[np.ndarray]:
+    """What is left of the pieces after their first ``m`` rows (``joined``: their
+    :func:`_joined` array): the pieces' own rows where a copy joined them and they are
+    C-ordered (a copy's rows would hold the same values in the same order, and the pieces
+    may join a later piece without copying), else the rows of ``joined``."""
+    if joined.shape[0] <= m:
+        return []
+    if len(parts) > 1 and joined.base is None and joined.flags.c_contiguous:  # a C copy
+        rem, skip = [], m
+        for p in parts:
+            if skip >= p.shape[0]:
+                skip -= p.shape[0]
+                continue
+            rem.append(p[skip:])
+            skip = 0
+        if all(p.flags.c_contiguous for p in rem):
+            return rem
+    return [joined[m:]]
+
+
 def _aligned(
     a: Iterator[np.ndarray], b: Iterator[np.ndarray] | None
 ) -> Iterator[tuple[np.ndarray, np.ndarray | None]]:
@@ -232,10 +289,9 @@ def _aligned(
         m = min(na, nb)
         if m == 0:
             return
-        ca = np.concatenate(buf_a) if len(buf_a) > 1 else buf_a[0]
-        cb = np.concatenate(buf_b) if len(buf_b) > 1 else buf_b[0]
+        ca, cb = _joined(buf_a), _joined(buf_b)
         yield ca[:m], cb[:m]
-        buf_a, buf_b = ([ca[m:]] if ca.shape[0] > m else []), ([cb[m:]] if cb.shape[0] > m else [])
+        buf_a, buf_b = _rest(buf_a, ca, m), _rest(buf_b, cb, m)
         na, nb = na - m, nb - m
 
 
