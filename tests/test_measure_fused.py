@@ -134,3 +134,72 @@ def test_aligned_blocks_match_the_concatenating_rechunk():
                 assert w.flags.c_contiguous == g.flags.c_contiguous
                 assert [st for st, d in zip(w.strides, w.shape, strict=True) if d > 1] == \
                     [st for st, d in zip(g.strides, g.shape, strict=True) if d > 1]
+
+
+def _windows_plain(size, blocks):
+    """Window means, minima and maxima as the summary made them: carry joined to each block."""
+    means, mins, maxs, carry = [], [], [], np.empty(0)
+    for y in blocks:
+        if carry.size:
+            y = np.concatenate([carry, y])
+        m = (y.size // size) * size
+        if m:
+            w = y[:m].reshape(-1, size)
+            means.append(w.mean(axis=1))
+            mins.append(w.min(axis=1))
+            maxs.append(w.max(axis=1))
+        carry = np.array(y[m:], dtype=np.float64)
+    return [np.concatenate(a) if a else np.empty(0) for a in (means, mins, maxs)]
+
+
+def test_window_summary_matches_joining_the_carry():
+    from simwave.measure import plateaus as pl
+
+    rng = np.random.default_rng(5)
+    for t in range(400):
+        size = int(rng.integers(1, 50))
+        n = int(rng.integers(0, 2000))
+        x = rng.standard_normal((n, 2)) * 10.0 ** rng.integers(-3, 4)
+        cuts = np.unique(np.concatenate(([0, n], rng.integers(0, n + 1, size=5))))
+        col = int(rng.integers(0, 2))
+        blocks = [x[a:b, col] for a, b in zip(cuts[:-1], cuts[1:], strict=True)]
+        stats = pl.WindowStats(size)
+        for blk in blocks:
+            stats.feed(blk)
+        got = [np.concatenate(a) if a else np.empty(0) for a in (stats.means, stats.mins,
+                                                                  stats.maxs)]
+        for w, g in zip(_windows_plain(size, blocks), got, strict=True):
+            assert w.tobytes() == g.tobytes()
+        assert stats._carry.tobytes() == np.asarray(x[n - n % size if n else 0:, col]).tobytes()
+
+
+def test_histogram_columns_match_the_block():
+    from simwave.measure import levels as lv
+
+    rng = np.random.default_rng(9)
+    x = np.column_stack([rng.standard_normal(50000), 0.2 + 1e-3 * rng.standard_normal(50000)])
+    lo, hi = x.min(axis=0), x.max(axis=0)
+    a, b = lv.LevelHistogram(lo, hi), lv.LevelHistogram(lo, hi)
+    for s in range(0, 50000, 7000):
+        blk = x[s:s + 7000]
+        for c in range(2):  # the plain expression, as add() computed it
+            idx = ((blk[:, c] - a.lo[c]) * a._scale[c]).astype(np.int64)
+            np.clip(idx, 0, a.n_bins - 1, out=idx)
+            a.counts[c] += np.bincount(idx, minlength=a.n_bins)
+            a.sums[c] += np.bincount(idx, weights=blk[:, c], minlength=a.n_bins)
+        b.add_columns([np.ascontiguousarray(blk[:, 0]), blk[:, 1]])
+    assert np.array_equal(a.counts, b.counts) and a.sums.tobytes() == b.sums.tobytes()
+
+
+def test_median_in_place_matches_numpy():
+    rng = np.random.default_rng(13)
+    for t in range(3000):
+        n = int(rng.integers(1, 300))
+        if t % 3 == 0:  # ties, signed zeros
+            a = rng.choice([0.0, -0.0, 1.0, -1.0, 2.5], size=n)
+        else:
+            a = rng.standard_normal(n)
+        want = float(np.median(a))
+        got = seg.median_in_place(a.copy())
+        assert np.array_equal(np.float64(want), np.float64(got))
+        assert np.signbit(want) == np.signbit(got)

@@ -278,8 +278,8 @@ def _robust_noise(w: np.ndarray) -> float:
     if w.size < 5:
         return 0.0
     d2 = np.diff(w, 2)
-    d2 -= median(d2)
-    return float(1.4826 * median(np.abs(d2, out=d2)) / math.sqrt(6.0))
+    d2 -= median_in_place(d2)
+    return float(1.4826 * median_in_place(np.abs(d2, out=d2)) / math.sqrt(6.0))
 
 
 def median(a: np.ndarray) -> float:
@@ -296,6 +296,19 @@ def median(a: np.ndarray) -> float:
         return float((0.0 + np.partition(a, (h, -1))[h]) / 1.0)
     p = np.partition(a, (h - 1, h, -1))
     return float(((0.0 + p[h - 1]) + p[h]) / 2.0)
+
+
+def median_in_place(a: np.ndarray) -> float:
+    """:func:`median` of an array the caller owns and no longer needs in its order: it is
+    partitioned in place (no copy). The same value: the middle order statistics do not
+    depend on the order of the samples, and the sums from 0. make -0. and 0. alike."""
+    n = a.size
+    h = n >> 1
+    if n & 1:
+        a.partition((h, -1))
+        return float((0.0 + a[h]) / 1.0)
+    a.partition((h - 1, h, -1))
+    return float(((0.0 + a[h - 1]) + a[h]) / 2.0)
 
 
 @functools.lru_cache(maxsize=64)
@@ -486,16 +499,24 @@ def analyse_segment(seg: Segment, y: np.ndarray, first: int, fraction: float) ->
     w = y[y.size - w_len :]
     seg.w_start = seg.end - w_len + 1
     seg.n_window = int(w_len)
-    seg.median = median(w)
+    # one copy of the window, partitioned in place: first within each quarter (their
+    # medians, below), then as a whole (a median does not depend on the samples' order)
+    wc = np.array(w, dtype=np.float64)
+    quarter_meds = None
+    if w_len >= MIN_END_WINDOW:
+        m = w_len // 4
+        quarter_meds = [median_in_place(wc[i * m : (i + 1) * m]) for i in range(3)]
+        quarter_meds.append(median_in_place(wc[3 * m :]))
+    seg.median = median_in_place(wc)
     seg.end_value = median(w[-min(5, w.size) :])
     seg.noise = _robust_noise(w)
     dev = w - seg.median
-    absdev = np.abs(dev)
+    seg.rms_dev = float(np.sqrt(np.mean(dev * dev)))
+    absdev = np.abs(dev, out=dev)
     # 1.4826 MAD: the standard deviation of normal noise (common practice, as above); unlike
     # the second differences it also counts slow noise and hum
-    seg.scatter = float(1.4826 * median(absdev))
-    seg.rms_dev = float(np.sqrt(np.mean(dev * dev)))
     seg.peak_dev = float(np.max(absdev))
+    seg.scatter = float(1.4826 * median_in_place(absdev))
     if y.size:
         k, starts = _back_points(y.size)
         # running maximum of |y - median| from the end back, read at k only: the largest of
@@ -506,10 +527,9 @@ def analyse_segment(seg: Segment, y: np.ndarray, first: int, fraction: float) ->
         np.abs(dev_back, out=dev_back)
         stretch = np.maximum.reduceat(dev_back, starts)
         seg.back_k, seg.back_dev = k + 1, np.maximum.accumulate(stretch)
-    if w_len >= MIN_END_WINDOW:
+    if quarter_meds is not None:
         m = w_len // 4
-        meds = [median(w[i * m : (i + 1) * m]) for i in range(3)]
-        meds.append(median(w[3 * m :]))
+        meds = quarter_meds
         seg.quarters = tuple(meds)
         seg.drift = max(meds) - min(meds)
         # four medians of m normal samples: each has deviation ~1.2533 sigma / sqrt(m)

@@ -58,15 +58,18 @@ def pass_levels(w: Work) -> None:
     for ch in chans:
         ch.windows = pl.WindowStats(wsize)
     for start, a, b in w.src.blocks():
-        blk = a if b is None else np.concatenate([a, b], axis=1)
-        hist.add(blk)
-        for i, ch in enumerate(chans):
-            ch.windows.feed(blk[:, i])
-        end = start + blk.shape[0]
+        # the channels' columns, outputs then references (not joined into one block: a copy)
+        cols = [a[:, i] for i in range(a.shape[1])]
+        if b is not None:
+            cols += [b[:, j] for j in range(b.shape[1])]
+        hist.add_columns(cols)
+        for ch, col in zip(chans, cols, strict=True):
+            ch.windows.feed(col)
+        end = start + a.shape[0]
         if end > w.w_start:
             lo = max(w.w_start - start, 0)
             for c in range(len(chans)):
-                parts[c].append(blk[lo:, c].copy())
+                parts[c].append(cols[c][lo:].copy())
     for c, ch in enumerate(chans):
         ch.window = np.concatenate(parts[c]) if parts[c] else np.empty(0)
         if ch.constant:
