@@ -16,7 +16,7 @@ from __future__ import annotations
 import numpy as np
 
 from simwave.measure import plateaus as pl
-from simwave.measure.stages.work import Work
+from simwave.measure.stages.work import Work, columns
 from simwave.measure.transient import EdgeFinder
 
 
@@ -45,17 +45,17 @@ def run(w: Work) -> None:
         for i, gs in gaps.items()
     }
     for start, a, b in w.src.blocks():
-        blk = a if b is None else np.concatenate([a, b], axis=1)
-        last = start + blk.shape[0] - 1
+        cols = columns(a, b)
+        last = start + a.shape[0] - 1
         for i in active:
             if i in gaps:
                 lo, hi = spans[i]
                 for g in np.flatnonzero((lo <= last) & (hi >= start)):
                     glo, ghi, finder = gaps[i][g][:3]
                     s0, s1 = max(glo, start), min(ghi, last)
-                    finder.feed(blk[s0 - start : s1 - start + 1, i], s0)
+                    finder.feed(cols[i][s0 - start : s1 - start + 1], s0)
             else:
-                chans[i].finder.feed(blk[:, i], start)
+                chans[i].finder.feed(cols[i], start)
     for i in active:
         if i in gaps:
             chans[i].edges = pl.edges_from_gaps(gaps[i])

@@ -94,21 +94,21 @@ def pass_regions(w: Work) -> None:
     }
     prev = np.full(len(chans), np.nan)
     for start, a, b in w.src.blocks():
-        blk = a if b is None else np.concatenate([a, b], axis=1)
-        last = start + blk.shape[0] - 1
+        cols = work.columns(a, b)
+        last = start + a.shape[0] - 1
         for i, idx in need.items():
             lo, hi = np.searchsorted(idx, [start, last + 1])
             for k in idx[lo:hi]:
-                values[i][int(k)] = float(blk[k - start, i])
+                values[i][int(k)] = float(cols[i][k - start])
         for c, rs in regions.items():
             s0, s1 = spans[c]
-            y = blk[:, c]
+            y = cols[c]
             p = None if start == 0 else float(prev[c])
             # regions overlapping [start-1, last] (start-1: pending right neighbours)
             cand = np.flatnonzero((s0 <= last) & (s1 >= start - 1))
             for r in cand:
                 rs[r].update(y, start, p)
-        prev = blk[-1, :].copy()
+        prev = np.array([col[-1] for col in cols])
     for i, ch in enumerate(chans):
         for e in ch.edges:
             e.set_instants(values[i], ch.refs)

@@ -209,6 +209,15 @@ def steady_part_of(w: Work, ch: Channel):
 
 
 # ---------------------------------------------------------------------------- shared passes
+def columns(a: np.ndarray, b: np.ndarray | None) -> list[np.ndarray]:
+    """A block's channels as 1-D columns, outputs then references (the order of
+    ``w.outs + w.refs``), without joining the two streams' blocks into one (a copy)."""
+    cols = [a[:, i] for i in range(a.shape[1])]
+    if b is not None:
+        cols += [b[:, j] for j in range(b.shape[1])]
+    return cols
+
+
 def collect(w: Work, segs_by_c: dict[int, list]) -> None:
     """One pass: each output channel's segments analysed at their ends (the pass stops
     early once every list is done)."""
