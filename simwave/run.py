@@ -727,21 +727,23 @@ class _Sink:
             self.kept.add(out)
         # The meter's extremes are NaN or infinite exactly when some sample is, so the
         # search for the first bad sample runs only then (a pass over the block saved).
+        # A file taken as one block is metered and written in the pieces a block-by-block
+        # run has (the same RMS sums, and the same first error when one piece fails).
         step = self.meter_block or out.shape[0]
         aligned = inp is not None and inp.shape[0] == out.shape[0]
         for a in range(0, out.shape[0], step):
-            piece = out[a:a + step] if step < out.shape[0] else out
+            whole = step >= out.shape[0]
+            piece = out if whole else out[a:a + step]
             if not self.meter.add(piece) and not self.keep_going:
-                _check_finite(piece, self.done + a, self.src.rate, self.src.t0,
-                              (inp[a:a + step] if step < out.shape[0] else inp)
-                              if aligned else None)
-        if self._behind is None:
-            self.pieces.append(out)
-        elif self.include_input:
-            self._behind.submit((out, self._take_input(out.shape[0])))
-        else:
-            self._behind.submit(out)
-        self.done += out.shape[0]
+                _check_finite(piece, self.done, self.src.rate, self.src.t0,
+                              (inp if whole else inp[a:a + step]) if aligned else None)
+            if self._behind is None:
+                self.pieces.append(piece)
+            elif self.include_input:
+                self._behind.submit((piece, self._take_input(piece.shape[0])))
+            else:
+                self._behind.submit(piece)
+            self.done += piece.shape[0]
 
     def _take_input(self, n: int) -> np.ndarray:
         pending = np.concatenate(self._pending_input)

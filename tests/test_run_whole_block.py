@@ -79,15 +79,31 @@ def test_the_whole_block_is_taken_and_kept(tmp_path, monkeypatch):
 @pytest.mark.filterwarnings("ignore::UserWarning")
 def test_an_output_turning_infinite_fails_alike(tmp_path):
     """An unstable system's output overflows (past the first block: e^(200 t) beyond 1.8e308
-    after about 3.5 s): the same one-line error (time, sample,
-    channel) whether the run is kept for measuring or not, and no output file."""
+    after about 3.5 s): the same one-line error (time, sample, channel) whether the run is
+    kept for measuring or not, and no output file. (DOUBLE output: a FLOAT file refuses
+    values beyond binary32's range earlier, from its writer, which the block run calls on
+    its write-behind thread, so which of the two errors comes first there depends on the
+    threads' timing.)"""
     src = _record(tmp_path, "grow", 1, "FLOAT")
     errors = []
     for name, metrics in (("a", None), ("b", str(tmp_path / "b.json"))):
         with pytest.raises(SimwaveError) as info:
             execute(RunJob(system="1/(s - 200)", source=src,
-                           output=str(tmp_path / f"{name}.wav"), metrics=metrics))
+                           output=str(tmp_path / f"{name}.wav"), metrics=metrics,
+                           write_options={"subtype": "DOUBLE"}))
         errors.append(str(info.value).replace(f"{name}.wav", "X.wav"))
         assert not (tmp_path / f"{name}.wav").exists()
     assert errors[0] == errors[1]
-    assert "sample" in errors[0]
+    assert "sample 174003" in errors[0]  # in the third block of 65,536
+
+
+@pytest.mark.filterwarnings("ignore::UserWarning")
+def test_a_float_output_beyond_binary32_fails_at_its_first_such_sample(tmp_path):
+    """Written piece by piece in order, the kept run refuses the first sample beyond
+    binary32's range (the writer's error, in the first block), as a run that writes each
+    block before filtering the next does, not the later overflow to infinity."""
+    src = _record(tmp_path, "grow", 1, "FLOAT")
+    with pytest.raises(SimwaveError, match=r"sample 24949 .*beyond the range of 32-bit"):
+        execute(RunJob(system="1/(s - 200)", source=src, output=str(tmp_path / "b.wav"),
+                       metrics=str(tmp_path / "b.json")))
+    assert not (tmp_path / "b.wav").exists()
