@@ -203,3 +203,18 @@ def test_median_in_place_matches_numpy():
         got = seg.median_in_place(a.copy())
         assert np.array_equal(np.float64(want), np.float64(got))
         assert np.signbit(want) == np.signbit(got)
+
+
+def test_segment_parts_joined_as_a_copy_would():
+    rng = np.random.default_rng(17)
+    for t in range(2000):
+        n = int(rng.integers(1, 80))
+        width = int(rng.integers(1, 3))
+        data = rng.standard_normal((n, width))
+        cuts = np.unique(np.concatenate(([0, n], rng.integers(0, n + 1, size=4))))
+        parts = [data[a:b, width - 1] for a, b in zip(cuts[:-1], cuts[1:], strict=True)]
+        if t % 3 == 0:
+            parts = [p.copy() for p in parts]  # separate arrays (a file read in blocks)
+        got = seg.joined_1d(parts)
+        want = np.concatenate(parts)
+        assert got.tobytes() == want.tobytes() and got.flags.c_contiguous

@@ -551,6 +551,37 @@ def analyse_segment(seg: Segment, y: np.ndarray, first: int, fraction: float) ->
         seg.extrapolated, seg.turning_points, seg.residual, seg.tp_reason = None, 0, None, None
 
 
+def joined_1d(parts: list[np.ndarray]) -> np.ndarray:
+    """1-D float64 pieces as one array: a read-only view of the rows of the array they
+    all lie in, one after the other, when they do (slices of one record in memory), else
+    their concatenation (a copy). The same values in the same order either way."""
+    p0 = parts[0]
+    root = p0
+    while isinstance(root.base, np.ndarray):
+        root = root.base
+    size = p0.itemsize
+    if root.flags.c_contiguous and root.dtype == p0.dtype:
+        at = p0.ctypes.data
+        for p in parts:
+            if p.ndim != 1 or p.dtype != p0.dtype or (p.size > 1 and p.strides[0] != size) \
+                    or p.ctypes.data != at:
+                break
+            r = p
+            while isinstance(r.base, np.ndarray):
+                r = r.base
+            if r is not root:
+                break
+            at += p.size * size
+        else:
+            first = (p0.ctypes.data - root.ctypes.data) // size
+            n = sum(p.size for p in parts)
+            if 0 <= first and first + n <= root.size:
+                view = root.reshape(-1)[first:first + n]
+                view.flags.writeable = False
+                return view
+    return np.concatenate(parts)
+
+
 class SegmentCollector:
     """Gathers one segment at a time from blocks fed in order and analyses it at its end.
 
@@ -575,7 +606,9 @@ class SegmentCollector:
 
     def _flush(self) -> None:
         seg = self.segments[self.cur]
-        y = np.concatenate(self.parts) if self.parts else np.empty(0)  # a copy, even of one
+        # the segment's samples: a view where its parts lie one after the other in one
+        # record held in memory (analyse_segment only reads them), else a copy
+        y = joined_1d(self.parts) if self.parts else np.empty(0)
         if y.size:
             analyse_segment(seg, y, self.first, self.fraction)
         self.parts, self.held = [], 0
