@@ -207,6 +207,16 @@ def _root(a: np.ndarray) -> np.ndarray:
     return a
 
 
+def _c_rows(p: np.ndarray) -> bool:
+    """A 2-D block in plain C order (rows one after the other, each contiguous; the
+    stride of an axis of length 1, e.g. a column added as a new axis, does not matter)."""
+    if p.ndim != 2 or not p.flags.c_contiguous:
+        return False
+    rows, width = p.shape
+    return (width <= 1 or p.strides[1] == p.itemsize) and (
+        rows <= 1 or p.strides[0] == p.itemsize * width)
+
+
 def _joined(parts: list[np.ndarray]) -> np.ndarray:
     """The pieces as one array: the piece itself when there is one; else, when they lie one
     after the other in the memory of one C-ordered array (consecutive row slices of a
@@ -217,9 +227,7 @@ def _joined(parts: list[np.ndarray]) -> np.ndarray:
     p0 = parts[0]
     root = _root(p0)
     if (p0.ndim == 2 and root.flags.c_contiguous and root.dtype == p0.dtype
-            and all(p.flags.c_contiguous and p.dtype == p0.dtype and p.ndim == 2
-                    and p.shape[1] == p0.shape[1] and p.strides[1] == p.itemsize
-                    and (p.shape[0] <= 1 or p.strides[0] == p.itemsize * p.shape[1])
+            and all(_c_rows(p) and p.dtype == p0.dtype and p.shape[1] == p0.shape[1]
                     for p in parts)):
         width = p0.shape[1]
         row = p0.itemsize * width
@@ -236,6 +244,19 @@ def _joined(parts: list[np.ndarray]) -> np.ndarray:
                 view.flags.writeable = False
                 return view
     return np.concatenate(parts)
+
+
+def _take(parts: list[np.ndarray], m: int) -> tuple[np.ndarray, list[np.ndarray]]:
+    """The first ``m`` rows of the pieces joined (as the first ``m`` rows of their
+    concatenation: the same values and memory order) and the pieces left after them.
+    Where the first piece holds them and every piece is in plain C order (so a
+    concatenation would be too), no copy: its own first rows."""
+    p0 = parts[0]
+    if len(parts) > 1 and p0.shape[0] >= m and all(_c_rows(p) for p in parts):
+        rest = ([p0[m:]] if p0.shape[0] > m else []) + parts[1:]
+        return p0[:m], rest
+    joined = _joined(parts)
+    return joined[:m], _rest(parts, joined, m)
 
 
 def _rest(parts: list[np.ndarray], joined: np.ndarray, m: int) -> list[np.ndarray]:
@@ -289,9 +310,8 @@ def _aligned(
         m = min(na, nb)
         if m == 0:
             return
-        ca, cb = _joined(buf_a), _joined(buf_b)
-        yield ca[:m], cb[:m]
-        buf_a, buf_b = _rest(buf_a, ca, m), _rest(buf_b, cb, m)
+        (ha, buf_a), (hb, buf_b) = _take(buf_a, m), _take(buf_b, m)
+        yield ha, hb
         na, nb = na - m, nb - m
 
 
