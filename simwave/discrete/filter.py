@@ -426,8 +426,16 @@ class DiscreteSystem:
         self._thiran_d = thiran_d
         self.sos = self._make_sos()
         self._cache: dict[str, Any] = {}
-        self._inc = IncrementalModel(*design.increment) if design.increment is not None else None
+        self._inc_model: IncrementalModel | None = None  # made on first use (see _inc)
         self._choose_realization(realization)
+
+    @property
+    def _inc(self) -> IncrementalModel | None:
+        """The incremental realization of the design's increment form (None without one),
+        made when first needed: a model that runs as sections rarely needs it."""
+        if self._inc_model is None and self._design.increment is not None:
+            self._inc_model = IncrementalModel(*self._design.increment)
+        return self._inc_model
 
     def _choose_realization(self, wanted: str) -> None:
         """Sections where they are exact enough, the incremental form where they are not.
@@ -449,11 +457,11 @@ class DiscreteSystem:
                 and sec_level <= SECTIONS_LIMIT):
             diff = section_response_difference(self.sos, *response)
         if wanted == "auto":
-            use_inc = self._inc is not None and (
+            use_inc = self._design.increment is not None and (
                 sec_level > SECTIONS_LIMIT or (diff is not None and diff > RESPONSE_LIMIT))
         else:
             use_inc = wanted == "incremental"
-            if use_inc and self._inc is None:
+            if use_inc and self._design.increment is None:
                 raise DiscretizationError("this model has no incremental realization")
         self.realization = "incremental" if use_inc else "sections"
         sec_total = sec_level if diff is None else max(sec_level, diff)
