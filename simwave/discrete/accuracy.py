@@ -493,7 +493,8 @@ def _increment_model(system, method: str, rate: float, prewarp_hz, match_hz):
             return _impulse_design(A, B, C, D, T)
         return _hold_design(A, B, C, D, T, method, 0.0)[:4]
     des = design(system.zeros, system.poles, system.gain, rate, method,
-                 prewarp_hz=prewarp_hz, match_hz=match_hz, dc_gain=system.dc_gain)
+                 prewarp_hz=prewarp_hz, match_hz=match_hz,
+                 dc_gain=system.dc_gain if method == "matched-z" else None)  # only it reads it
     return des.increment
 
 
