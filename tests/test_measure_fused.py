@@ -161,7 +161,7 @@ def test_window_summary_matches_joining_the_carry():
     from simwave.measure import plateaus as pl
 
     rng = np.random.default_rng(5)
-    for t in range(400):
+    for _ in range(400):
         size = int(rng.integers(1, 50))
         n = int(rng.integers(0, 2000))
         x = rng.standard_normal((n, 2)) * 10.0 ** rng.integers(-3, 4)

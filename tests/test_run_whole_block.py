@@ -14,7 +14,6 @@ import numpy as np
 import pytest
 import soundfile as sf
 
-import simwave
 import simwave.run as run
 from simwave.errors import SimwaveError
 from simwave.run import RunJob, execute
