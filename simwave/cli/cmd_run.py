@@ -107,6 +107,30 @@ SUMMARY_METRICS = [
 ]
 
 
+def _key_cautions(metrics: dict, name: str, values: dict) -> list[tuple[str, str]]:
+    """(label, text) for each summary metric shown on the run line whose value carries a
+    transition's caution (the disturbance comparable to what it is measured against), so
+    that the terminal line says what the metrics file says: the first transition's text,
+    and how many transitions carry one."""
+    from simwave.measure.result import KEY_SOURCES
+
+    ch = next((c for c in metrics.get("channels") or [] if c.get("name") == name), None)
+    if not ch:
+        return []
+    out = []
+    for key, label, _unit in SUMMARY_METRICS:
+        src = KEY_SOURCES.get(key)
+        if src is None or not isinstance(values.get(key), (int, float)):
+            continue
+        rows = ch.get("transitions") or []
+        flagged = [t for t in rows if src in (t.get("cautions") or {})]
+        if flagged:
+            first = flagged[0]
+            more = f" ({len(flagged)} of {len(rows)} transitions cautioned)" if rows[1:] else ""
+            out.append((label, f"#{first['index']}: {first['cautions'][src]}{more}"))
+    return out
+
+
 def _format_summary(result: dict) -> str:
     run = result["run"]
     acc = run.get("accuracy") or {}
@@ -171,6 +195,8 @@ def _format_summary(result: dict) -> str:
                     f"           {name}: \u2265 marks a lower bound, \u2264 an upper bound "
                     "(see the metrics file for why)"
                 )
+            for label, why in _key_cautions(result["metrics"], name, values):
+                lines.append(f"           {name} {label}: caution - {why}")
         for ch in result["metrics"].get("channels") or []:
             # a sine or tone fit on part of the steady-state window: which part, and why
             for part in (ch.get("fit_window"), (ch.get("sine") or {}).get("fit_window")):

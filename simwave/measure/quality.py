@@ -31,9 +31,10 @@ Per transition (one row of the result) this adds:
     peak plus the final level's uncertainty: 100 (peak + u(final)) / amplitude percentage
     points.
 * ``cautions``: ``{metric: text}`` where the disturbance is comparable to what the metric is
-  measured against: the settling band (three RMS beyond a fifth of its half-width) or the
+  measured against: the settling band (three RMS beyond a fifth of its half-width), the
   reference levels (three RMS beyond a tenth of the amplitude, the distance from a state to
-  its 10 % level).
+  its 10 % level), or the overshoot and undershoot themselves (their uncertainty beyond half
+  the value shown and beyond 0.1 percentage point).
 * Settling within a band the disturbance alone leaves (its peak beyond the band's half-width)
   cannot be measured: null, with that reason.
 * ``bounds``/``bound_reasons``: when the final level is still approaching at the end of its
@@ -55,6 +56,12 @@ SLOPE_FLOOR = 0.25
 CAUTION_SIGMAS = 3.0
 BAND_FRACTION = 0.2
 LEVEL_FRACTION = 0.1
+#: An overshoot or undershoot whose reading may be off by more than this fraction of its
+#: value (and by more than OFF_BY_FLOOR_PCT percentage points) gets a caution saying by how
+#: much (our choice: half the value, so a value shown is at least twice its uncertainty or
+#: cautioned; the floor keeps clean records' round-off-level peaks quiet).
+OFF_BY_FRACTION = 0.5
+OFF_BY_FLOOR_PCT = 0.1
 
 
 def level_uncertainty(s: seg.Segment | None) -> float | None:
@@ -146,6 +153,16 @@ def annotate(row: dict, amp: float, band_pct: float, rate: float, before, after,
                     f"disturbance RMS {rms:.3g} is comparable to the distance from the levels "
                     f"to the 10/90 % reference levels ({LEVEL_FRACTION * abs(amp):.3g})"
                 )
+    for key in ("overshoot_pct", "undershoot_pct"):
+        # a peak read off single samples: off by up to the disturbance's peak (and the final
+        # level's uncertainty); say so when that is more than half what is shown
+        v, u = row.get(key), unc.get("overshoot_pct")
+        if (v is not None and u is not None and u > OFF_BY_FLOOR_PCT
+                and u > OFF_BY_FRACTION * abs(v) and key not in cautions):
+            cautions[key] = (
+                f"could be off by \u00b1{u:.2g} percentage points (the disturbance's peak "
+                f"{peak:.3g} and the final level's uncertainty, on a step of {abs(amp):.3g})"
+            )
     if cautions:
         row["cautions"] = cautions
     _approach_bounds(row, after, reasons, segment_end_s)

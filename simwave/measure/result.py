@@ -123,7 +123,7 @@ def _stat(ch: dict, section: str, key: str, what: str) -> Any:
 
 
 #: Key metric -> the transition-row key it summarizes.
-_KEY_SOURCES = {
+KEY_SOURCES = {
     "rise_time_s_mean": "rise_time_s",
     "fall_time_s_mean": "fall_time_s",
     "overshoot_pct_worst": "overshoot_pct",
@@ -139,7 +139,7 @@ def _key_marks(ch: dict, m: dict) -> tuple[str, str]:
     and why a transition metric is missing (the first reason found)."""
     summ = ch.get("transition_summary") or {}
     bounds, missing = [], []
-    for key, src in _KEY_SOURCES.items():
+    for key, src in KEY_SOURCES.items():
         b = (summ.get(src) or {}).get("bound")
         if b and m.get(key) is not None:
             bounds.append(f"{key} {b}")
