@@ -23,6 +23,7 @@ import csv
 import json
 import math
 import os
+import sys
 import textwrap
 from collections.abc import Mapping, Sequence
 from typing import Any
@@ -628,6 +629,7 @@ def _frequency_grid(system, rate: float | None, f_range_hz) -> tuple[np.ndarray,
         mags = np.abs(roots[np.abs(roots) > 0]) / (2 * math.pi)
         if mags.size:
             lo, hi = float(mags.min()) / 30.0, float(mags.max()) * 30.0
+            lo = max(lo, sys.float_info.min)  # not 0 Hz for a root at a subnormal frequency
         else:
             lo, hi = 1.0, 1e4
         if rate is not None:

@@ -279,7 +279,7 @@ def test_python_complex_products_and_roots_keep_numpys_bits():
     vals += [complex(a, b) for a in big + [0.0, -0.0, np.nan] for b in big + [0.0, np.nan]]
     with np.errstate(all="ignore"):
         assert all(_same_bits(magnitude(v), abs(np.complex128(v))) for v in vals)
-    for t in range(200):  # and the sections still pair as zpk2sos for these low-passes
+    for _t in range(200):  # and the sections still pair as zpk2sos for these low-passes
         z, p, k = sig.butter(int(rng.integers(2, 10)) // 2 * 2, rng.uniform(0.01, 0.9),
                              output="zpk")
         assert _same_bits(_pair_zpk(z, p, k), sig.zpk2sos(z, p, k, pairing="nearest"))

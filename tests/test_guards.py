@@ -60,6 +60,19 @@ def test_high_order_integrator_has_no_traceback(tmp_path, monkeypatch):
         json.loads(res.stdout)
 
 
+@pytest.mark.parametrize("system", ["s/(s+5e-324)", "(s)^0/(s+5e-324)"])
+def test_a_root_at_a_subnormal_frequency_has_no_traceback(tmp_path, monkeypatch, system):
+    # found by tests/test_fuzz.py: the check grid's low edge (a tenth of the smallest root's
+    # frequency) underflowed to 0 Hz and numpy's geomspace raised a ValueError
+    res = _cli(tmp_path, monkeypatch, "inspect", "-s", system, "--rate", "1k", "--json")
+    assert res.exit_code in (0, 2) and isinstance(res.exception, (SystemExit, type(None)))
+    if res.exit_code == 0:
+        json.loads(res.stdout)
+    else:
+        errors = [ln for ln in res.stderr.splitlines() if ln.startswith("Error:")]
+        assert len(errors) == 1 and "Traceback" not in res.stderr
+
+
 def test_rate_and_delay_bounds():
     assert check_rate("48000") == 48000.0
     for bad in (0, -1, math.inf, math.nan, 1e-200, 1e300, "fast"):

@@ -16,6 +16,7 @@ says nothing about the output.
 from __future__ import annotations
 
 import math
+import sys
 from dataclasses import dataclass, field, fields
 from typing import Any
 
@@ -136,6 +137,7 @@ def method_check(model) -> dict[str, Any]:
     roots = np.abs(np.concatenate([np.atleast_1d(system.poles), np.atleast_1d(system.zeros)]))
     roots = roots[roots > 0]
     lo = min(rate * 1e-4, 0.1 * float(roots.min()) / (2 * np.pi)) if roots.size else rate * 1e-4
+    lo = max(lo, sys.float_info.min)  # not 0 Hz for a root at a subnormal frequency
     f = check_frequencies(system, rate, lo, 0.45 * rate, model.zpk[1])
     ha, hd = _responses(model, f)
     aa = np.abs(ha)
@@ -277,7 +279,9 @@ def _low_edge(system, rate: float) -> float:
     lo = rate * 1e-5
     if roots.size:
         lo = min(lo, 0.1 * float(np.min(roots)) / (2 * math.pi))
-    return lo
+    # a root at a subnormal frequency (5e-324 rad/s) would put the edge at 0 Hz, where no
+    # log grid starts: the smallest normal float instead (the response is flat below it)
+    return max(lo, sys.float_info.min)
 
 
 def default_band(system, rate: float) -> tuple[float, float]:

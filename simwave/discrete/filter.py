@@ -155,8 +155,9 @@ def run_sections(sos: np.ndarray, x: np.ndarray, zi: np.ndarray) -> tuple[np.nda
     transposition is done here instead, in pieces of about ``PIECE_VALUES`` values that
     stay in cache, straight into the output array; fewer channels, or a short block, get
     sosfilt's own one-piece copy. The same loop then runs on it in place: one copy, and
-    no argument handling per call (~20 us, a good part of a 1,000-sample run). The loop is sosfilt's own, per channel and per sample, on the same
-    values in the same order, so the output is bit-identical (tests/test_same_numbers.py
+    no argument handling per call (~20 us, a good part of a 1,000-sample run). The loop
+    is sosfilt's own, per channel and per sample, on the same values in the same order,
+    so the output is bit-identical (tests/test_same_numbers.py
     compares it with sosfilt, signed zeros, infinities and NaN included).
 
     Returns (y, zf) like sosfilt: y of shape (n, n_channels) (a transposed view of a
