@@ -106,34 +106,18 @@ def tidy_roots(roots: np.ndarray, rtol: float = 1e-9) -> np.ndarray:
     # neither overflow nor turn NaN, so numpy's scalars would warn about nothing either
     if all(-1e300 <= v.real <= 1e300 and -1e300 <= v.imag <= 1e300 for v in vals):
         return _tidy_roots_py(vals, rtol)
-    rest = list(roots)
-    out: list[complex] = []
-    while rest:
-        r = rest.pop(0)
-        if abs(r.imag) <= rtol * max(abs(r), 1e-300):
-            out.append(complex(r.real, 0.0))
-            continue
-        if not rest:
-            out.append(complex(r.real, 0.0))  # lone complex value: keep its real part
-            continue
-        conj = np.conj(r)
-        dist = [abs(c - conj) for c in rest]
-        if any(d != d for d in dist):  # NaN: numpy's argmin rule (the first NaN)
-            j = int(np.argmin(dist))
-        else:  # the first smallest, as argmin, without building an array
-            j = dist.index(min(dist))
-        partner = rest.pop(j)
-        mean = 0.5 * (r + np.conj(partner))
-        out.extend([mean, np.conj(mean)])
-    return np.array(out, dtype=np.complex128)
+    # otherwise the same steps on numpy's complex128 scalars, whose warnings (overflow,
+    # invalid) and NaN handling are numpy's
+    return _tidy_roots_py(list(roots), rtol)
 
 
 def _tidy_roots_py(rest: list[complex], rtol: float) -> np.ndarray:
-    """:func:`tidy_roots` on Python complex numbers (finite parts of at most 1e300):
-    the same operations on the same values (|r| is hypot(re, im) for a Python complex and
-    numpy's complex128 scalar alike; sums, products and conjugates are IEEE operations),
-    without numpy scalar overhead (tests/test_discrete_realization.py compares the two bit
-    for bit)."""
+    """:func:`tidy_roots`' steps on a list of complex scalars: Python complex numbers
+    where every part is finite and at most 1e300 (the same operations on the same values:
+    |r| is hypot(re, im) for a Python complex and numpy's complex128 scalar alike; sums,
+    products and conjugates are IEEE operations; no numpy scalar overhead;
+    tests/test_discrete_realization.py compares the two bit for bit), numpy's complex128
+    scalars otherwise."""
     out: list[complex] = []
     while rest:
         r = rest.pop(0)
