@@ -283,3 +283,18 @@ def test_python_complex_products_and_roots_keep_numpys_bits():
         z, p, k = sig.butter(int(rng.integers(2, 10)) // 2 * 2, rng.uniform(0.01, 0.9),
                              output="zpk")
         assert _same_bits(_pair_zpk(z, p, k), sig.zpk2sos(z, p, k, pairing="nearest"))
+
+
+def test_public_linalg_fallback_gives_the_same_bits(monkeypatch):
+    """Without numpy's private kernels (another numpy layout) solve and eigvals_stack take
+    numpy's public calls: the same values, bit for bit (reference: np.linalg itself)."""
+    from simwave.discrete import realization as rz
+
+    rng = np.random.default_rng(5)
+    a = rng.standard_normal((6, 4, 4))
+    b = rng.standard_normal((6, 4))
+    fast_solve, fast_eig = rz.solve(a, b[..., None]), rz.eigvals_stack(a)
+    monkeypatch.setattr(rz, "_LINALG", None)
+    assert _same_bits(rz.solve(a, b[..., None]), np.linalg.solve(a, b[..., None]))
+    assert _same_bits(fast_solve, rz.solve(a, b[..., None]))
+    assert _same_bits(fast_eig, rz.eigvals_stack(a))

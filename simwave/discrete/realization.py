@@ -23,6 +23,8 @@ try:  # numpy's own LAPACK kernels for solve/eigvals, without their Python wrapp
     from numpy.linalg import _umath_linalg as _LINALG
 except ImportError:  # another numpy layout: the public calls (same kernels, slower)
     _LINALG = None
+if _LINALG is not None and not all(hasattr(_LINALG, n) for n in ("solve", "solve1", "eigvals")):
+    _LINALG = None  # a private module without the kernels used here: the public calls
 
 
 def _singular(err, flag):
