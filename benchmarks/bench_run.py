@@ -155,10 +155,13 @@ for order in (2, 4, 8, 16):
             t0 = time.perf_counter(); f(); b = min(b, time.perf_counter() - t0)
         return b
 
-    fresh = iter([simwave.System.from_zpk(z, p, k * (1 + 1e-12 * i)) for i in range(1, 40)])
+    fresh = iter([simwave.System.from_zpk(*sig.butter(order, 2 * np.pi * 1000 * (1 + 1e-9 * i),
+                                                      analog=True, output="zpk"))
+                  for i in range(1, 40)])
 
     def cold():
-        # a system never seen before (gain changed in its 12th digit): no cache can hold it
+        # a system never seen before (its corner moved in the 9th digit: other poles and
+        # gain), so no cache keyed on any part of it can hold it
         getattr(run_module, "_PREPARED", {}).clear()
         simwave.simulate(next(fresh), w)
 
