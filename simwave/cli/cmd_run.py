@@ -118,11 +118,11 @@ def _key_cautions(metrics: dict, name: str, values: dict) -> list[tuple[str, str
     if not ch:
         return []
     out = []
+    rows = ch.get("transitions") or []
     for key, label, _unit in SUMMARY_METRICS:
         src = KEY_SOURCES.get(key)
         if src is None or not isinstance(values.get(key), (int, float)):
             continue
-        rows = ch.get("transitions") or []
         flagged = [t for t in rows if src in (t.get("cautions") or {})]
         if flagged:
             first = flagged[0]

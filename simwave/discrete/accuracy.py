@@ -134,10 +134,7 @@ def method_check(model) -> dict[str, Any]:
     """
     system = model.system
     rate = model.rate
-    roots = np.abs(np.concatenate([np.atleast_1d(system.poles), np.atleast_1d(system.zeros)]))
-    roots = roots[roots > 0]
-    lo = min(rate * 1e-4, 0.1 * float(roots.min()) / (2 * np.pi)) if roots.size else rate * 1e-4
-    lo = max(lo, sys.float_info.min)  # not 0 Hz for a root at a subnormal frequency
+    lo = _low_edge(system, rate, 1e-4)
     f = check_frequencies(system, rate, lo, 0.45 * rate, model.zpk[1])
     ha, hd = _responses(model, f)
     aa = np.abs(ha)
@@ -273,10 +270,12 @@ def _wrap_deg(rad: np.ndarray) -> np.ndarray:
     return np.degrees((rad + np.pi) % (2 * np.pi) - np.pi)
 
 
-def _low_edge(system, rate: float) -> float:
+def _low_edge(system, rate: float, fraction: float = 1e-5) -> float:
+    """Low edge (Hz) of a check grid: ``fraction`` of the rate, or a tenth of the lowest
+    root's frequency when that is lower."""
     roots = np.abs(np.concatenate([np.atleast_1d(system.zeros), np.atleast_1d(system.poles)]))
     roots = roots[roots > 0]
-    lo = rate * 1e-5
+    lo = rate * fraction
     if roots.size:
         lo = min(lo, 0.1 * float(np.min(roots)) / (2 * math.pi))
     # a root at a subnormal frequency (5e-324 rad/s) would put the edge at 0 Hz, where no
@@ -497,8 +496,7 @@ def _increment_model(system, method: str, rate: float, prewarp_hz, match_hz):
             return _impulse_design(A, B, C, D, T)
         return _hold_design(A, B, C, D, T, method, 0.0)[:4]
     des = design(system.zeros, system.poles, system.gain, rate, method,
-                 prewarp_hz=prewarp_hz, match_hz=match_hz,
-                 dc_gain=system.dc_gain if method == "matched-z" else None)  # only it reads it
+                 prewarp_hz=prewarp_hz, match_hz=match_hz)
     return des.increment
 
 
@@ -636,8 +634,7 @@ def accuracy_report(
     fractional = opts.get("fractional_delay_samples", 0.0) > 0
     if fractional:
         des0 = design(system.zeros, system.poles, system.gain, rate, model.method,
-                      prewarp_hz=opts.get("prewarp_hz"), match_hz=opts.get("match_hz"),
-                      dc_gain=system.dc_gain)
+                      prewarp_hz=opts.get("prewarp_hz"), match_hz=opts.get("match_hz"))
         zpk0 = (des0.zeros, des0.poles, des0.gain)
     else:
         zpk0 = model.zpk

@@ -317,7 +317,6 @@ def _pair_zpk(z: np.ndarray, p: np.ndarray, k: float) -> np.ndarray:
     return sos
 
 
-
 def _zpk_to_sos(zd: np.ndarray, pd: np.ndarray, kd: float) -> np.ndarray:
     """Second-order sections of k prod(z - zd)/prod(z - pd), including its pure delay.
 

@@ -329,7 +329,6 @@ def design(
     *,
     prewarp_hz: float | None = None,
     match_hz: float | None = None,
-    dc_gain: float | None = None,
     frac: float = 0.0,
 ) -> Design:
     """Discrete zeros/poles/gain of H(s) by ``method`` at ``rate`` Hz (internal).
@@ -350,10 +349,8 @@ def design(
         inc = analog_state_space(wz, wp, kd)
         return Design(zd, pd, kd, (A, B, C, D), bilinear_k=K, notes=notes, increment=inc)
     if method == "matched-z":
-        if dc_gain is None:
-            dc_gain = _dc_gain(zeros, poles, gain)
         zd, pd, kd, at, where, (wz, wp) = _matched_design(
-            zeros, poles, gain, T, rate, match_hz, dc_gain
+            zeros, poles, gain, T, rate, match_hz, _dc_gain(zeros, poles, gain)
         )
         notes["gain_matched_at_hz"] = at
         notes["gain_matched_at"] = where
@@ -636,7 +633,6 @@ def discretize(
         name,
         prewarp_hz=prewarp_hz,
         match_hz=match_hz,
-        dc_gain=system.dc_gain if name == "matched-z" else None,  # only matched-z reads it
         frac=hold_frac,
     )
     zd, pd, kd = des.zeros, des.poles, des.gain

@@ -107,13 +107,13 @@ def tidy_roots(roots: np.ndarray, rtol: float = 1e-9) -> np.ndarray:
     # finite parts at most 1e300 in size: the sums, differences, halves and hypot below
     # neither overflow nor turn NaN, so numpy's scalars would warn about nothing either
     if all(-1e300 <= v.real <= 1e300 and -1e300 <= v.imag <= 1e300 for v in vals):
-        return _tidy_roots_py(vals, rtol)
+        return _tidy_root_list(vals, rtol)
     # otherwise the same steps on numpy's complex128 scalars, whose warnings (overflow,
     # invalid) and NaN handling are numpy's
-    return _tidy_roots_py(list(roots), rtol)
+    return _tidy_root_list(list(roots), rtol)
 
 
-def _tidy_roots_py(rest: list[complex], rtol: float) -> np.ndarray:
+def _tidy_root_list(rest: list[complex], rtol: float) -> np.ndarray:
     """:func:`tidy_roots`' steps on a list of complex scalars: Python complex numbers
     where every part is finite and at most 1e300 (the same operations on the same values:
     |r| is hypot(re, im) for a Python complex and numpy's complex128 scalar alike; sums,
@@ -127,13 +127,13 @@ def _tidy_roots_py(rest: list[complex], rtol: float) -> np.ndarray:
             out.append(complex(r.real, 0.0))
             continue
         if not rest:
-            out.append(complex(r.real, 0.0))
+            out.append(complex(r.real, 0.0))  # lone complex value: keep its real part
             continue
         conj = r.conjugate()
         dist = [abs(c - conj) for c in rest]
-        if any(d != d for d in dist):
+        if any(d != d for d in dist):  # NaN: numpy's argmin rule (the first NaN)
             j = int(np.argmin(dist))
-        else:
+        else:  # the first smallest, as argmin, without building an array
             j = dist.index(min(dist))
         partner = rest.pop(j)
         mean = 0.5 * (r + partner.conjugate())

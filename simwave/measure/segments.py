@@ -68,6 +68,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from simwave.measure.joining import joined_1d
+
 #: Default part of a segment, at its end, whose median is the segment's level (the brief
 #: of this method: the last 10-20 %; our choice).
 SEGMENT_END_FRACTION = 0.2
@@ -286,24 +288,19 @@ def median(a: np.ndarray) -> float:
     """``float(np.median(a))`` of a 1-D array of finite values (at least one), without
     np.median's wrapping (a third of its cost on a few thousand samples): the same
     partition at the middle order statistics and, for an even count, the same (a + b) / 2,
-    so the same bits."""
-    n = a.size
-    h = n >> 1
-    # np.median takes np.mean of the middle one or two, whose sum starts from 0. (which
-    # makes -0. into 0.), divided by the count
-    # (numpy's partition points, the last one too, so equal values land alike)
-    if n & 1:
-        return float((0.0 + np.partition(a, (h, -1))[h]) / 1.0)
-    p = np.partition(a, (h - 1, h, -1))
-    return float(((0.0 + p[h - 1]) + p[h]) / 2.0)
+    so the same bits (:func:`median_in_place` on a copy, as np.partition makes)."""
+    return median_in_place(np.array(a))
 
 
 def median_in_place(a: np.ndarray) -> float:
     """:func:`median` of an array the caller owns and no longer needs in its order: it is
     partitioned in place (no copy). The same value: the middle order statistics do not
-    depend on the order of the samples, and the sums from 0. make -0. and 0. alike."""
+    depend on the order of the samples."""
     n = a.size
     h = n >> 1
+    # np.median takes np.mean of the middle one or two, whose sum starts from 0. (which
+    # makes -0. into 0.), divided by the count
+    # (numpy's partition points, the last one too, so equal values land alike)
     if n & 1:
         a.partition((h, -1))
         return float((0.0 + a[h]) / 1.0)
@@ -529,9 +526,8 @@ def analyse_segment(seg: Segment, y: np.ndarray, first: int, fraction: float) ->
         seg.back_k, seg.back_dev = k + 1, np.maximum.accumulate(stretch)
     if quarter_meds is not None:
         m = w_len // 4
-        meds = quarter_meds
-        seg.quarters = tuple(meds)
-        seg.drift = max(meds) - min(meds)
+        seg.quarters = tuple(quarter_meds)
+        seg.drift = max(quarter_meds) - min(quarter_meds)
         # four medians of m normal samples: each has deviation ~1.2533 sigma / sqrt(m)
         # (asymptotic variance of the median, pi sigma^2 / (2 m)); allow +/- 2 of them
         seg.allowance = 4.0 * 1.2533 * seg.noise / math.sqrt(m)
@@ -549,37 +545,6 @@ def analyse_segment(seg: Segment, y: np.ndarray, first: int, fraction: float) ->
         )
     else:
         seg.extrapolated, seg.turning_points, seg.residual, seg.tp_reason = None, 0, None, None
-
-
-def joined_1d(parts: list[np.ndarray]) -> np.ndarray:
-    """1-D float64 pieces as one array: a read-only view of the rows of the array they
-    all lie in, one after the other, when they do (slices of one record in memory), else
-    their concatenation (a copy). The same values in the same order either way."""
-    p0 = parts[0]
-    root = p0
-    while isinstance(root.base, np.ndarray):
-        root = root.base
-    size = p0.itemsize
-    if root.flags.c_contiguous and root.dtype == p0.dtype:
-        at = p0.ctypes.data
-        for p in parts:
-            if p.ndim != 1 or p.dtype != p0.dtype or (p.size > 1 and p.strides[0] != size) \
-                    or p.ctypes.data != at:
-                break
-            r = p
-            while isinstance(r.base, np.ndarray):
-                r = r.base
-            if r is not root:
-                break
-            at += p.size * size
-        else:
-            first = (p0.ctypes.data - root.ctypes.data) // size
-            n = sum(p.size for p in parts)
-            if 0 <= first and first + n <= root.size:
-                view = root.reshape(-1)[first:first + n]
-                view.flags.writeable = False
-                return view
-    return np.concatenate(parts)
 
 
 class SegmentCollector:

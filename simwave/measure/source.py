@@ -19,6 +19,7 @@ from typing import Any, Iterator
 import numpy as np
 
 from simwave.errors import MeasurementError
+from simwave.measure.joining import c_rows, joined_rows
 from simwave.signals.waveform import Waveform
 
 PathLike = (str, os.PathLike)
@@ -201,67 +202,22 @@ def _read_if_short(
     return parts, None
 
 
-def _root(a: np.ndarray) -> np.ndarray:
-    while isinstance(a.base, np.ndarray):
-        a = a.base
-    return a
-
-
-def _c_rows(p: np.ndarray) -> bool:
-    """A 2-D block in plain C order (rows one after the other, each contiguous; the
-    stride of an axis of length 1, e.g. a column added as a new axis, does not matter)."""
-    if p.ndim != 2 or not p.flags.c_contiguous:
-        return False
-    rows, width = p.shape
-    return (width <= 1 or p.strides[1] == p.itemsize) and (
-        rows <= 1 or p.strides[0] == p.itemsize * width)
-
-
-def _joined(parts: list[np.ndarray]) -> np.ndarray:
-    """The pieces as one array: the piece itself when there is one; else, when they lie one
-    after the other in the memory of one C-ordered array (consecutive row slices of a
-    record held in memory), a view of those rows, read-only (the values and C order a copy
-    would hold); else their concatenation (a copy)."""
-    if len(parts) == 1:
-        return parts[0]
-    p0 = parts[0]
-    root = _root(p0)
-    if (p0.ndim == 2 and root.flags.c_contiguous and root.dtype == p0.dtype
-            and all(_c_rows(p) and p.dtype == p0.dtype and p.shape[1] == p0.shape[1]
-                    for p in parts)):
-        width = p0.shape[1]
-        row = p0.itemsize * width
-        at = p0.ctypes.data
-        for p in parts:
-            if p.ctypes.data != at or _root(p) is not root:
-                break
-            at += p.shape[0] * row
-        else:
-            first = (p0.ctypes.data - root.ctypes.data) // p0.itemsize
-            rows = sum(p.shape[0] for p in parts)
-            if row and 0 <= first and first + rows * width <= root.size:
-                view = root.reshape(-1)[first:first + rows * width].reshape(rows, width)
-                view.flags.writeable = False
-                return view
-    return np.concatenate(parts)
-
-
 def _take(parts: list[np.ndarray], m: int) -> tuple[np.ndarray, list[np.ndarray]]:
     """The first ``m`` rows of the pieces joined (as the first ``m`` rows of their
     concatenation: the same values and memory order) and the pieces left after them.
     Where the first piece holds them and every piece is in plain C order (so a
     concatenation would be too), no copy: its own first rows."""
     p0 = parts[0]
-    if len(parts) > 1 and p0.shape[0] >= m and all(_c_rows(p) for p in parts):
+    if len(parts) > 1 and p0.shape[0] >= m and all(c_rows(p) for p in parts):
         rest = ([p0[m:]] if p0.shape[0] > m else []) + parts[1:]
         return p0[:m], rest
-    joined = _joined(parts)
+    joined = joined_rows(parts)
     return joined[:m], _rest(parts, joined, m)
 
 
 def _rest(parts: list[np.ndarray], joined: np.ndarray, m: int) -> list[np.ndarray]:
     """What is left of the pieces after their first ``m`` rows (``joined``: their
-    :func:`_joined` array): the pieces' own rows where a copy joined them and they are
+    :func:`joined_rows` array): the pieces' own rows where a copy joined them and they are
     C-ordered (a copy's rows would hold the same values in the same order, and the pieces
     may join a later piece without copying), else the rows of ``joined``."""
     if joined.shape[0] <= m:

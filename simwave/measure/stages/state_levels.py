@@ -58,10 +58,7 @@ def pass_levels(w: Work) -> None:
     for ch in chans:
         ch.windows = pl.WindowStats(wsize)
     for start, a, b in w.src.blocks():
-        # the channels' columns, outputs then references (not joined into one block: a copy)
-        cols = [a[:, i] for i in range(a.shape[1])]
-        if b is not None:
-            cols += [b[:, j] for j in range(b.shape[1])]
+        cols = work.columns(a, b)
         hist.add_columns(cols)
         for ch, col in zip(chans, cols, strict=True):
             ch.windows.feed(col)
