@@ -103,23 +103,30 @@ def worker_thread_limits(jobs: int) -> Iterator[None]:
 
 #: Modules the forkserver imports once, before it forks the workers: what running and
 #: measuring a WAV pair loads (without them a worker's first pair imported ~50 modules, 0.3
-#: s). scipy.signal alone takes 1.5-3 s to import on the 2-core test machine; imported in
-#: every worker (and in the batch process) it was paid three times per batch, now once, in
-#: the server, while the batch process plans (see PoolEngine). The batch process itself
-#: imports none of them.
-WORKER_PRELOAD = ["simwave.batch.tasks", "scipy.signal", "simwave.discrete.filter",
+#: s). Not scipy.signal: it takes 1-3 s to import on the 2-core test machine, as long as a
+#: whole batch of 60 ten-second pairs' work on two workers, and running a model needs only
+#: its compiled filter loops, which :mod:`simwave.discrete.kernels` loads without the
+#: package (nor scipy.linalg, 0.15-0.2 s, for its one LAPACK routine). A worker whose
+#: system is a named filter design imports scipy.signal on its first pair. The batch
+#: process itself imports none of them; the server starts while it plans (see PoolEngine).
+#: A batch with a named filter design among its systems adds :data:`DESIGN_PRELOAD`.
+WORKER_PRELOAD = ["simwave.batch.tasks", "simwave.discrete.filter",
                   "simwave.discrete.methods", "simwave.discrete.accuracy", "simwave.model.parse",
                   "simwave.cli.system_input", "simwave.signals.io", "simwave.signals.audio",
                   "simwave.signals.spec", "simwave.measure.core", "soundfile", "orjson"]
 
+#: What building a named filter design imports (scipy.signal's design functions): preloaded
+#: once in the server when a batch has such a system, rather than in every worker.
+DESIGN_PRELOAD = ["simwave.model.designs"]
 
-def _context() -> multiprocessing.context.BaseContext:
+
+def _context(preload: list[str] | None = None) -> multiprocessing.context.BaseContext:
     # fork is unsafe with the reader/writer threads of the pipeline (and with Dask or BLAS
     # threads in the parent); forkserver forks from a clean single-threaded server with
     # simwave already imported, spawn is the portable fallback.
     if sys.platform != "win32" and "forkserver" in multiprocessing.get_all_start_methods():
         ctx = multiprocessing.get_context("forkserver")
-        ctx.set_forkserver_preload(WORKER_PRELOAD)
+        ctx.set_forkserver_preload(WORKER_PRELOAD if preload is None else preload)
         return ctx
     return multiprocessing.get_context("spawn")
 
@@ -130,6 +137,18 @@ def _start_forkserver(ctx: multiprocessing.context.BaseContext) -> None:
         from multiprocessing import forkserver
 
         forkserver.ensure_running()
+
+
+def start_pool_server(jobs: int, preload: list[str] | None = None) -> None:
+    """Start the pool's forkserver now, importing ``preload`` (default
+    :data:`WORKER_PRELOAD`) in the background; a pool made later forks from it.
+
+    The batch command calls it before it plans, so that the server's imports (~0.5 s)
+    overlap the planning instead of following it. One server per process: the first
+    call decides its preload, later calls (and later pools) find it running.
+    """
+    with worker_thread_limits(jobs):
+        _start_forkserver(_context(preload))
 
 
 class PoolEngine:
@@ -144,20 +163,23 @@ class PoolEngine:
     name = "local pool"
     removes_temporaries = True
 
-    def __init__(self, jobs: int) -> None:
+    def __init__(self, jobs: int, preload: list[str] | None = None) -> None:
+        """``preload``: modules the forkserver imports before forking the workers
+        (default :data:`WORKER_PRELOAD`); it takes effect when the server starts (one
+        server per batch process, started by the first pool)."""
         self.jobs = int(jobs)
+        self._preload = list(WORKER_PRELOAD if preload is None else preload)
         self._executor: ProcessPoolExecutor | None = None
         self._pending: dict[Future, list[PairTask]] = {}
-        # Start the forkserver now: it imports WORKER_PRELOAD while this process reads
-        # the journal and makes the tasks.
-        with worker_thread_limits(self.jobs):
-            _start_forkserver(_context())
+        # Start the forkserver now (if the batch command has not): it imports the preload
+        # while this process reads the journal and makes the tasks.
+        start_pool_server(self.jobs, self._preload)
 
     def describe(self) -> str:
         return f"local process pool, {self.jobs} worker{'s' if self.jobs != 1 else ''}"
 
     def _new_executor(self) -> ProcessPoolExecutor:
-        ctx = _context()
+        ctx = _context(self._preload)
         with worker_thread_limits(self.jobs):
             _start_forkserver(ctx)
         return ProcessPoolExecutor(max_workers=self.jobs, mp_context=ctx,

@@ -27,7 +27,14 @@ import time
 from dataclasses import dataclass, field
 from typing import Any, Callable, Sequence
 
-from simwave.batch.engines import DaskEngine, InlineEngine, PoolEngine, default_jobs
+from simwave.batch.engines import (
+    DESIGN_PRELOAD,
+    WORKER_PRELOAD,
+    DaskEngine,
+    InlineEngine,
+    PoolEngine,
+    default_jobs,
+)
 from simwave.batch.plan import BatchPlan, Pair
 from simwave.batch.summary import (
     columns, compare_systems, pair_rows, rows_csv, write_text_atomic,
@@ -192,7 +199,20 @@ def make_engine(plan: BatchPlan, jobs: int | None = None, scheduler: Any = None,
         timeout = connect_timeout_s if connect_timeout_s is not None else plan.connect_timeout_s
         return DaskEngine(scheduler, timeout)
     n = jobs if jobs is not None else (plan.jobs if plan.jobs is not None else default_jobs())
-    return InlineEngine() if n == 1 else PoolEngine(n)
+    if n == 1:
+        return InlineEngine()
+    return PoolEngine(n, WORKER_PRELOAD + DESIGN_PRELOAD if _uses_designs(plan) else None)
+
+
+def _uses_designs(plan: Any) -> bool:
+    """Whether a system of the plan is a named filter design (its workers need scipy.signal)."""
+    for entry in getattr(plan, "systems", None) or ():
+        definition = getattr(entry, "definition", None) or ()
+        if definition[:1] == ("design",) or (
+                definition[:1] == ("table",) and isinstance(definition[1], dict)
+                and "design" in definition[1]):
+            return True
+    return False
 
 
 def run_batch(

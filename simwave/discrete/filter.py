@@ -45,7 +45,6 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-import scipy.signal as sig
 
 from simwave.discrete.incremental import (
     IncrementalModel,
@@ -53,6 +52,7 @@ from simwave.discrete.incremental import (
     section_response_difference,
     section_round_off,
 )
+from simwave.discrete.kernels import signal_package, sosfilt_loop
 from simwave.discrete.realization import (
     exp_increment,
     expm,
@@ -83,12 +83,6 @@ CHANNEL_MAJOR_FROM = 4
 #: Values (frames x channels) per transposed piece: 512 kB of float64, which stays in
 #: this machine class's 1 MB per-core L2 cache with its transposed copy beside it.
 PIECE_VALUES = 1 << 16
-
-try:  # sosfilt's own loop, without its argument handling and its internal copy
-    from scipy.signal._sosfilt import _sosfilt as _sosfilt_loop
-except ImportError:  # another scipy layout: the public call (same bits, slower)
-    _sosfilt_loop = None
-
 
 #: ``auto`` runs second-order sections while their expected round-off level
 #: (:func:`simwave.discrete.incremental.section_round_off`) stays at or below
@@ -165,10 +159,10 @@ def run_sections(sos: np.ndarray, x: np.ndarray, zi: np.ndarray) -> tuple[np.nda
     (n_sections, 2, n_channels).
     """
     n, nch = x.shape
-    if (_sosfilt_loop is None or n == 0 or x.dtype != np.float64
+    if (sosfilt_loop is None or n == 0 or x.dtype != np.float64
             or np.asarray(zi).dtype != np.float64 or sos.ndim != 2 or sos.shape[1] != 6
             or not np.all(sos[:, 3] == 1.0)):
-        return sig.sosfilt(sos, x, axis=0, zi=zi)
+        return signal_package().sosfilt(sos, x, axis=0, zi=zi)
     zi = np.asarray(zi, dtype=np.float64)
     if zi.shape != (sos.shape[0], 2, nch):
         raise ValueError(f"zi must have shape {(sos.shape[0], 2, nch)}, got {zi.shape}")
@@ -183,8 +177,34 @@ def run_sections(sos: np.ndarray, x: np.ndarray, zi: np.ndarray) -> tuple[np.nda
             np.copyto(out[:, start : start + frames], x[start : start + frames].T)
     # the loop's state layout: (channels, sections, 2), C-contiguous (a copy: zi stays)
     zc = np.array(zi.transpose(2, 0, 1), order="C")
-    _sosfilt_loop(np.ascontiguousarray(sos, dtype=np.float64), out, zc)
+    sosfilt_loop(np.ascontiguousarray(sos, dtype=np.float64), out, zc)
     return out.T, zc.transpose(1, 2, 0)
+
+
+def sections_settled_state(sos: np.ndarray) -> np.ndarray:
+    """``scipy.signal.sosfilt_zi(sos)``, same bits, without importing scipy.signal (~1 s).
+
+    Each section's state for a unit step held forever (its ``lfilter_zi``: the solution of
+    (I - A^T) zi = b[1:] - a[1:] b0 with A the companion matrix of a), scaled by the DC
+    gain of the sections before it, in the steps scipy 1.17 takes
+    (scipy/signal/_signaltools.py); tests/test_kernels.py compares the two bit for bit.
+    Sections whose a0 is not 1 go to scipy's own function.
+    """
+    sos = np.asarray(sos)
+    if sos.ndim != 2 or sos.shape[1] != 6 or sos.dtype != np.float64 or np.any(sos[:, 3] != 1.0):
+        return signal_package().sosfilt_zi(sos)
+    zi = np.empty((sos.shape[0], 2), dtype=sos.dtype)
+    scale = 1.0
+    for k in range(sos.shape[0]):
+        b = sos[k, :3]
+        a = sos[k, 3:]
+        companion = np.zeros((2, 2))
+        companion[0, :] = -a[1:] / (1.0 * a[0:1])
+        companion[1, 0] = 1
+        i_minus_a = np.eye(2) - companion.T
+        zi[k, ...] = scale * np.linalg.solve(i_minus_a, b[1:] - a[1:] * b[0])
+        scale *= np.sum(b) / np.sum(a)
+    return zi
 
 
 def _sequence(step, C: np.ndarray, v: np.ndarray, n: int) -> np.ndarray:
@@ -490,7 +510,7 @@ class DiscreteSystem:
         if pd.size == 0 and zd.size == 0:
             sos = np.array([[kd, 0.0, 0.0, 1.0, 0.0, 0.0]])
         elif kd == 0.0:
-            sos = sig.zpk2sos(np.zeros(0), pd, 1.0)
+            sos = signal_package().zpk2sos(np.zeros(0), pd, 1.0)
             sos[0, :3] = 0.0
         else:
             sos = _zpk_to_sos(zd, pd, kd)
@@ -582,7 +602,7 @@ class DiscreteSystem:
         for s in range(m):
             zi[s, 0, 2 * s] = 1.0
             zi[s, 1, 2 * s + 1] = 1.0
-        basis, _ = sig.sosfilt(self.sos, np.zeros((n, 2 * m)), axis=0, zi=zi)
+        basis, _ = run_sections(self.sos, np.zeros((n, 2 * m)), zi)
         return basis
 
     def _fit_state(self, target: np.ndarray) -> np.ndarray:
@@ -725,7 +745,7 @@ class DiscreteSystem:
                     "a settled start needs a finite DC gain, but this model has a pole at "
                     "z = 1 (an integrator, s = 0); use initial='rest'"
                 )
-            self._cache["settled"] = sig.sosfilt_zi(self.sos)
+            self._cache["settled"] = sections_settled_state(self.sos)
         return self._cache["settled"]
 
     def _zero_input_response(self, ics: np.ndarray, n: int) -> np.ndarray:
@@ -909,7 +929,7 @@ class DiscreteSystem:
         if mode == "settled":
             zi = self._settled_state()[:, :, None] * u0[None, None, :]
             if line is not None:
-                y_ss, _ = sig.sosfilt(self.sos, u0[None, :], axis=0, zi=zi)
+                y_ss, _ = run_sections(self.sos, u0[None, :], zi)
                 line = np.repeat(y_ss, self.delay_line, axis=0)
             return zi, line
         corr = self._rest_correction()

@@ -45,8 +45,8 @@ from __future__ import annotations
 import math
 
 import numpy as np
-import scipy.signal as sig
 
+from simwave.discrete.kernels import lfilter
 from simwave.discrete.realization import eigvals_stack, state_blocks
 
 __all__ = [
@@ -186,13 +186,13 @@ def _recursion(e, d: np.ndarray, x0: np.ndarray, c0: np.ndarray):
     buf = np.empty((d.shape[0] + 1,) + d.shape[1:], dtype=kind)
     buf[0] = x0
     buf[1:] = d
-    x = sig.lfilter(one, a, buf, axis=0)
+    x = lfilter(one, a, buf, axis=0)
     if abs(e) >= REFINE_BELOW:  # far from z = 1: one pass loses only eps/|e|
         return x, np.zeros_like(x)
     buf[1:] = d
     buf[1:] -= x[1:] - x[:-1] - e * x[:-1]  # minus the residual
     buf[0] = c0
-    c = sig.lfilter(one, a, buf, axis=0)
+    c = lfilter(one, a, buf, axis=0)
     return x, c
 
 

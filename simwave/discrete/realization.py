@@ -16,8 +16,8 @@ import math
 
 import numpy as np
 
+from simwave.discrete.kernels import dggev
 from simwave.errors import DiscretizationError
-import scipy.linalg as sla
 
 try:  # numpy's own LAPACK kernels for solve/eigvals, without their Python wrappers
     from numpy.linalg import _umath_linalg as _LINALG
@@ -564,7 +564,11 @@ def _generalized_eigvals(M: np.ndarray, N: np.ndarray):
     if not (np.isfinite(M).all() and np.isfinite(N).all()):
         raise ValueError("array must not contain infs or NaNs")
     if _GGEV is None:
-        _GGEV = sla.get_lapack_funcs(("ggev",), (M, N))[0]
+        _GGEV = dggev
+        if _GGEV is None:  # scipy.linalg's module not loadable by itself: its public lookup
+            import scipy.linalg
+
+            _GGEV = scipy.linalg.get_lapack_funcs(("ggev",), (M, N))[0]
     # the workspace query's answer depends on the size only (LAPACK's block sizes): asked once
     lwork = _GGEV_LWORK.get(M.shape)
     if lwork is None:

@@ -1,0 +1,133 @@
+"""scipy's compiled loops loaded without their packages (simwave.discrete.kernels).
+
+The reference for every number here is scipy itself: ``scipy.signal.lfilter``,
+``scipy.signal.sosfilt`` and ``scipy.linalg.get_lapack_funcs`` (the public calls the
+loops stand in for), compared bit for bit. The fresh-process checks run simwave's own
+paths (a file run with metrics, each method and realization; a batch) and then look at
+``sys.modules``: the point of the module is that none of them imports scipy.signal or
+scipy.linalg.
+"""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+
+from simwave.discrete import kernels
+
+
+def test_the_loops_were_loaded_from_this_scipy():
+    # if one of these is None, the public fallbacks run: correct but slower, and the
+    # batch workers would import scipy.signal again. This scipy keeps all three files.
+    assert kernels.sosfilt_loop is not None
+    assert kernels.linear_filter is not None
+    assert kernels.dggev is not None
+
+
+@pytest.mark.parametrize("kind", ["real", "complex"])
+def test_lfilter_is_scipy_lfilter_bit_for_bit(kind):
+    # the increment form's first-order recursions (incremental._recursion's call)
+    import scipy.signal as sig
+
+    rng = np.random.default_rng(11)
+    for trial in range(40):
+        n = int(rng.integers(1, 3000))
+        shape = (n,) if trial % 3 == 0 else (n, int(rng.integers(1, 5)))
+        x = rng.standard_normal(shape) * 10.0 ** float(rng.integers(-30, 30))
+        p = 1.0 - 10.0 ** float(rng.uniform(-12, -0.5))
+        if kind == "complex":
+            x = x + 1j * rng.standard_normal(shape)
+            p = p * np.exp(1j * float(rng.uniform(-3, 3)))
+        a = np.array([1.0, -p])
+        one = np.ones(1)
+        got = kernels.lfilter(one, a, x, axis=0)
+        want = sig.lfilter(one, a, x, axis=0)
+        assert got.dtype == want.dtype and got.shape == want.shape
+        assert np.array_equal(got.view(np.uint8), np.ascontiguousarray(want).view(np.uint8))
+
+
+def test_settled_state_is_scipy_sosfilt_zi_bit_for_bit():
+    # the settled start's section states (filter.sections_settled_state)
+    import scipy.signal as sig
+
+    from simwave.discrete.filter import sections_settled_state
+
+    rng = np.random.default_rng(4)
+    cases = [sig.butter(n, wn, output="sos") for n in (1, 2, 5, 8) for wn in (1e-4, 0.03, 0.4)]
+    cases += [sig.cheby1(4, 1, 0.2, btype="high", output="sos"),
+              sig.ellip(6, 0.5, 60, [0.1, 0.2], btype="band", output="sos")]
+    for _ in range(200):
+        m = int(rng.integers(1, 6))
+        sos = np.hstack([rng.standard_normal((m, 3)), np.ones((m, 1)),
+                         rng.uniform(-0.9, 0.9, (m, 2))])
+        sos[rng.random((m, 6)) < 0.1] = 0.0
+        sos[:, 3] = 1.0
+        cases.append(sos)
+    for sos in cases:
+        got = sections_settled_state(sos)
+        want = sig.sosfilt_zi(sos)
+        assert np.array_equal(got.view(np.uint64), want.view(np.uint64)), sos
+
+
+def test_ggev_is_the_routine_scipy_linalg_picks():
+    import scipy.linalg as sla
+
+    m = np.random.default_rng(2).standard_normal((4, 4))
+    assert sla.get_lapack_funcs(("ggev",), (m, np.eye(4)))[0] is kernels.dggev
+
+
+_RUN_WITHOUT_SIGNAL = r"""
+import sys
+import numpy as np
+import soundfile as sf
+import simwave
+from simwave.cli.app import main
+
+x = np.r_[np.zeros(2000), np.ones(10000)] * 0.5
+sf.write("in.wav", x, 48000, subtype="DOUBLE")
+systems = ["(2*pi*100)^2/(s^2 + 2*0.5*2*pi*100*s + (2*pi*100)^2)", "1/(2m*s + 1)",
+           "(2*pi*1k)^4/((s^2 + 0.7654*2*pi*1k*s + (2*pi*1k)^2)*(s^2 + 1.8478*2*pi*1k*s + (2*pi*1k)^2))"]
+codes = []
+for i, text in enumerate(systems):
+    for method in ("bilinear", "impulse-invariant", "step-invariant", "ramp-invariant", "matched-z"):
+        args = ["run", "in.wav", "-s", text, "--method", method,
+                "-o", f"out{i}{method}.wav", "--metrics", f"m{i}{method}.json"]
+        try:
+            main(args, standalone_mode=False)
+            codes.append(0)
+        except SystemExit as exc:
+            codes.append(exc.code)
+    for method in ("bilinear", "step-invariant", "ramp-invariant"):
+        for realization in ("sections", "incremental"):
+            model = simwave.System.parse(text).discretize(48000.0, method,
+                                                          realization=realization)
+            for initial in ("rest", "settled"):
+                assert np.isfinite(model.filter(x, initial=initial)).all()
+print(sorted(set(codes)), "scipy.signal" in sys.modules, "scipy.linalg" in sys.modules)
+
+# then the package itself: it must take the module objects already loaded
+import scipy.signal as sig
+from simwave.discrete import kernels
+from simwave.discrete.filter import run_sections
+import scipy.signal._sosfilt as loop_module
+print(loop_module is sys.modules["scipy.signal._sosfilt"],
+      loop_module._sosfilt is kernels.sosfilt_loop)
+sos = sig.butter(6, 0.05, output="sos")
+u = np.random.default_rng(1).standard_normal((5000, 3))
+zi = np.zeros((3, 2, 3))
+want, wzf = sig.sosfilt(sos, u, axis=0, zi=zi)
+got, gzf = run_sections(sos, u, zi)
+print(np.array_equal(want, got) and np.array_equal(wzf, gzf))
+"""
+
+
+def test_running_and_measuring_import_neither_scipy_signal_nor_linalg(tmp_path):
+    # a batch worker does exactly this per pair; importing scipy.signal cost it ~1 s
+    done = subprocess.run([sys.executable, "-c", _RUN_WITHOUT_SIGNAL], cwd=str(tmp_path),
+                          capture_output=True, text=True, timeout=600)
+    assert done.returncode == 0, done.stderr[-3000:]
+    lines = done.stdout.strip().splitlines()[-3:]
+    assert lines == ["[0] False False", "True True", "True"], done.stdout[-2000:]
