@@ -85,14 +85,16 @@ import numpy as np
 import soundfile as sf
 import simwave
 from simwave.cli.app import main
+from simwave.discrete import METHODS
 
 x = np.r_[np.zeros(2000), np.ones(10000)] * 0.5
 sf.write("in.wav", x, 48000, subtype="DOUBLE")
 systems = ["(2*pi*100)^2/(s^2 + 2*0.5*2*pi*100*s + (2*pi*100)^2)", "1/(2m*s + 1)",
-           "(2*pi*1k)^4/((s^2 + 0.7654*2*pi*1k*s + (2*pi*1k)^2)*(s^2 + 1.8478*2*pi*1k*s + (2*pi*1k)^2))"]
+           "(2*pi*1k)^4/((s^2 + 0.7654*2*pi*1k*s + (2*pi*1k)^2)"
+           "*(s^2 + 1.8478*2*pi*1k*s + (2*pi*1k)^2))"]
 codes = []
 for i, text in enumerate(systems):
-    for method in ("bilinear", "impulse-invariant", "step-invariant", "ramp-invariant", "matched-z"):
+    for method in METHODS:
         args = ["run", "in.wav", "-s", text, "--method", method,
                 "-o", f"out{i}{method}.wav", "--metrics", f"m{i}{method}.json"]
         try:
