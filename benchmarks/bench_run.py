@@ -1,7 +1,7 @@
 """Side-by-side benchmarks for the main job (``simulate`` / ``simwave run``).
 
 Run:  python benchmarks/bench_run.py [--minutes 10] [--repeat 3] [--baseline DIR]
-      [--only lsim|long|fixed|short]
+      [--only lsim|long|fixed|short|methods]
 
 Prints ratios measured in one process run, interleaving the contenders and
 keeping each one's best time (the machines are shared and noisy):
@@ -22,7 +22,10 @@ keeping each one's best time (the machines are shared and noisy):
 4. ``simwave run`` on a 1-second 48 kHz WAV vs the plain script, whole processes
    (start-up included): target <= 1.1x.
 
-``--baseline DIR`` runs 3. and 4. on an older checkout as well (before/after).
+5. (``--only methods``) the new-system fixed cost of 3. per method at orders 2/4/8,
+   the poor models' rate search for their warning included.
+
+``--baseline DIR`` runs 3., 4. and 5. on an older checkout as well (before/after).
 The filter core alone vs sosfilt is in bench_filter_core.py.
 """
 
@@ -191,6 +194,64 @@ def bench_fixed_cost(baseline: str | None) -> None:
         print(line + ("   (target <= 0.5 ms for order <= 8)" if order != "16" else ""))
 
 
+BY_METHOD = r"""
+import json, sys, time, warnings
+import numpy as np, scipy.signal as sig
+import simwave
+import simwave.run as run_module
+warnings.simplefilter("ignore")
+x = np.random.default_rng(0).standard_normal(1000)
+w = simwave.Waveform(x, 48000.0)
+out = {}
+for method in ("ramp-invariant", "step-invariant", "impulse-invariant", "bilinear", "matched-z"):
+    for order in (2, 4, 8):
+        z, p, k = sig.butter(order, 2 * np.pi * 1000, analog=True, output="zpk")
+        system = simwave.System.from_zpk(z, p, k)
+        sos = system.discretize(48000.0, method).sos
+        simwave.simulate(system, w, method=method)
+        fresh = iter([simwave.System.from_zpk(*sig.butter(order, 2 * np.pi * 1000 * (1 + 1e-9 * i),
+                                                          analog=True, output="zpk"))
+                      for i in range(1, 40)])
+        b = f = 1e9
+        for _ in range(int(sys.argv[1])):
+            getattr(run_module, "_PREPARED", {}).clear()
+            s = next(fresh)
+            t0 = time.perf_counter(); simwave.simulate(s, w, method=method)
+            b = min(b, time.perf_counter() - t0)
+        for _ in range(200):
+            t0 = time.perf_counter(); sig.sosfilt(sos, x); f = min(f, time.perf_counter() - t0)
+        poor = run_module.in_band_check(system.discretize(48000.0, method))["poor"]
+        out[f"{method}/{order}"] = [(b - f) * 1e3, poor]
+print(json.dumps(out))
+"""
+
+
+def bench_by_method(baseline: str | None, rounds: int) -> None:
+    """A new system's ``simulate`` fixed cost per method, Butterworth orders 2/4/8 at a
+    1 kHz corner, 48 kHz, in memory. The models the in-band check calls poor (step-
+    invariant here; bilinear and matched-z at order 8) include the rate search behind
+    their warning. The trees alternate, ``rounds`` times; each keeps its best."""
+    import json
+
+    trees = {"now": None} | ({"before": baseline} if baseline else {})
+    res: dict[str, dict] = {label: {} for label in trees}
+    for _ in range(rounds):
+        for label, tree in trees.items():
+            done = subprocess.run([python(), "-c", BY_METHOD, "15"], env=tree_env(tree),
+                                  cwd=NEUTRAL_DIR, check=True, capture_output=True, text=True)
+            for key, (ms, poor) in json.loads(done.stdout.strip().splitlines()[-1]).items():
+                old = res[label].get(key)
+                res[label][key] = [min(ms, old[0]) if old else ms, poor]
+    print(f"5. simulate fixed cost by method, a new system each call, 1,000 samples (call minus "
+          f"sosfilt), best of 15 x {rounds} rounds; * = the in-band check calls it poor")
+    for key, (ms, poor) in res["now"].items():
+        line = f"   {key:<20}{'*' if poor else ' '} now {ms:7.3f} ms"
+        if baseline:
+            before = res["before"][key][0]
+            line += f"   before {before:7.3f} ms   now/before {ms / before:5.2f}"
+        print(line)
+
+
 def bench_short_file(baseline: str | None, rounds: int) -> None:
     with tempfile.TemporaryDirectory() as tmp:
         src = os.path.join(tmp, "in.wav")
@@ -218,10 +279,14 @@ def main() -> None:
     ap.add_argument("--repeat", type=int, default=3)
     ap.add_argument("--lsim-only", action="store_true", help=argparse.SUPPRESS)
     ap.add_argument("--baseline", metavar="DIR", default=None)
-    ap.add_argument("--only", choices=("lsim", "long", "fixed", "short"), default=None)
+    ap.add_argument("--only", choices=("lsim", "long", "fixed", "short", "methods"),
+                    default=None)
     args = ap.parse_args()
     if args.only == "fixed":
         bench_fixed_cost(args.baseline)
+        return
+    if args.only == "methods":
+        bench_by_method(args.baseline, args.repeat)
         return
     if args.only == "short":
         bench_short_file(args.baseline, max(args.repeat, 5))

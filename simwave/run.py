@@ -284,7 +284,8 @@ def in_band_check(model) -> dict[str, Any]:
 
 
 def _poor_model_warning(
-    check: dict[str, Any], accuracy: dict[str, Any] | None, factor: int, model=None
+    check: dict[str, Any], accuracy: dict[str, Any] | None, factor: int, model=None,
+    advice=None,
 ) -> str:
     from simwave.discrete.accuracy import method_warning
 
@@ -293,7 +294,7 @@ def _poor_model_warning(
     return method_warning(
         check, accuracy, method, rate, factor,
         system=model.system if model is not None else None,
-        realization=model.options if model is not None else None,
+        realization=model.options if model is not None else None, advice=advice,
     )
 
 
@@ -341,6 +342,8 @@ class _PreparedModel:
     model_warnings: list[str]
     _accuracy: dict[str, Any] | None = None
     accuracy_warnings: list[str] = field(default_factory=list)
+    _advice: Any = None
+    advice_warnings: list[str] = field(default_factory=list)
 
     def full_accuracy(self) -> dict[str, Any]:
         if self._accuracy is None:
@@ -349,6 +352,24 @@ class _PreparedModel:
                 self._accuracy = self.model.accuracy(suggest=True).to_dict()
             self.accuracy_warnings = [str(w.message) for w in wlist]
         return copy.deepcopy(self._accuracy)
+
+    def rate_advice(self) -> tuple[Any, list[str]]:
+        """(what a poor model's warning reads from the rate search, the warnings raised
+        while finding it): the full report's when made, else the shorter search's
+        (`accuracy.rate_advice`: the same warning text for a fraction of the cost)."""
+        from simwave.discrete.accuracy import RateAdvice, rate_advice
+
+        if self._accuracy is None and self._advice is None:
+            with warnings.catch_warnings(record=True) as wlist:
+                warnings.simplefilter("always")
+                self._advice = rate_advice(self.model)
+            self.advice_warnings = [str(w.message) for w in wlist]
+        if self._advice is None:  # the full report made, or asked for by rate_advice
+            self.full_accuracy()
+            return (RateAdvice.from_rates(self.model.method, self.model.rate,
+                                          self._accuracy["suggested_rate_hz"]),
+                    self.accuracy_warnings)
+        return self._advice, self.advice_warnings
 
 
 #: Recently used discrete models, by system content and discretization options. Everything
@@ -483,15 +504,21 @@ def simulate(
             prep = _prepared_model(sys_, model_rate, method, prewarp_hz, delay_s, match_hz)
             model, check = prep.model, _copy_check(prep.check)
             # The full report (with the suggested-rate search) costs tens of milliseconds:
-            # made for file runs, whose summary prints it, and whenever the model is poor.
-            full = output is not None or check["poor"]
-            accuracy = prep.full_accuracy() if full else None
-        caught: list[str] = list(prep.warnings) + (list(prep.accuracy_warnings) if full else [])
+            # made for file runs, whose summary prints it; a poor model's warning in an
+            # in-memory run needs only part of the search (prep.rate_advice).
+            accuracy = advice = None
+            found: list[str] = []
+            if output is not None:
+                accuracy = prep.full_accuracy()
+                found = prep.accuracy_warnings
+            elif check["poor"]:
+                advice, found = prep.rate_advice()
+        caught: list[str] = list(prep.warnings) + list(found)
         for text in prep.model_warnings:
             if text not in caught:
                 caught.append(text)
         if check["poor"]:
-            caught.append(_poor_model_warning(check, accuracy, factor, model))
+            caught.append(_poor_model_warning(check, accuracy, factor, model, advice))
         over_info = None
         if factor > 1:
             base = _prepared_model(sys_, src.rate, method, prewarp_hz, delay_s, match_hz)

@@ -200,8 +200,13 @@ _MEANING = {
 
 def method_warning(check: dict[str, Any], accuracy: dict[str, Any] | None, method: str,
                    rate: float, factor: int = 1, system=None,
-                   realization: dict[str, Any] | None = None) -> str:
-    """The one-paragraph warning for a poor model: how far off, what it means, what to do."""
+                   realization: dict[str, Any] | None = None,
+                   advice: RateAdvice | None = None) -> str:
+    """The one-paragraph warning for a poor model: how far off, what it means, what to do.
+
+    The suggested rates come from ``accuracy`` (a report's dict) or, when given,
+    ``advice`` (:func:`rate_advice`: the same text, from a shorter search).
+    """
     f = check["sine_error_at_hz"]
     text = (
         f"the {method} model is off by {100 * check['max_sine_error']:.3g} % of the largest "
@@ -224,17 +229,21 @@ def method_warning(check: dict[str, Any], accuracy: dict[str, Any] | None, metho
     res = _nearest_resonance(system, f) if system is not None else None
     if method == "bilinear" and res is not None:
         remedies.append(f"prewarp at the resonance ({res[0]:.6g} Hz, Q = {res[1]:.3g})")
-    rates = {m: r for m, r in ((accuracy or {}).get("suggested_rate_hz") or {}).items() if r}
-    own = rates.get(method)
+    if advice is not None:
+        own, others, searched = advice.own_hz, list(advice.within), True
+    else:
+        rates = {m: r for m, r in ((accuracy or {}).get("suggested_rate_hz") or {}).items() if r}
+        own = rates.get(method)
+        others = [m for m, r in rates.items() if m != method and r is not None and r <= rate]
+        searched = accuracy is not None
     if own and own > rate:
         step = f"raise the rate to {own:.6g} Hz or more"
         if method in ("bilinear", "impulse-invariant", "matched-z"):
             step += f" (or oversample >= {int(np.ceil(own / rate)) * factor})"
         remedies.append(step)
-    elif own is None and accuracy is not None:
+    elif own is None and searched:
         remedies.append("no rate up to 1e6 x the band edge brings this method within the "
                         "limit")
-    others = [m for m, r in rates.items() if m != method and r is not None and r <= rate]
     if others:
         remedies.append(f"use {' or '.join(others)} (within the limit at this rate)")
     elif method == "step-invariant":
@@ -537,8 +546,38 @@ def suggest_rates(
     rate. Search: doubling from band_high/0.45 until the error is under the
     limit (up to 2^20 times), then 8 bisection steps on a log scale; this
     assumes the error falls as the rate rises, as it does for all five methods
-    once the rate is well above the system's frequencies.
+    once the rate is well above the system's frequencies. Each search stops as
+    soon as its rounded result is decided (:func:`_search_rate`): the same rates.
     """
+    f, ha, floor, x, r0 = _search_inputs(system, band, mask_f, limit_db)
+    out: dict[str, float | None] = {}
+    for method in METHODS:
+        def err(r: float, method: str = method) -> float:
+            return _method_error(system, method, r, f, ha, floor, prewarp_hz, match_hz)
+
+        out[method] = _search_rate(err, r0, x)
+    return out
+
+
+def _advise(system, band, mask_f, limit_db, prewarp_hz, match_hz, method: str,
+            rate: float) -> RateAdvice:
+    """:class:`RateAdvice` from :func:`suggest_rates`' searches on these arguments: the
+    own method's to its rate, the others' until within ``rate`` or not is decided."""
+    f, ha, floor, x, r0 = _search_inputs(system, band, mask_f, limit_db)
+
+    def search(m: str, within_hz: float | None):
+        def err(r: float) -> float:
+            return _method_error(system, m, r, f, ha, floor, prewarp_hz, match_hz)
+
+        return _search_rate(err, r0, x, within_hz)
+
+    own = search(method, None) if method in METHODS else None
+    within = tuple(m for m in METHODS if m != method and search(m, rate))
+    return RateAdvice(method, rate, own, within)
+
+
+def _search_inputs(system, band, mask_f, limit_db):
+    """(f, H(j 2 pi f), floor, relative limit, first candidate rate) of the rate search."""
     f = mask_f
     if f.size > 160:
         keep = np.linspace(0, f.size - 1, 160).astype(int)
@@ -549,33 +588,92 @@ def suggest_rates(
     floor = 0.1 * peak
     x = 10 ** (limit_db / 20) - 1
     r0 = band[1] / 0.45
-    out: dict[str, float | None] = {}
-    for method in METHODS:
-        def err(r: float, method: str = method) -> float:
-            return _method_error(system, method, r, f, ha, floor, prewarp_hz, match_hz)
+    return f, ha, floor, x, r0
 
-        if err(r0) <= x:
-            out[method] = _round_up(r0)
-            continue
-        lo, hi = r0, None
-        r = r0
-        for _ in range(20):
-            r *= 2
-            if err(r) <= x:
-                hi = r
-                break
-            lo = r
-        if hi is None:
-            out[method] = None
-            continue
-        for _ in range(8):
-            mid = math.sqrt(lo * hi)
-            if err(mid) <= x:
-                hi = mid
-            else:
-                lo = mid
-        out[method] = _round_up(hi)
-    return out
+
+#: _search_rate's bracket does not decide the answer yet.
+_OPEN = object()
+
+
+def _search_rate(err, r0: float, x: float, within_hz: float | None = None):
+    """One method's rate search (see :func:`suggest_rates`): the lowest rate found with
+    ``err(rate) <= x``, rounded up (:func:`_round_up`), or None when not reached; with
+    ``within_hz``, whether that rate is found and at or below ``within_hz``.
+
+    With ``within_hz`` the search stops as soon as that is decided, having evaluated the
+    same rates in the same order as the full search up to there. Why that gives the
+    full search's answer: the rate found (the bisection's final upper end) always lies
+    above every rate that failed (``lo``; a bisection point equal to ``lo`` fails
+    again, err being a function of the rate) and at or below every rate that passed
+    (``hi``); and the rounding up is monotone (:func:`_rounding_range`). So once every
+    rate above lo rounds above ``within_hz``, the answer is False whatever follows (not
+    reached counts as not within); once hi rounds to ``within_hz`` or below, True.
+    Neither needs err to fall as the rate rises. (Stopping the full search once all of
+    (lo, hi] rounds to one value saved 0.4 % of its evaluations on the test systems: the
+    bisection ends at a ratio of 2^(1/256), under most rounding steps; not done.)
+    """
+    def decided(lo: float, hi: float | None):
+        low, high = _rounding_range(lo, hi)
+        if low is not None and low > within_hz:
+            return False
+        if high is not None and high <= within_hz:
+            return True
+        return _OPEN
+
+    def answer(rounded):
+        if within_hz is None:
+            return rounded
+        return rounded is not None and rounded <= within_hz
+
+    if err(r0) <= x:
+        return answer(_round_up(r0))
+    lo, hi = r0, None
+    r = r0
+    for _ in range(20):
+        if within_hz is not None:
+            d = decided(lo, None)
+            if d is not _OPEN:
+                return d
+        r *= 2
+        if err(r) <= x:
+            hi = r
+            break
+        lo = r
+    if hi is None:
+        return answer(None)
+    for _ in range(8):
+        if within_hz is not None:
+            d = decided(lo, hi)
+            if d is not _OPEN:
+                return d
+        mid = math.sqrt(lo * hi)
+        if err(mid) <= x:
+            hi = mid
+        else:
+            lo = mid
+    return answer(_round_up(hi))
+
+
+def _rounding_range(lo: float, hi: float | None) -> tuple[Any, Any]:
+    """(least, greatest) value :func:`_round_up` gives any rate in (lo, hi], each None
+    where it cannot be told (hi None: no greatest). The rounding is monotone wherever
+    its arithmetic is exact: from 100 Hz on it is Python integer arithmetic on one
+    float division by a power of ten (ceil(x / 10^e) * 10^e, e >= 0; at a decade's
+    edge both sides give 10^k). Below 100 Hz (a float 10^e) monotonicity is only
+    claimed within one decade, where the scale is one fixed float; so there the range
+    is told only when both ends share a decade."""
+    below = math.nextafter(lo, math.inf)  # the least rate above lo
+    low = _round_up(below)
+    high = None if hi is None else _round_up(hi)
+    if below >= 100.0:
+        return low, high
+    if hi is not None and _decade(below) == _decade(hi):
+        return low, high
+    return None, None
+
+
+def _decade(x: float) -> int:
+    return math.floor(math.log10(x))
 
 
 def _analog_h(system, f: np.ndarray) -> np.ndarray:
@@ -618,6 +716,14 @@ def accuracy_report(
     .. [2] Franklin, Powell & Workman, *Digital Control of Dynamic Systems*,
            3rd ed., sec. 6.3 (comparison of the hold equivalents and matched z).
     """
+    report, search_args = _report_without_rates(model, band_hz, limit_db)
+    if suggest:
+        report.suggested_rate_hz = suggest_rates(*search_args)
+    return report
+
+
+def _report_without_rates(model, band_hz: Any, limit_db: float):
+    """(the accuracy report with no suggested rates, suggest_rates' arguments)."""
     limit = float(limit_db)
     if not (math.isfinite(limit) and limit > 0):
         raise DiscretizationError(f"error limit must be a positive number of dB, got {limit_db!r}")
@@ -686,13 +792,9 @@ def accuracy_report(
             f"exact at the samples for inputs {reading} between samples; the frequency "
             "errors show what other inputs see"
         )
-    suggested = {}
-    if suggest:
-        suggested = suggest_rates(
-            system, (lo, hi), f[mask], limit, opts.get("prewarp_hz"),
-            opts.get("match_hz") if model.method == "matched-z" else None,
-        )
-    return AccuracyReport(
+    search_args = (system, (lo, hi), f[mask], limit, opts.get("prewarp_hz"),
+                   opts.get("match_hz") if model.method == "matched-z" else None)
+    report = AccuracyReport(
         method=model.method,
         rate_hz=rate,
         band_hz=(float(lo), float(hi)),
@@ -707,7 +809,7 @@ def accuracy_report(
         dead_time_max_phase_error_deg=dt_ph,
         dead_time_max_mag_error_db=dt_mag,
         error_limit_db=limit,
-        suggested_rate_hz=suggested,
+        suggested_rate_hz={},
         warnings=list(model.warnings),
         notes=notes,
         max_sine_error=float(sine[i_sine]),
@@ -715,9 +817,52 @@ def accuracy_report(
         realization=getattr(model, "realization", None),
         round_off_level=getattr(model, "round_off_level", None),
     )
+    return report, search_args
 
 
-__all__ += ["default_band", "suggest_rates", "peak_frequency"]
+@dataclass(frozen=True)
+class RateAdvice:
+    """What a poor model's warning reads from the rate search (:func:`method_warning`).
+
+    ``own_hz``: the model's own method's suggested rate (None: not reached);
+    ``within``: the other methods whose suggested rate is at or below the model's
+    rate, in :data:`METHODS` order.
+    """
+
+    method: str
+    rate_hz: float
+    own_hz: float | None
+    within: tuple[str, ...]
+
+    @classmethod
+    def from_rates(cls, method: str, rate: float, rates: dict[str, Any]) -> RateAdvice:
+        """The advice a full report's ``suggested_rate_hz`` gives."""
+        return cls(method, rate, rates.get(method) or None,
+                   tuple(m for m, r in rates.items() if m != method and r and r <= rate))
+
+
+def rate_advice(model, limit_db: float = DEFAULT_LIMIT_DB) -> RateAdvice | None:
+    """:class:`RateAdvice` for ``model`` (default band), as the full report's rates give
+    it, at a fraction of its cost: the model's own method is searched to its rounded
+    rate, the others only until whether theirs is at or below the model's rate is
+    decided (:func:`_search_rate`).
+
+    Everything the report computes besides the rates is computed as the report does it,
+    so a warning it raises (numpy's, on a response value) is raised here too. Returns
+    None when the searches raise a warning: the full search might raise more in the
+    rates this one skips, so the caller makes the full report instead (no test system
+    does; see tests/test_rate_advice.py).
+    """
+    import warnings as _w
+
+    _, args = _report_without_rates(model, None, limit_db)
+    with _w.catch_warnings(record=True) as caught:
+        _w.simplefilter("always")
+        advice = _advise(*args, model.method, model.rate)
+    return None if caught else advice
+
+
+__all__ += ["default_band", "suggest_rates", "peak_frequency", "RateAdvice", "rate_advice"]
 
 
 def discrete_section(
