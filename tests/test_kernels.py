@@ -133,3 +133,36 @@ def test_running_and_measuring_import_neither_scipy_signal_nor_linalg(tmp_path):
     assert done.returncode == 0, done.stderr[-3000:]
     lines = done.stdout.strip().splitlines()[-3:]
     assert lines == ["[0] False False", "True True", "True"], done.stdout[-2000:]
+
+
+_WORKER_IMPORTS = r"""
+import importlib, sys
+import numpy as np
+import soundfile as sf
+from simwave.batch.engines import WORKER_PRELOAD
+for name in WORKER_PRELOAD:
+    importlib.import_module(name)
+from simwave.batch.plan import quick_plan
+from simwave.batch.runner import run_batch
+rng = np.random.default_rng(3)
+for i in range(2):
+    x = np.zeros(48000)
+    x[9000 + 5000 * i:] = 0.3
+    x += 1e-3 * rng.standard_normal(x.size)
+    sf.write(f"rec{i}.wav", x, 48000, subtype="FLOAT")
+plan = quick_plan(["(2*pi*100)^2/(s^2 + 2*0.5*2*pi*100*s + (2*pi*100)^2)", "1/(2m*s + 1)"],
+                  ["rec0.wav", "rec1.wav"], "out")
+before = set(sys.modules)
+result = run_batch(plan, jobs=1)
+print(result.counts["ok"], sorted(set(sys.modules) - before))
+"""
+
+
+def test_a_batch_pair_imports_nothing_beyond_the_worker_preload(tmp_path):
+    # what a pool worker imports on its first pairs it pays once per worker (scipy.ndimage
+    # alone was 0.25-0.3 s); the forkserver's preload (engines.WORKER_PRELOAD) should hold
+    # all of it. Noisy steps whose level histograms take the narrow smoothing kernel.
+    done = subprocess.run([sys.executable, "-c", _WORKER_IMPORTS], cwd=str(tmp_path),
+                          capture_output=True, text=True, timeout=600)
+    assert done.returncode == 0, done.stderr[-3000:]
+    assert done.stdout.strip().splitlines()[-1] == "4 []", done.stdout[-3000:]

@@ -103,7 +103,7 @@ def worker_thread_limits(jobs: int) -> Iterator[None]:
 
 #: Modules the forkserver imports once, before it forks the workers: what running and
 #: measuring a WAV pair loads (without them a worker's first pair imported ~50 modules, 0.3
-#: s). Not scipy.signal: it takes 1-3 s to import on the 2-core test machine, as long as a
+#: s; tests/test_kernels.py checks that a pair imports nothing beyond them). Not scipy.signal: it takes 1-3 s to import on the 2-core test machine, as long as a
 #: whole batch of 60 ten-second pairs' work on two workers, and running a model needs only
 #: its compiled filter loops, which :mod:`simwave.discrete.kernels` loads without the
 #: package (nor scipy.linalg, 0.15-0.2 s, for its one LAPACK routine). A worker whose
@@ -113,7 +113,11 @@ def worker_thread_limits(jobs: int) -> Iterator[None]:
 WORKER_PRELOAD = ["simwave.batch.tasks", "simwave.discrete.filter",
                   "simwave.discrete.methods", "simwave.discrete.accuracy", "simwave.model.parse",
                   "simwave.cli.system_input", "simwave.signals.io", "simwave.signals.audio",
-                  "simwave.signals.spec", "simwave.measure.core", "soundfile", "orjson"]
+                  "simwave.signals.spec", "simwave.measure.core", "soundfile", "orjson",
+                  # numpy's lazily loaded parts a pair uses (spectra, the turning-point
+                  # polynomial, np.unique's masked-array path): ~40 ms once, not per worker
+                  "numpy.fft", "numpy.polynomial", "numpy.ma",
+                  "resource"]  # the writers' room check (signals.atomic)
 
 #: What building a named filter design imports (scipy.signal's design functions): preloaded
 #: once in the server when a batch has such a system, rather than in every worker.
