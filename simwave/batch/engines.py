@@ -103,13 +103,14 @@ def worker_thread_limits(jobs: int) -> Iterator[None]:
 
 #: Modules the forkserver imports once, before it forks the workers: what running and
 #: measuring a WAV pair loads (without them a worker's first pair imported ~50 modules, 0.3
-#: s; tests/test_kernels.py checks that a pair imports nothing beyond them). Not scipy.signal: it takes 1-3 s to import on the 2-core test machine, as long as a
-#: whole batch of 60 ten-second pairs' work on two workers, and running a model needs only
-#: its compiled filter loops, which :mod:`simwave.discrete.kernels` loads without the
-#: package (nor scipy.linalg, 0.15-0.2 s, for its one LAPACK routine). A worker whose
-#: system is a named filter design imports scipy.signal on its first pair. The batch
-#: process itself imports none of them; the server starts while it plans (see PoolEngine).
-#: A batch with a named filter design among its systems adds :data:`DESIGN_PRELOAD`.
+#: s; tests/test_kernels.py checks that a pair imports nothing beyond them). Not
+#: scipy.signal: it takes 1-3 s to import on the 2-core test machine, as long as a whole
+#: batch of 60 ten-second pairs' work on two workers, and running a model needs only its
+#: compiled filter loops, which :mod:`simwave.discrete.kernels` loads without the package
+#: (nor scipy.linalg, 0.15-0.2 s, for its one LAPACK routine). The batch process itself
+#: imports none of them; the server starts while it plans (see PoolEngine). A batch with a
+#: named filter design among its systems adds :data:`DESIGN_PRELOAD`; a worker given one
+#: in a system file imports scipy.signal on its first such pair.
 WORKER_PRELOAD = ["simwave.batch.tasks", "simwave.discrete.filter",
                   "simwave.discrete.methods", "simwave.discrete.accuracy", "simwave.model.parse",
                   "simwave.cli.system_input", "simwave.signals.io", "simwave.signals.audio",

@@ -196,7 +196,7 @@ def narrow_gaussian(w: np.ndarray, h_bins: float) -> np.ndarray:
     if nz.size == 0:
         return out
     gaps = np.flatnonzero(np.diff(nz) > 2 * radius + _SPLIT_GAP)
-    for first, last in zip(np.r_[nz[0], nz[gaps + 1]], np.r_[nz[gaps], nz[-1]]):
+    for first, last in zip(np.r_[nz[0], nz[gaps + 1]], np.r_[nz[gaps], nz[-1]], strict=True):
         lo, hi = max(int(first) - radius, 0), min(int(last) + radius, n - 1)
         m = hi - lo + 1
         pad = np.zeros(m + 2 * radius)  # inputs lo - r .. hi + r, zero beyond the ends
