@@ -380,3 +380,25 @@ def test_bilinear_suggested_rate_where_the_warping_formula_crosses_the_limit():
     assert method_check(model)["poor"]
     advice = rate_advice(model)
     assert advice.own_hz == model.accuracy().suggested_rate_hz["bilinear"]
+
+
+def test_in_memory_poor_run_makes_the_advice_not_the_report(tmp_path):
+    """Which search a run pays for: an in-memory run of a poor model keeps the advice
+    only; a file run of the same prepared model then makes the full report (its summary
+    prints all five rates) and a later in-memory run reads the advice kept."""
+    z, p, k = sig.butter(2, 2 * np.pi * 1000, analog=True, output="zpk")
+    system = System.from_zpk(z, p, k)
+    x = 0.01 * np.random.default_rng(3).standard_normal(400)
+    run_module._PREPARED.clear()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        simwave.simulate(system, Waveform(x, 48000.0), method="step-invariant")
+        (prep,) = run_module._PREPARED.values()
+        assert prep.check["poor"]
+        assert prep._advice is not None and prep._accuracy is None
+        report = simwave.simulate(system, Waveform(x, 48000.0), method="step-invariant",
+                                  output=tmp_path / "out.wav")
+        assert prep._accuracy is not None
+        assert set(report.accuracy["suggested_rate_hz"]) == set(METHODS)
+        assert prep._advice == RateAdvice.from_rates(
+            "step-invariant", 48000.0, report.accuracy["suggested_rate_hz"])
