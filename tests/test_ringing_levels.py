@@ -379,7 +379,8 @@ def test_segment_options():
 
 def test_first_order_top_still_approaching():
     # A 10 ms pulse through a first-order lag of tau = 5 ms: the top reaches only
-    # 1 - e^-2 = 86.5 % and is still rising at the falling edge. Its level is the last value
+    # 1 - e^-2 = 86.5 % and is still rising at the falling edge. Given the system (one
+    # real pole, no zero: its step response cannot turn back), its level is the last value
     # reached, flagged as a lower bound; the rise time between 0 and that level L follows
     # from y = 1 - e^(-t/tau) (first-order step response, common practice):
     # t_10-90 = tau ln((1 - 0.1 L) / (1 - 0.9 L)).
@@ -392,7 +393,8 @@ def test_first_order_top_still_approaching():
 
     y = lag(t - t1) - lag(t - t1 - 0.01)
     x = ((t > t1) & (t < t1 + 0.01)).astype(float)
-    rise = measure(Waveform(y, fs), Waveform(x, fs)).to_dict()["channels"][0]["transitions"][0]
+    rise = measure(Waveform(y, fs), Waveform(x, fs), system="1/(5m*s + 1)").to_dict()[
+        "channels"][0]["transitions"][0]
     top = rise["final_level"]
     assert rise["final_level_detail"]["method"] == "segment end, still approaching"
     assert 1 - math.exp(-1.9) < top < 1 - math.exp(-2.0)  # the last few samples' value
@@ -405,3 +407,40 @@ def test_first_order_top_still_approaching():
     assert rise["bounds"]["rise_time_s"] == "lower"
     assert rise["settling_time_s"] == pytest.approx(0.01, abs=2.0 / fs)
     assert rise["overshoot_pct"] is None and "approaching" in rise["null_reasons"]["overshoot_pct"]
+    # without the system the same output could be ringing past its final level: no bound,
+    # no number, a reason
+    bare = measure(Waveform(y, fs), Waveform(x, fs)).to_dict()["channels"][0]["transitions"][0]
+    assert bare["final_level"] is None and bare.get("bounds") is None
+    assert bare["rise_time_s"] is None and "not established" in bare["null_reasons"]["rise_time_s"]
+    assert "cannot be told from ringing" in bare["final_level_detail"]["note"]
+    assert bare["level_change_gain"] is None and bare["null_reasons"]["level_change_gain"]
+    # given the system, the level change over the input's is a bound too (|gain| >= it)
+    assert rise["bounds"]["level_change_gain"] == "lower"
+    assert rise["level_change_gain"] == pytest.approx(top, rel=1e-12)
+
+
+@pytest.mark.parametrize("system_given", [False, True])
+def test_underdamped_output_cut_before_its_first_peak_gets_no_wrong_bound(system_given):
+    # zeta = 0.3, 50 Hz: the step response crosses its final level 1 at
+    # t = (pi - acos zeta) / wd and peaks at pi / wd, 37.2 % over (Ogata, Modern Control
+    # Engineering, 5th ed., sec. 5-3). A record cut in between ends above 1 and still
+    # rising: taken as "still approaching", its last value was reported as a lower bound
+    # on a final level it has already passed. It must give no final level and no metric
+    # built on it, with the reason; given the system (complex poles) the same.
+    import scipy.signal as sig
+
+    fs, zeta, wn = 10_000.0, 0.3, 2 * math.pi * 50
+    wd = wn * math.sqrt(1 - zeta**2)
+    crossing, peak = (math.pi - math.acos(zeta)) / wd, math.pi / wd
+    text = f"{wn**2!r}/(s^2 + {2 * zeta * wn!r}*s + {wn**2!r})"
+    for frac in (0.3, 0.6, 0.9):
+        t = np.arange(int((0.1 + crossing + frac * (peak - crossing)) * fs)) / fs
+        x = (t >= 0.1).astype(float)
+        y = sig.lsim(([wn**2], [1, 2 * zeta * wn, wn**2]), x, t)[1]  # scipy's simulation
+        assert y[-1] > 1.0 and y[-1] > y[-2]
+        row = measure(Waveform(y, fs), Waveform(x, fs),
+                      system=text if system_given else None).to_dict()[
+            "channels"][0]["transitions"][0]
+        assert row["final_level"] is None and not row.get("bounds"), (frac, row.get("bounds"))
+        for key in ("rise_time_s", "overshoot_pct", "settling_time_s"):
+            assert row[key] is None and row["null_reasons"].get(key), (frac, key)

@@ -175,6 +175,26 @@ def _describe(system: Any) -> str:
     return f"zeros {roots(system.zeros)}, poles {roots(system.poles)} rad/s, gain {system.gain:.6g}"
 
 
+def monotone_step(system: Any) -> bool:
+    """Whether ``system``'s step response certainly never turns back: every pole real, no
+    finite zero (any dead time only shifts it).
+
+    H(s) = k / prod(s - p_i) with real p_i has for impulse response k times the
+    convolution of the exponentials e^(p_i t), t >= 0, each positive, so it keeps the
+    sign of k and the step response (its integral) is monotone; stable or not. A
+    sufficient condition only: monotone systems with zeros (a real zero left of the
+    poles, as in many lead networks) are not recognised, and answer False.
+    """
+    if system is None:
+        return False
+    try:
+        poles = np.asarray(system.poles, dtype=complex)
+        zeros = np.asarray(system.zeros, dtype=complex)
+    except (AttributeError, TypeError, ValueError):
+        return False
+    return zeros.size == 0 and poles.size > 0 and bool(np.all(poles.imag == 0.0))
+
+
 def predictions_for(system: Any, o: Any, rate: float) -> Predictions:
     """Predictions of ``system`` (None: nothing predicted) and the tolerances to use."""
     p = Predictions(gain_tol_db=o.gain_tolerance_db, phase_tol_deg=o.phase_tolerance_deg)

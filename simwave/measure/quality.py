@@ -180,6 +180,12 @@ def _approach_bounds(row: dict, after, reasons: dict, segment_end_s: float | Non
         if row.get(key) is not None:
             bounds[key] = "lower"
             why[key] = "the final level is a bound, so the far reference levels lie farther on"
+    gain = row.get("level_change_gain")
+    if gain:
+        # the output moves on away from its initial level: its level change only grows
+        bounds["level_change_gain"] = "lower" if gain > 0 else "upper"
+        why["level_change_gain"] = (
+            "the final level is a bound, so the level change is at least this in size")
     for key in ("overshoot_pct", "undershoot_pct"):
         if row.get(key) is not None:
             row[key] = None

@@ -415,6 +415,11 @@ def transition_row(
                 reasons[k] = (
                     f"{why}: the reference levels, and so this instant, are not known"
                 )
+        if row.get("level_change_gain") is not None:
+            # the output's level change over the input's: its provisional level is no
+            # measured gain (a still-moving end read as one looked like a gain error)
+            row["level_change_gain"] = None
+            reasons["level_change_gain"] = f"{why}: the output's level change is not known"
     elif (
         si is not None
         and (after := segment_after(w, ch, index, e)) is not None

@@ -24,6 +24,7 @@ from simwave.measure import plateaus as pl
 from simwave.measure import segments as seg
 from simwave.measure import steady_parts as sp
 from simwave.measure.options import MIN_WINDOW, MeasureOptions
+from simwave.measure.predict import monotone_step
 from simwave.measure.source import MeasureSource
 from simwave.measure.transient import Edge, EdgeFinder, EdgeRegions
 
@@ -293,10 +294,10 @@ def decide(w: Work, segs: list, ch: Channel, strict: bool = True) -> None:
         # (provisional levels, strict=False, are measured again: not judged so closely)
         for i in range(1, len(segs)):
             held_too_briefly(w, segs, i, ch.tail_moving and i == len(segs) - 1)
-    if not w.refs:
+    if not (w.refs and monotone_step(w.system)):
         for s in segs:
             if s.method == seg.METHOD_APPROACHING:
-                not_a_bound(s)
+                not_a_bound(s, with_input=bool(w.refs))
 
 
 #: Without a reference input, a segment after a transition counts as settled only when the
@@ -309,13 +310,25 @@ def decide(w: Work, segs: list, ch: Channel, strict: bool = True) -> None:
 LAST_DWELL_GAPS = 1.5
 
 
-def not_a_bound(s: seg.Segment) -> None:
-    """Without a reference input, a segment end still moving on without turning back
-    gives no bound on its level: a first-order lag would stop short of where it goes,
-    but an underdamped output between reaching its final level and its first peak moves
-    the same way and has already passed it; the output alone does not tell them apart.
-    The level is not established (its last value stays in the level detail)."""
+def not_a_bound(s: seg.Segment, with_input: bool = False) -> None:
+    """A segment end still moving on without turning back gives no bound on its level
+    unless the system is known not to ring: a first-order lag would stop short of where
+    it goes, but an underdamped output between reaching its final level and its first
+    peak moves the same way and has already passed it; neither the output nor the input
+    tells them apart (the input's step says when, not how far). The level is not
+    established (its last value stays in the level detail). With the input and a system
+    whose step response is monotone (:func:`simwave.measure.predict.monotone_step`) the
+    last value is kept as a bound."""
     s.method = seg.METHOD_UNSETTLED
+    if with_input:
+        s.note = (
+            f"still moving on at the end of the segment without turning back (last value "
+            f"{s.end_value:.6g}): a lag that stops farther on cannot be told from ringing "
+            "that has already passed its final level, so the level is not known (given a "
+            "system whose step response cannot turn back, every pole real and no zeros, "
+            "the last value would be a bound)"
+        )
+        return
     s.note = (
         f"still moving on at the end of the segment without turning back (last value "
         f"{s.end_value:.6g}): without the input, a lag that stops farther on cannot be told "
