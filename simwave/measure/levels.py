@@ -202,11 +202,13 @@ def narrow_gaussian(w: np.ndarray, h_bins: float) -> np.ndarray:
         pad = np.zeros(m + 2 * radius)  # inputs lo - r .. hi + r, zero beyond the ends
         src_lo, src_hi = max(lo - radius, 0), min(hi + radius, n - 1)
         pad[src_lo - lo + radius : src_hi - lo + radius + 1] = w[src_lo : src_hi + 1]
-        acc = pad[radius : radius + m] * k[radius]
-        for j in range(radius, 0, -1):
-            acc += (pad[radius - j : radius - j + m] + pad[radius + j : radius + j + m]) \
-                * k[radius - j]
-        out[lo : hi + 1] = acc
+        acc = out[lo : hi + 1]
+        np.multiply(pad[radius : radius + m], k[radius], out=acc)
+        pair = np.empty(m)
+        for j in range(radius, 0, -1):  # acc += (x[i-j] + x[i+j]) * w_j, in place
+            np.add(pad[radius - j : radius - j + m], pad[radius + j : radius + j + m], out=pair)
+            pair *= k[radius - j]
+            acc += pair
     return out
 
 
