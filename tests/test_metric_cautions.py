@@ -87,3 +87,19 @@ def test_noisy_first_order_rise_time_lies_within_its_uncertainty_of_the_truth():
             spread = row["uncertainty"]["transition_duration_s"]
             assert abs(row["rise_time_s"] - truth) <= spread, (tau, seed, row["rise_time_s"])
             assert spread < truth  # and it is not so wide that it says nothing
+
+
+def test_run_line_says_why_a_still_moving_level_gives_no_number(tmp_path):
+    # A 10 ms pulse through zeta = 0.3 at 50 Hz ends before the output's first peak
+    # (pi / wd = 10.5 ms, Ogata sec. 5-3), still rising past its final level: the run line
+    # must say that the level is not established and why, in words (no raw key names)
+    out = tmp_path / "p.csv"
+    r = CliRunner().invoke(main, [
+        "run", "pulse:rate=2k,duration=50m,width=10m,delay=5m",
+        "-s", "(2*pi*50)^2/(s^2 + 2*0.3*2*pi*50*s + (2*pi*50)^2)",
+        "-o", str(out), "--metrics", str(tmp_path / "p.json")])
+    assert r.exit_code == 0, r.output
+    lines = [ln for ln in r.output.splitlines() if "n/a:" in ln]
+    assert any("rise time" in ln and "final level not established" in ln
+               and "still moves on at its end" in ln for ln in lines), r.output
+    assert "_pct_worst" not in r.output and "final_value" not in r.output

@@ -107,6 +107,16 @@ SUMMARY_METRICS = [
 ]
 
 
+def _plain(key: str) -> str:
+    """A summary key not in :data:`SUMMARY_METRICS` as words: ``preshoot_pct_worst`` ->
+    ``preshoot``, ``final_value`` -> ``final value``."""
+    for suffix in ("_pct_worst", "_s_longest", "_s_mean", "_s_first", "_worst", "_mean"):
+        if key.endswith(suffix):
+            key = key[: -len(suffix)]
+            break
+    return key.replace("_", " ")
+
+
 def _key_cautions(metrics: dict, name: str, values: dict) -> list[tuple[str, str]]:
     """(label, text) for each summary metric shown on the run line whose value carries a
     transition's caution (the disturbance comparable to what it is measured against), so
@@ -186,7 +196,7 @@ def _format_summary(result: dict) -> str:
                 lines.append(f"metrics    {name}: " + ", ".join(shown))
             by_reason: dict[str, list[str]] = {}
             for key, why in missing.items():
-                label = next((lb for k, lb, _ in SUMMARY_METRICS if k == key), key)
+                label = next((lb for k, lb, _ in SUMMARY_METRICS if k == key), _plain(key))
                 by_reason.setdefault(why, []).append(label)
             for why, labels in by_reason.items():
                 lines.append(f"           {name} {', '.join(labels)} n/a: {why}")

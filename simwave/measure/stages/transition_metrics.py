@@ -382,15 +382,18 @@ def transition_row(
         which = " and ".join(
             side for side, ok in (("initial", initial_ok), ("final", final_ok)) if not ok
         )
+        cause = "its segment neither settles nor rings enough to extrapolate"
+        if any(str((row.get(f"{side}_level_detail") or {}).get("note") or "").startswith(
+                work.STILL_MOVING) for side, ok in (("initial", initial_ok), ("final", final_ok))
+               if not ok):
+            # the output is still moving on when its segment ends: say why that is no bound
+            cause = ("its segment still moves on at its end, which a lag stopping farther on "
+                     "and ringing already past its level both do")
         row["levels_note"] = (
-            f"{which} level not established: its segment neither settles nor rings enough "
-            "to extrapolate (the record gives it too little time); the instants are found "
-            "on the median of the segment's end as a provisional level"
+            f"{which} level not established: {cause} (the record gives it too little time); "
+            "the instants are found on the median of the segment's end as a provisional level"
         )
-        why = (
-            f"{which} level not established: its segment neither settles nor rings enough "
-            "to extrapolate (see levels_note)"
-        )
+        why = f"{which} level not established: {cause} (see levels_note)"
         for k in (
             dur_key,
             "transition_duration_s",

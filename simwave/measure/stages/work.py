@@ -310,6 +310,10 @@ def decide(w: Work, segs: list, ch: Channel, strict: bool = True) -> None:
 LAST_DWELL_GAPS = 1.5
 
 
+#: How :func:`not_a_bound`'s notes begin (the transition's reasons name the case from it).
+STILL_MOVING = "still moving on at the end of the segment without turning back"
+
+
 def not_a_bound(s: seg.Segment, with_input: bool = False) -> None:
     """A segment end still moving on without turning back gives no bound on its level
     unless the system is known not to ring: a first-order lag would stop short of where
@@ -322,7 +326,7 @@ def not_a_bound(s: seg.Segment, with_input: bool = False) -> None:
     s.method = seg.METHOD_UNSETTLED
     if with_input:
         s.note = (
-            f"still moving on at the end of the segment without turning back (last value "
+            f"{STILL_MOVING} (last value "
             f"{s.end_value:.6g}): a lag that stops farther on cannot be told from ringing "
             "that has already passed its final level, so the level is not known (given a "
             "system whose step response cannot turn back, every pole real and no zeros, "
@@ -330,7 +334,7 @@ def not_a_bound(s: seg.Segment, with_input: bool = False) -> None:
         )
         return
     s.note = (
-        f"still moving on at the end of the segment without turning back (last value "
+        f"{STILL_MOVING} (last value "
         f"{s.end_value:.6g}): without the input, a lag that stops farther on cannot be told "
         "from ringing that has already passed its final level, so the level is not known"
     )
