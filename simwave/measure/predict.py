@@ -176,23 +176,48 @@ def _describe(system: Any) -> str:
 
 
 def monotone_step(system: Any) -> bool:
-    """Whether ``system``'s step response certainly never turns back: every pole real, no
-    finite zero (any dead time only shifts it).
+    """Whether ``system``'s step response certainly never turns back after t = 0: its
+    impulse response keeps one sign for t > 0 (any dead time only shifts it).
 
-    H(s) = k / prod(s - p_i) with real p_i has for impulse response k times the
-    convolution of the exponentials e^(p_i t), t >= 0, each positive, so it keeps the
-    sign of k and the step response (its integral) is monotone; stable or not. A
-    sufficient condition only: monotone systems with zeros (a real zero left of the
-    poles, as in many lead networks) are not recognised, and answer False.
+    Two sufficient conditions, each exact:
+
+    * every pole real and no finite zero: H(s) = k / prod(s - p_i) has for impulse
+      response k times the convolution of the exponentials e^(p_i t), t >= 0, each
+      positive, so it keeps the sign of k (repeated poles included; stable or not);
+    * every pole real and distinct, every zero real, no more zeros than poles, and every
+      residue r_i = k prod(p_i - z_j) / prod_(l != i)(p_i - p_l) of one sign: h(t) =
+      D delta(t) + sum r_i e^(p_i t) then keeps that sign for t > 0 (lead and lag
+      networks, RC ladders: their poles and zeros interlace). A direct term only makes the
+      step at t = 0.
+
+    Anything else (complex poles, a zero in the right half plane that makes an
+    undershoot, repeated poles with zeros) answers False, also where the response
+    happens to be monotone.
     """
     if system is None:
         return False
     try:
         poles = np.asarray(system.poles, dtype=complex)
         zeros = np.asarray(system.zeros, dtype=complex)
+        gain = float(system.gain)
     except (AttributeError, TypeError, ValueError):
         return False
-    return zeros.size == 0 and poles.size > 0 and bool(np.all(poles.imag == 0.0))
+    if poles.size == 0 or np.any(poles.imag != 0.0):
+        return False
+    if zeros.size == 0:
+        return True
+    if np.any(zeros.imag != 0.0) or zeros.size > poles.size:
+        return False
+    p, z = poles.real, zeros.real
+    if np.unique(p).size != p.size or not (math.isfinite(gain) and gain != 0.0):
+        return False
+    with np.errstate(all="ignore"):
+        residues = np.array([
+            gain * np.prod(pi - z) / np.prod(np.delete(pi - p, i)) for i, pi in enumerate(p)
+        ])
+    if not np.all(np.isfinite(residues)):
+        return False
+    return bool(np.all(residues > 0.0) or np.all(residues < 0.0))
 
 
 def predictions_for(system: Any, o: Any, rate: float) -> Predictions:

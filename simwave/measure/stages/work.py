@@ -329,8 +329,8 @@ def not_a_bound(s: seg.Segment, with_input: bool = False) -> None:
             f"{STILL_MOVING} (last value "
             f"{s.end_value:.6g}): a lag that stops farther on cannot be told from ringing "
             "that has already passed its final level, so the level is not known (given a "
-            "system whose step response cannot turn back, every pole real and no zeros, "
-            "the last value would be a bound)"
+            "system whose step response cannot turn back, such as one with every pole "
+            "real and no zeros, the last value would be a bound)"
         )
         return
     s.note = (
