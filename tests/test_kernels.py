@@ -197,3 +197,19 @@ def test_without_the_loaded_loops_the_public_calls_give_the_same_bits(monkeypatc
     assert len(public) == len(loaded) == 9
     for a, b in zip(loaded, public, strict=True):
         assert np.array_equal(np.asarray(a).view(np.uint64), np.asarray(b).view(np.uint64))
+
+
+def test_a_batch_with_a_filter_design_preloads_scipy_signal_once(tmp_path):
+    # the designs need scipy.signal's design functions: preloaded in the pool's server
+    # (one import) rather than in every worker, whichever way the design is given
+    from simwave.batch.plan import quick_plan
+    from simwave.batch.runner import _uses_designs
+
+    lp = tmp_path / "lp.toml"
+    lp.write_text('[design]\nfamily = "butterworth"\nkind = "lowpass"\norder = 4\n'
+                  'cutoff_hz = 1000\n')
+    signal = ["step:rate=10k,duration=50m,time=5m"]
+    assert _uses_designs(quick_plan([str(lp)], signal, str(tmp_path / "a")))
+    assert _uses_designs(quick_plan([], signal, str(tmp_path / "b"),
+                                    designs=["butterworth lowpass order=2 cutoff_hz=1k"]))
+    assert not _uses_designs(quick_plan(["1/(1m*s + 1)"], signal, str(tmp_path / "c")))

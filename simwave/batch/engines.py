@@ -109,8 +109,8 @@ def worker_thread_limits(jobs: int) -> Iterator[None]:
 #: compiled filter loops, which :mod:`simwave.discrete.kernels` loads without the package
 #: (nor scipy.linalg, 0.15-0.2 s, for its one LAPACK routine). The batch process itself
 #: imports none of them; the server starts while it plans (see PoolEngine). A batch with a
-#: named filter design among its systems adds :data:`DESIGN_PRELOAD`; a worker given one
-#: in a system file imports scipy.signal on its first such pair.
+#: named filter design among its systems (given with --design, in a description or in a
+#: system file) adds :data:`DESIGN_PRELOAD` (``runner._uses_designs``).
 WORKER_PRELOAD = ["simwave.batch.tasks", "simwave.discrete.filter",
                   "simwave.discrete.methods", "simwave.discrete.accuracy", "simwave.model.parse",
                   "simwave.cli.system_input", "simwave.signals.io", "simwave.signals.audio",

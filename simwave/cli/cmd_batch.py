@@ -79,8 +79,8 @@ def batch_command(items, systems, designs, output_dir, jobs, scheduler, connect_
             and not any(text.strip().lower().endswith(".toml") for text in systems)):
         # the quick form's pool is known now: start its server, so that the workers'
         # imports (~0.5 s) run while this process plans. A system file may hold a filter
-        # design, whose workers then import it themselves: those batches start the pool
-        # after planning, with the design preload.
+        # design, known only once it is read: those batches start the pool after planning,
+        # with the design preload when one has a design (runner._uses_designs).
         from simwave.batch.engines import (
             DESIGN_PRELOAD,
             WORKER_PRELOAD,
