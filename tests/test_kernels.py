@@ -213,3 +213,24 @@ def test_a_batch_with_a_filter_design_preloads_scipy_signal_once(tmp_path):
     assert _uses_designs(quick_plan([], signal, str(tmp_path / "b"),
                                     designs=["butterworth lowpass order=2 cutoff_hz=1k"]))
     assert not _uses_designs(quick_plan(["1/(1m*s + 1)"], signal, str(tmp_path / "c")))
+
+
+def test_a_private_routine_that_changed_is_not_used():
+    # another scipy may change a private routine's arguments or results: each is tried
+    # on a case with a known answer (an impulse through y[n] = x[n] + 0.5 y[n-1] gives
+    # 1, 0.5, 0.25; the pencil (diag(2, 3), I) has eigenvalues 2 and 3) and left unused
+    # when the trial raises or answers otherwise
+    def wrong_signature(*args):
+        raise TypeError("takes 4 arguments")
+
+    def off_by_one_ulp(sos, x, zi):
+        x[:] = [[1.0, 0.5, np.nextafter(0.25, 1.0)]]
+
+    assert kernels._works(wrong_signature, kernels._sosfilt_trial) is None
+    assert kernels._works(off_by_one_ulp, kernels._sosfilt_trial) is None
+    assert kernels._works(lambda b, a, x, axis: x, kernels._lfilter_trial) is None
+    assert kernels._works(wrong_signature, kernels._ggev_trial) is None
+    # the routines this scipy has pass their own trials
+    assert kernels._works(kernels.sosfilt_loop, kernels._sosfilt_trial) is kernels.sosfilt_loop
+    assert kernels._works(kernels.linear_filter, kernels._lfilter_trial) is kernels.linear_filter
+    assert kernels._works(kernels.dggev, kernels._ggev_trial) is kernels.dggev

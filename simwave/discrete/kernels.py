@@ -17,7 +17,9 @@ attribute (``scipy.signal._sosfilt``), since Python sets it only on a module it 
 itself; ``import scipy.signal._sosfilt`` and scipy's own ``from . import _sigtools``
 still find it (scipy's signal and linalg test suites, 13,261 tests, pass with this module
 loaded first). If a file is not where this scipy keeps it, the public calls are used
-instead (the name below is then None; same numbers, slower).
+instead (the name below is then None; same numbers, slower), as when a routine fails a
+trial on a case with a known answer when this module loads (another scipy may have changed
+a private routine's arguments or results).
 
 The calls are the same ones the public functions make for the arguments simwave gives
 them, so the numbers are the same bits (tests/test_kernels.py compares them with
@@ -73,17 +75,56 @@ def _attribute(module: ModuleType | None, name: str) -> Any:
     return getattr(module, name, None) if module is not None else None
 
 
+def _works(routine: Any, trial) -> Any:
+    """``routine`` if ``trial(routine)`` runs and answers True, else None.
+
+    These are private routines: another scipy may have changed what they take or return.
+    Each is tried once, on a case whose answer is known exactly, when this module is
+    loaded; one that fails leaves its callers on scipy's public functions.
+    """
+    if routine is None:
+        return None
+    try:
+        return routine if trial(routine) else None
+    except Exception:
+        return None
+
+
+def _sosfilt_trial(loop: Any) -> bool:
+    # one section y[n] = x[n] + 0.5 y[n-1]: a unit impulse gives 1, 0.5, 0.25 (exact)
+    x = np.array([[1.0, 0.0, 0.0]])
+    loop(np.array([[1.0, 0.0, 0.0, 1.0, -0.5, 0.0]]), x, np.zeros((1, 1, 2)))
+    return bool(np.array_equal(x, [[1.0, 0.5, 0.25]]))
+
+
+def _lfilter_trial(loop: Any) -> bool:
+    y = loop(np.ones(1), np.array([1.0, -0.5]), np.array([1.0, 0.0, 0.0]), 0)
+    return bool(np.array_equal(y, [1.0, 0.5, 0.25]))
+
+
+def _ggev_trial(routine: Any) -> bool:
+    # the pencil (diag(2, 3), I): eigenvalues 2 and 3, as alpha / beta
+    m, n = np.diag([2.0, 3.0]), np.eye(2)
+    lwork = int(routine(m, n, lwork=-1)[-2][0].real)
+    alphar, alphai, beta, _, _, _, info = routine(m, n, 0, 0, lwork, 0, 0)
+    return info == 0 and not np.any(alphai) and sorted(alphar / beta) == [2.0, 3.0]
+
+
 #: sosfilt's own loop: ``_sosfilt(sos, x, zi)`` filters the C-contiguous float64 rows of
 #: x in place through the C-contiguous sections (n_sections, 6) with states zi
-#: (rows, n_sections, 2), updated in place. None where it could not be loaded.
-sosfilt_loop = _attribute(_load("signal", "_sosfilt"), "_sosfilt")
+#: (rows, n_sections, 2), updated in place. None where it could not be loaded or fails
+#: its trial.
+sosfilt_loop = _works(_attribute(_load("signal", "_sosfilt"), "_sosfilt"), _sosfilt_trial)
 
-#: lfilter's loop: ``_linear_filter(b, a, x, axis)``. None where it could not be loaded.
-linear_filter = _attribute(_load("signal", "_sigtools"), "_linear_filter")
+#: lfilter's loop: ``_linear_filter(b, a, x, axis)``. None where it could not be loaded or
+#: fails its trial.
+linear_filter = _works(_attribute(_load("signal", "_sigtools"), "_linear_filter"),
+                       _lfilter_trial)
 
 #: LAPACK's dggev as scipy.linalg wraps it (``get_lapack_funcs(("ggev",), (M, N))[0]``
-#: for float64 M and N is this function). None where it could not be loaded.
-dggev = _attribute(_load("linalg", "_flapack"), "dggev")
+#: for float64 M and N is this function). None where it could not be loaded or fails its
+#: trial.
+dggev = _works(_attribute(_load("linalg", "_flapack"), "dggev"), _ggev_trial)
 
 
 def signal_package() -> ModuleType:
