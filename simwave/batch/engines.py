@@ -108,9 +108,9 @@ def worker_thread_limits(jobs: int) -> Iterator[None]:
 #: batch of 60 ten-second pairs' work on two workers, and running a model needs only its
 #: compiled filter loops, which :mod:`simwave.discrete.kernels` loads without the package
 #: (nor scipy.linalg, 0.15-0.2 s, for its one LAPACK routine). The batch process itself
-#: imports none of them; the server starts while it plans (see PoolEngine). A batch with a
-#: named filter design among its systems (given with --design, in a description or in a
-#: system file) adds :data:`DESIGN_PRELOAD` (``runner._uses_designs``).
+#: imports none of them; the server starts while it reads the journal (see PoolEngine). A
+#: batch with a named filter design among its systems (given with --design, in a
+#: description or in a system file) adds :data:`DESIGN_PRELOAD` (``runner._uses_designs``).
 WORKER_PRELOAD = ["simwave.batch.tasks", "simwave.discrete.filter",
                   "simwave.discrete.methods", "simwave.discrete.accuracy", "simwave.model.parse",
                   "simwave.cli.system_input", "simwave.signals.io", "simwave.signals.audio",
@@ -144,16 +144,14 @@ def _start_forkserver(ctx: multiprocessing.context.BaseContext) -> None:
         forkserver.ensure_running()
 
 
-def start_pool_server(jobs: int, preload: list[str] | None = None) -> None:
-    """Start the pool's forkserver now, importing ``preload`` (default
-    :data:`WORKER_PRELOAD`) in the background; a pool made later forks from it.
-
-    The batch command calls it before it plans, so that the server's imports (~0.5 s)
-    overlap the planning instead of following it. One server per process: the first
-    call decides its preload, later calls (and later pools) find it running.
-    """
+def _start_server(jobs: int, preload: list[str]) -> multiprocessing.context.BaseContext:
+    """The pool's context, its forkserver started now (importing ``preload`` in the
+    background) inside :func:`worker_thread_limits`. One server per process: the first
+    start decides its preload, later pools find it running."""
+    ctx = _context(preload)
     with worker_thread_limits(jobs):
-        _start_forkserver(_context(preload))
+        _start_forkserver(ctx)
+    return ctx
 
 
 class PoolEngine:
@@ -176,17 +174,15 @@ class PoolEngine:
         self._preload = list(WORKER_PRELOAD if preload is None else preload)
         self._executor: ProcessPoolExecutor | None = None
         self._pending: dict[Future, list[PairTask]] = {}
-        # Start the forkserver now (if the batch command has not): it imports the preload
-        # while this process reads the journal and makes the tasks.
-        start_pool_server(self.jobs, self._preload)
+        # Start the forkserver now: it imports the preload while this process reads the
+        # journal and makes the tasks.
+        _start_server(self.jobs, self._preload)
 
     def describe(self) -> str:
         return f"local process pool, {self.jobs} worker{'s' if self.jobs != 1 else ''}"
 
     def _new_executor(self) -> ProcessPoolExecutor:
-        ctx = _context(self._preload)
-        with worker_thread_limits(self.jobs):
-            _start_forkserver(ctx)
+        ctx = _start_server(self.jobs, self._preload)
         return ProcessPoolExecutor(max_workers=self.jobs, mp_context=ctx,
                                    initializer=worker_init)
 

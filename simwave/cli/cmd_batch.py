@@ -75,22 +75,6 @@ def batch_command(items, systems, designs, output_dir, jobs, scheduler, connect_
     outside its tolerance bands, 2 for bad input (nothing written), 130 when
     interrupted (finished outputs stay; run the same command again to resume).
     """
-    if ((systems or designs) and scheduler is None
-            and not any(text.strip().lower().endswith(".toml") for text in systems)):
-        # the quick form's pool is known now: start its server, so that the workers'
-        # imports (~0.5 s) run while this process plans. A system file may hold a filter
-        # design, known only once it is read: those batches start the pool after planning,
-        # with the design preload when one has a design (runner._uses_designs).
-        from simwave.batch.engines import (
-            DESIGN_PRELOAD,
-            WORKER_PRELOAD,
-            default_jobs,
-            start_pool_server,
-        )
-
-        if (jobs or default_jobs()) > 1:
-            start_pool_server(jobs or default_jobs(),
-                              WORKER_PRELOAD + (DESIGN_PRELOAD if designs else []))
     from simwave.batch import format_comparison, load_description, quick_plan, run_batch
     from simwave.model.parse import parse_number
 

@@ -229,19 +229,15 @@ def method_warning(check: dict[str, Any], accuracy: dict[str, Any] | None, metho
     res = _nearest_resonance(system, f) if system is not None else None
     if method == "bilinear" and res is not None:
         remedies.append(f"prewarp at the resonance ({res[0]:.6g} Hz, Q = {res[1]:.3g})")
-    if advice is not None:
-        own, others, searched = advice.own_hz, list(advice.within), True
-    else:
-        rates = {m: r for m, r in ((accuracy or {}).get("suggested_rate_hz") or {}).items() if r}
-        own = rates.get(method)
-        others = [m for m, r in rates.items() if m != method and r is not None and r <= rate]
-        searched = accuracy is not None
+    if advice is None and accuracy is not None:
+        advice = RateAdvice.from_rates(method, rate, accuracy.get("suggested_rate_hz") or {})
+    own, others = (advice.own_hz, list(advice.within)) if advice is not None else (None, [])
     if own and own > rate:
         step = f"raise the rate to {own:.6g} Hz or more"
         if method in ("bilinear", "impulse-invariant", "matched-z"):
             step += f" (or oversample >= {int(np.ceil(own / rate)) * factor})"
         remedies.append(step)
-    elif own is None and searched:
+    elif own is None and advice is not None:
         remedies.append("no rate up to 1e6 x the band edge brings this method within the "
                         "limit")
     if others:

@@ -379,13 +379,11 @@ def transition_row(
         # a level the record does not establish: the instants are kept (found on the
         # provisional level, the median of the segment's end) but nothing is given in
         # percent of an amplitude that is not known, nor a band around it
-        which = " and ".join(
-            side for side, ok in (("initial", initial_ok), ("final", final_ok)) if not ok
-        )
+        unknown = [side for side, ok in (("initial", initial_ok), ("final", final_ok)) if not ok]
+        which = " and ".join(unknown)
         cause = "its segment neither settles nor rings enough to extrapolate"
-        if any(str((row.get(f"{side}_level_detail") or {}).get("note") or "").startswith(
-                work.STILL_MOVING) for side, ok in (("initial", initial_ok), ("final", final_ok))
-               if not ok):
+        notes = [(row.get(f"{side}_level_detail") or {}).get("note") or "" for side in unknown]
+        if any(note.startswith(work.STILL_MOVING) for note in notes):
             # the output is still moving on when its segment ends: say why that is no bound
             cause = ("its segment still moves on at its end, which a lag stopping farther on "
                      "and ringing already past its level both do")

@@ -294,10 +294,10 @@ def decide(w: Work, segs: list, ch: Channel, strict: bool = True) -> None:
         # (provisional levels, strict=False, are measured again: not judged so closely)
         for i in range(1, len(segs)):
             held_too_briefly(w, segs, i, ch.tail_moving and i == len(segs) - 1)
-    if not (w.refs and monotone_step(w.system)):
-        for s in segs:
-            if s.method == seg.METHOD_APPROACHING:
-                not_a_bound(s, with_input=bool(w.refs))
+    approaching = [s for s in segs if s.method == seg.METHOD_APPROACHING]
+    if approaching and not (w.refs and monotone_step(w.system)):
+        for s in approaching:
+            not_a_bound(s, with_input=bool(w.refs))
 
 
 #: Without a reference input, a segment after a transition counts as settled only when the
@@ -324,20 +324,14 @@ def not_a_bound(s: seg.Segment, with_input: bool = False) -> None:
     whose step response is monotone (:func:`simwave.measure.predict.monotone_step`) the
     last value is kept as a bound."""
     s.method = seg.METHOD_UNSETTLED
-    if with_input:
-        s.note = (
-            f"{STILL_MOVING} (last value "
-            f"{s.end_value:.6g}): a lag that stops farther on cannot be told from ringing "
-            "that has already passed its final level, so the level is not known (given a "
-            "system whose step response cannot turn back, such as one with every pole "
-            "real and no zeros, the last value would be a bound)"
-        )
-        return
     s.note = (
-        f"{STILL_MOVING} (last value "
-        f"{s.end_value:.6g}): without the input, a lag that stops farther on cannot be told "
-        "from ringing that has already passed its final level, so the level is not known"
+        f"{STILL_MOVING} (last value {s.end_value:.6g}): "
+        f"{'' if with_input else 'without the input, '}a lag that stops farther on cannot be "
+        "told from ringing that has already passed its final level, so the level is not known"
     )
+    if with_input:
+        s.note += (" (given a system whose step response cannot turn back, such as one with "
+                   "every pole real and no zeros, the last value would be a bound)")
 
 
 def held_too_briefly(w: Work, segs: list, i: int, moving: bool = False) -> None:
