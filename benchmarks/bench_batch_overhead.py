@@ -213,7 +213,9 @@ def main() -> None:
                 out = os.path.join(root, f"out-{label}")
                 keep(f"short {label}",
                      _timed(batch_cmd(short, out, SYSTEMS[:1], args.jobs), tree, out))
-                keep(f"long {label}", _timed(batch_cmd(long_, out, SYSTEMS, args.jobs), tree, out))
+                if args.long_files:
+                    keep(f"long {label}",
+                         _timed(batch_cmd(long_, out, SYSTEMS, args.jobs), tree, out))
         one_out = os.path.join(root, "one.wav")
         subprocess.run([python(), "-m", "simwave", "run", os.path.join(short, "rec00000.wav"),
                         "-s", SYSTEMS[0], "-o", one_out], env=tree_env(), cwd=NEUTRAL_DIR,
@@ -258,15 +260,18 @@ def main() -> None:
         print(f"     total {ms['all']:6.2f} ms/pair in process = "
               f"{j * 1e3 / ms['all']:.0f} pairs/s on {j} workers before pool and start-up costs")
         m = args.long_files * len(SYSTEMS)
-        print(f"2. {args.long_files} WAVs of 10 s x {len(SYSTEMS)} systems = {m} pairs, "
-              f"--jobs {j}")
-        for label in trees:
-            t = best[f"long {label}"]
-            print(f"   simwave batch [{label:<6}] {t:7.2f} s {m / t:7.2f} pairs/s  "
-                  f"{_cpu_text(cpu.get(f'long {label}'), m)}")
-        if args.baseline:
-            print(f"   now / before = {best['long before'] / best['long now']:.2f}x pairs/s "
-                  "(target >= 4x)")
+        if not m:
+            print("2. long pairs skipped (--long-files 0)")
+        else:
+            print(f"2. {args.long_files} WAVs of 10 s x {len(SYSTEMS)} systems = {m} pairs, "
+                  f"--jobs {j}")
+            for label in trees:
+                t = best[f"long {label}"]
+                print(f"   simwave batch [{label:<6}] {t:7.2f} s {m / t:7.2f} pairs/s  "
+                      f"{_cpu_text(cpu.get(f'long {label}'), m)}")
+            if args.baseline:
+                print(f"   now / before = {best['long before'] / best['long now']:.2f}x pairs/s "
+                      "(target >= 4x)")
         print(f"load average after: {', '.join(f'{v:.2f}' for v in os.getloadavg())}")
     finally:
         shutil.rmtree(root, ignore_errors=True)
