@@ -73,6 +73,28 @@ def test_a_root_at_a_subnormal_frequency_has_no_traceback(tmp_path, monkeypatch,
         assert len(errors) == 1 and "Traceback" not in res.stderr
 
 
+@pytest.mark.parametrize("gain", [1e100, 1e150, 1e-100])
+def test_large_gains_measure_like_unit_gain(gain):
+    # IEEE Std 181-2011 measures a transition against the waveform's own state levels:
+    # scaling the output by g leaves its times and percentages as they are and scales its
+    # levels by g; up to the limits where the measurement's squares stay in float64.
+    x = simwave.read(STEP)
+
+    def metrics(g):
+        text = f"{g:g}/(10m*s + 1)"
+        return simwave.key_metrics(simwave.measure(
+            simwave.simulate(text, x), reference=x, system=text, rest_before_record=True))["step"]
+
+    unit, big = metrics(1.0), metrics(gain)
+    for name in ("rise_time_s_mean", "settling_time_s_longest", "delay_s_mean"):
+        assert big[name] == pytest.approx(unit[name], rel=1e-9), name
+    # a tiny overshoot (a few parts per million of a percent): absolute agreement
+    assert big["overshoot_pct_worst"] == pytest.approx(unit["overshoot_pct_worst"], abs=1e-12)
+    for name in ("final_value", "steady_state_gain", "predicted_dc_gain", "mean"):
+        assert big[name] == pytest.approx(gain * unit[name], rel=1e-12), name
+    assert big["rms"] == pytest.approx(gain * unit["rms"], rel=1e-12)
+
+
 def test_rate_and_delay_bounds():
     assert check_rate("48000") == 48000.0
     for bad in (0, -1, math.inf, math.nan, 1e-200, 1e300, "fast"):
@@ -84,14 +106,16 @@ def test_rate_and_delay_bounds():
         simwave.System.parse(f"exp(-s*{(MAX_DELAY_SAMPLES + 1) / rate})/(s+1)").discretize(rate)
 
 
-@pytest.mark.parametrize("gain", ["1e160", "5e-324"])
+@pytest.mark.parametrize("gain", ["1e160", "1e300", "5e-324", "1e-160"])
 def test_metrics_of_extreme_gains_keep_the_run(tmp_path, monkeypatch, gain):
-    # the measuring step fails in float64; by the rule of `run` it is a warning (exit 0)
+    # the measuring step refuses values whose squares leave float64's range (beyond 1e150,
+    # or a range under 1e-150); by the rule of `run` it is a warning (exit 0)
     res = _cli(tmp_path, monkeypatch, "run", STEP, "-s", gain, "-o", "o.csv",
                "--metrics", "m.json", "--json")
     assert res.exit_code == 0, res.output
     report = json.loads(res.stdout)  # valid JSON (RFC 8259 has no NaN or Infinity)
-    assert report["metrics"] is None and report["metrics_error"]
+    assert report["metrics"] is None and "float64" in report["metrics_error"]
+    assert "'step'" in report["metrics_error"]  # the channel named
     assert sorted(p.name for p in tmp_path.iterdir()) == ["o.csv"]
 
 

@@ -17,6 +17,33 @@ from simwave.errors import MeasurementError
 from simwave.measure.stages.work import Channel, Scan, Work, scan
 
 
+#: Largest magnitude measured. Levels' spreads, uncertainties and the RMS square the
+#: samples; float64 overflows past 1.8e308 (its square root is 1.3e154), and sums over
+#: many samples need a margin below that.
+MEASURE_MAX = 1e150
+#: Smallest range (maximum minus minimum) of a channel that is not constant. The squares
+#: of smaller differences fall below float64's normal numbers (2.2e-308) and keep only a
+#: few significant bits, which the measured spreads and noise would then stand on.
+MEASURE_MIN_RANGE = 1e-150
+
+
+def check_magnitudes(s: Scan, label: str, names) -> None:
+    """Refuse a channel whose values the measurement cannot square in float64, by name."""
+    for c, name in enumerate(names):
+        lo, hi = float(s.lo[c]), float(s.hi[c])
+        big = max(abs(lo), abs(hi))
+        if big > MEASURE_MAX:
+            raise MeasurementError(
+                f"{label}: channel {name!r} reaches {big:g}; beyond {MEASURE_MAX:g} the "
+                "squares the measurement takes overflow float64: measure it scaled (in "
+                "other units)")
+        if 0.0 < hi - lo < MEASURE_MIN_RANGE:
+            raise MeasurementError(
+                f"{label}: channel {name!r} spans only {hi - lo:g}; below "
+                f"{MEASURE_MIN_RANGE:g} the squares the measurement takes fall below "
+                "float64's normal range: measure it scaled (in other units)")
+
+
 def run(w: Work) -> None:
     """Scan output and reference; set ``n``, ``outs``, ``refs`` and ``w_start``."""
     src, o = w.src, w.o
@@ -25,6 +52,7 @@ def run(w: Work) -> None:
     if s_out.n == 0:
         raise MeasurementError(f"{oi.label}: no samples to measure")
     n = w.n = s_out.n
+    check_magnitudes(s_out, oi.label, oi.channels)
     w.outs = channels(s_out, oi.channels, oi.units)
     w.refs = []
     if src.ref is not None:
@@ -40,6 +68,7 @@ def run(w: Work) -> None:
                 f"{ri.label}: the reference has {len(ri.channels)} channels; give one, "
                 f"or one per output channel ({len(oi.channels)})"
             )
+        check_magnitudes(s_ref, ri.label, ri.channels)
         w.refs = channels(s_ref, ri.channels, ri.units)
     if all(c.constant for c in w.outs):
         vals = ", ".join(f"{c.name} = {c.lo:g}" for c in w.outs)
