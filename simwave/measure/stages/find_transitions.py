@@ -16,16 +16,40 @@ from __future__ import annotations
 import numpy as np
 
 from simwave.measure import plateaus as pl
-from simwave.measure.stages.work import Work, columns
+from simwave.measure.stages.work import Channel, Work, columns
 from simwave.measure.transient import EdgeFinder
 
 
 def run(w: Work) -> None:
-    """One pass: the transitions of every channel of kind "transitions"."""
+    """One pass: the transitions of every channel of kind "transitions".
+
+    An output whose reference input has transitions is found again, one transition per
+    input transition, by :mod:`.input_aligned`, which replaces these: it is left out of
+    the pass (its histogram levels, which the pass would need, are then never computed,
+    see :meth:`~simwave.measure.stages.work.Channel.defer_levels`), and found in a second
+    pass only when its input turns out to have no transition.
+    """
     chans = w.outs + w.refs
-    active = [
-        i for i, ch in enumerate(chans) if ch.kind == "transitions" and ch.refs is not None
-    ]
+    later = [c for c, ch in enumerate(w.outs) if _redone_per_input(w, c, ch)]
+    _find(w, chans, [i for i, ch in enumerate(chans) if i not in later and _active(ch)])
+    _find(w, chans, [c for c in later if not w.refs[w.ref_for(c)].edges and _active(chans[c])])
+
+
+def _active(ch: Channel) -> bool:
+    return ch.kind == "transitions" and ch.refs is not None
+
+
+def _redone_per_input(w: Work, c: int, ch: Channel) -> bool:
+    """Output ``c`` is measured per input transition by :mod:`.input_aligned` if its input
+    has transitions (the same test as that stage's, less the input's transitions, which
+    this stage finds)."""
+    ri = w.ref_for(c)
+    return (w.o.state_level_method != "minmax" and ri is not None
+            and ch.kind == "transitions" and not ch.constant)
+
+
+def _find(w: Work, chans: list[Channel], active: list[int]) -> None:
+    """The transitions of channels ``active`` (indices into ``chans``), in one pass."""
     for i in list(active):
         ch = chans[i]
         if not ch.multilevel and ch.speculated is not None and ch.speculated[0] == ch.refs:

@@ -20,6 +20,8 @@ Out: ``w.hist`` and the channel fields above. Next: :mod:`.classify`.
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 
 from simwave.measure import levels as lv
@@ -72,14 +74,20 @@ def pass_levels(w: Work) -> None:
         if ch.constant:
             ch.null_reasons["state_levels"] = f"constant channel (every sample is {ch.lo:g})"
             continue
-        ch.levels = lv.state_levels(hist, c, w.o.state_level_method)
-        half = 0.1 * ch.levels.amplitude
-        ch.two_state_fraction = hist.fraction_near(c, (ch.levels.low, ch.levels.high), half)
-        ch.refs = lv.reference_values(ch.levels, w.o.reference_levels_pct)
+        ch.defer_levels(functools.partial(histogram_levels, w, hist, c))
         ch.disturbance_pp = pl.quiet_span(ch.windows)
         if c >= n_out and w.o.state_level_method != "minmax":
             staircase(w, ch)
     w.hist = hist
+
+
+def histogram_levels(w: Work, hist: lv.LevelHistogram, c: int) -> tuple:
+    """Channel ``c``'s state levels from ``hist``, the fraction of its samples near them and
+    its reference levels (computed when first needed: :meth:`Channel.defer_levels`)."""
+    levels = lv.state_levels(hist, c, w.o.state_level_method)
+    half = 0.1 * levels.amplitude
+    return (levels, hist.fraction_near(c, (levels.low, levels.high), half),
+            lv.reference_values(levels, w.o.reference_levels_pct))
 
 
 def staircase(w: Work, ch: Channel) -> None:

@@ -85,9 +85,11 @@ class Channel:
     hi: float
     mean: float
     rms: float
-    levels: lv.StateLevels | None = None
-    two_state_fraction: float = 0.0
-    refs: tuple | None = None
+    # levels, two_state_fraction and refs: properties below (the histogram's, computed
+    # when first read)
+    _levels: lv.StateLevels | None = None
+    _two_state_fraction: float = 0.0
+    _refs: tuple | None = None
     kind: str = "other"
     kind_source: str = "auto"
     finder: EdgeFinder | None = None
@@ -133,6 +135,61 @@ class Channel:
     # the part of the fit window without a level change (steady_parts.SteadyPart), found
     # once by :func:`steady_part_of` when a sine or tone fit needs it
     fit_part: Any = None
+    # the histogram's (levels, two_state_fraction, refs), computed when one of them is
+    # first read (:meth:`defer_levels`), and which of them were set before that
+    _pending: Any = None
+    _set_early: set = field(default_factory=set)
+
+    def defer_levels(self, compute: Any) -> None:
+        """Take ``levels``, ``two_state_fraction`` and ``refs`` from ``compute()`` when one
+        of them is first read. An output with a reference input has its levels read off
+        the input-aligned segments as a rule, and the histogram's two half modes (about a
+        quarter of measuring a short record) are then never needed; a value set before
+        the first read is kept, the others come from ``compute()`` as if computed first."""
+        self._pending = compute
+        self._set_early = set()
+
+    def _resolve(self) -> None:
+        compute, self._pending = self._pending, None
+        for name, value in zip(("levels", "two_state_fraction", "refs"), compute(), strict=True):
+            if name not in self._set_early:
+                setattr(self, "_" + name, value)
+
+    def _get(self, name: str) -> Any:
+        if self._pending is not None and name not in self._set_early:
+            self._resolve()
+        return getattr(self, "_" + name)
+
+    def _assign(self, name: str, value: Any) -> None:
+        setattr(self, "_" + name, value)
+        if self._pending is not None:
+            self._set_early.add(name)
+            if len(self._set_early) == 3:
+                self._pending = None  # all three replaced: never needed
+
+    @property
+    def levels(self) -> lv.StateLevels | None:
+        return self._get("levels")
+
+    @levels.setter
+    def levels(self, value: lv.StateLevels | None) -> None:
+        self._assign("levels", value)
+
+    @property
+    def two_state_fraction(self) -> float:
+        return self._get("two_state_fraction")
+
+    @two_state_fraction.setter
+    def two_state_fraction(self, value: float) -> None:
+        self._assign("two_state_fraction", value)
+
+    @property
+    def refs(self) -> tuple | None:
+        return self._get("refs")
+
+    @refs.setter
+    def refs(self, value: tuple | None) -> None:
+        self._assign("refs", value)
 
     @property
     def constant(self) -> bool:
