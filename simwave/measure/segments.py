@@ -322,6 +322,32 @@ def _back_points(n: int) -> tuple[np.ndarray, np.ndarray]:
     return k, starts
 
 
+@functools.lru_cache(maxsize=256)
+def _fit_frame(before: int, after: int) -> tuple:
+    """What a :func:`_refined_extreme` fit over samples ``k - before .. k + after`` needs
+    besides the samples (it depends on nothing else; computed once, read-only): the
+    abscissae scaled to [-1, 1], the Vandermonde matrix, its Gram matrix, the search grid."""
+    span = float(max(before, after, 1))
+    # (arange(lo, hi + 1) - k) / span: the integers are exact in float64, so the same x
+    x = np.arange(-before, after + 1, dtype=np.float64) / span
+    deg = 4 if x.size >= 7 else 2
+    v = np.vander(x, deg + 1, increasing=True)
+    gram = v.T @ v
+    grid = np.linspace(x[0], x[-1], 401)
+    for a in (x, v, gram, grid):
+        a.flags.writeable = False
+    return x, v, gram, grid
+
+
+def _horner(c: list[float], x: float) -> float:
+    """``numpy.polynomial.polynomial.polyval(x, c)`` for a float ``x``: the same operations
+    (c[-1] + x*0, then c[i] + p*x downwards), so the same bits, without its array set-up."""
+    p = c[-1] + x * 0
+    for ci in c[-2::-1]:
+        p = ci + p * x
+    return p
+
+
 def _refined_extreme(d: np.ndarray, k: int, q: int, sign: int) -> float:
     """Value of the extreme of ``d`` near sample ``k``: the extreme of a least-squares
     polynomial (quartic, or quadratic over fewer than 7 samples) through ``k - q .. k + q``.
@@ -334,33 +360,32 @@ def _refined_extreme(d: np.ndarray, k: int, q: int, sign: int) -> float:
     npts = hi - lo + 1
     if npts < 3:
         return float(d[k])
-    deg = 4 if npts >= 7 else 2
-    span = float(max(k - lo, hi - k, 1))
-    x = (np.arange(lo, hi + 1, dtype=np.float64) - k) / span
-    v = np.vander(x, deg + 1, increasing=True)
+    x, v, gram, grid = _fit_frame(k - lo, hi - k)
+    deg = v.shape[1] - 1
     try:
         # normal equations of a small, well-scaled (|x| <= 1) least-squares problem
-        c = np.linalg.solve(v.T @ v, v.T @ d[lo : hi + 1])
+        c = np.linalg.solve(gram, v.T @ d[lo : hi + 1])
     except np.linalg.LinAlgError:
         return float(d[k])
     # the largest value of the polynomial over the span: a fine grid, then Newton's method
     # on p'(x) = 0 from the best grid point
-    grid = np.linspace(x[0], x[-1], 401)
     vals = sign * np.polynomial.polynomial.polyval(grid, c)
     xv = float(grid[int(np.argmax(vals))])
-    dc = c[1:] * np.arange(1, deg + 1)  # p'(x), increasing powers
-    ddc = dc[1:] * np.arange(1, deg)  # p''(x)
+    cl = c.tolist()
+    dc = [cl[i] * i for i in range(1, deg + 1)]  # p'(x), increasing powers
+    ddc = [dc[i] * i for i in range(1, deg)]  # p''(x)
+    x_first, x_last = float(x[0]), float(x[-1])
     for _ in range(8):
-        curv = np.polynomial.polynomial.polyval(xv, ddc)
+        curv = _horner(ddc, xv)
         if sign * curv >= 0:
             break  # at an end of the span, not at a turning point of p
-        step = np.polynomial.polynomial.polyval(xv, dc) / curv
-        if not (x[0] <= xv - step <= x[-1]):
+        step = _horner(dc, xv) / curv
+        if not (x_first <= xv - step <= x_last):
             break
         xv -= step
         if abs(step) < 1e-13:
             break
-    return float(np.polynomial.polynomial.polyval(xv, c))
+    return _horner(cl, xv)
 
 #: Samples per piece searched for a segment's first arrival at its end level (it comes
 #: within the transition, near the segment's start, as a rule).
