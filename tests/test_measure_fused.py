@@ -223,3 +223,51 @@ def test_segment_parts_joined_as_a_copy_would():
         got = seg.joined_1d(parts)
         want = np.concatenate(parts)
         assert got.tobytes() == want.tobytes() and got.flags.c_contiguous
+
+
+def _refined_extreme_plain(d, k, q, sign):
+    # the fit as first written (each call builds its frame; numpy's polyval throughout)
+    lo, hi = max(k - q, 0), min(k + q, d.size - 1)
+    npts = hi - lo + 1
+    if npts < 3:
+        return float(d[k])
+    deg = 4 if npts >= 7 else 2
+    span = float(max(k - lo, hi - k, 1))
+    x = (np.arange(lo, hi + 1, dtype=np.float64) - k) / span
+    v = np.vander(x, deg + 1, increasing=True)
+    try:
+        c = np.linalg.solve(v.T @ v, v.T @ d[lo : hi + 1])
+    except np.linalg.LinAlgError:
+        return float(d[k])
+    polyval = np.polynomial.polynomial.polyval
+    grid = np.linspace(x[0], x[-1], 401)
+    xv = float(grid[int(np.argmax(sign * polyval(grid, c)))])
+    dc = c[1:] * np.arange(1, deg + 1)
+    ddc = dc[1:] * np.arange(1, deg)
+    for _ in range(8):
+        curv = polyval(xv, ddc)
+        if sign * curv >= 0:
+            break
+        step = polyval(xv, dc) / curv
+        if not (x[0] <= xv - step <= x[-1]):
+            break
+        xv -= step
+        if abs(step) < 1e-13:
+            break
+    return float(polyval(xv, c))
+
+
+def test_turning_point_fit_matches_the_plain_steps():
+    rng = np.random.default_rng(23)
+    for trial in range(1500):
+        m = int(rng.integers(5, 2000))
+        t = np.arange(m)
+        d = (np.exp(-t / rng.uniform(50, 2000)) * np.cos(2 * np.pi * t / rng.uniform(10, 400))
+             * rng.uniform(1e-3, 1e3) + rng.normal(0, rng.choice([0, 1e-6, 1e-3, 0.1]), m))
+        if trial % 7 == 0:
+            d[:] = d[0]  # flat: a singular or trivial fit
+        k, q = int(rng.integers(0, m)), int(rng.integers(1, max(2, m // 2)))
+        sign = int(rng.choice([-1, 1]))
+        got, want = seg._refined_extreme(d, k, q, sign), _refined_extreme_plain(d, k, q, sign)
+        assert type(got) is float
+        assert np.float64(got).tobytes() == np.float64(want).tobytes(), (trial, got, want)
