@@ -190,3 +190,14 @@ def test_hdf5_float32_refuses_values_beyond_binary32(folder):
     simwave.write("f.h5", wave)  # float64 (the default) holds it
     with h5py.File(folder / "f.h5") as f:
         assert f["/waveform"][1, 0] == 1e39
+
+
+def test_text_written_atomically_is_the_text_in_utf8(tmp_path):
+    from simwave.signals.atomic import write_text_atomic
+
+    target = tmp_path / "m.json"
+    text = '{"unit": "\u00b5V",\r\n "x": 1}\n' * 5000  # > 64 kB: more than one write may be needed
+    write_text_atomic(str(target), text)
+    assert target.read_bytes() == text.encode("utf-8")  # newlines as given, no translation
+    write_text_atomic(str(target), "second")
+    assert target.read_bytes() == b"second" and os.listdir(tmp_path) == ["m.json"]
