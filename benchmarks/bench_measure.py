@@ -123,6 +123,9 @@ HERE = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 def _env(pythonpath: str | None) -> dict:
     """This checkout (or the baseline's) first on the path; the steps run in the data folder,
     so the current directory cannot put another checkout first."""
+    from common import byte_compiled  # bytecode caches as an installed package has them
+
+    byte_compiled(os.path.abspath(pythonpath or HERE))
     return dict(os.environ, PYTHONPATH=os.path.abspath(pythonpath or HERE))
 
 
