@@ -45,6 +45,18 @@ jobs = [RunJob(system=s, source=f"{folder}/in.wav", output=f"{folder}/o{i}{m[0]}
         for m, init in (("ramp-invariant", "rest"), ("bilinear", "settled"),
                         ("step-invariant", "rest"))]
 execute(jobs[0])  # imports and first-use work
+# OpenBLAS's threads spin for a while after numpy starts them (and after any call) before
+# they sleep: with simwave's bytecode cached, the imports are quick enough that the
+# snapshot below fell inside that spin and counted it (0.01-0.04 s, a failure in about
+# half the runs). Wait until they are quiet; a wake-up during the runs spins them again.
+import time
+quiet = thread_cpu_seconds()
+for _ in range(50):
+    time.sleep(0.1)
+    now = thread_cpu_seconds()
+    if helper_thread_cpu(quiet, now) == 0:
+        break
+    quiet = now
 before = thread_cpu_seconds()
 for _ in range(2):
     for job in jobs:
