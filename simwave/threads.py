@@ -1,4 +1,5 @@
-"""BLAS thread pools: keep them asleep for simwave's small linear algebra, and measure it.
+"""BLAS thread pools: keep them asleep for simwave's small linear algebra, and measure it;
+and the threads the filter loop may use for a block of many channels.
 
 simwave's matrices are the size of a system's order and its fits have a few
 columns. A BLAS thread pool (OpenBLAS, MKL, BLIS) costs far more to wake than
@@ -75,3 +76,37 @@ def helper_thread_cpu(before: dict[int, float], after: dict[int, float]) -> floa
     that is the BLAS (and OpenMP) pool's work."""
     main = os.getpid()
     return sum(after[t] - before[t] for t in before if t in after and t != main)
+
+
+# ------------------------------------------------------------------ filter threads
+#: Environment variable: the most threads :func:`simwave.discrete.filter.run_sections` runs
+#: a block's channel groups on (default: the CPUs this process may run on, at most 8).
+FILTER_THREADS_VARIABLE = "SIMWAVE_FILTER_THREADS"
+_filter_threads: list[int | None] = [None]
+
+
+def filter_threads() -> int:
+    """Threads the filter loop may use for one block's channels (1: the calling thread)."""
+    count = _filter_threads[0]
+    if count is None:
+        text = os.environ.get(FILTER_THREADS_VARIABLE, "").strip()
+        try:
+            count = int(text) if text else _cpus()
+        except ValueError:
+            count = _cpus()
+        count = _filter_threads[0] = max(1, min(count, 64))
+    return count
+
+
+def set_filter_threads(count: int | None) -> None:
+    """Set the filter loop's thread count for this process (None: back to the default).
+    Batch workers set 1: a batch runs its pairs in parallel processes, one per core."""
+    _filter_threads[0] = None if count is None else max(1, int(count))
+
+
+def _cpus() -> int:
+    try:
+        n = len(os.sched_getaffinity(0))
+    except (AttributeError, OSError):
+        n = os.cpu_count() or 1
+    return max(1, min(n, 8))

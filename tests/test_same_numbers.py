@@ -74,6 +74,36 @@ def test_cached_models_blocks_and_channels_give_the_same_bits(case, tmp_path):
         assert np.array_equal(other.view(np.uint64), first.view(np.uint64))
 
 
+@pytest.mark.parametrize("threads", [2, 3, 5])
+@pytest.mark.parametrize("n_channels", [2, 3, 8, 17])
+def test_channel_groups_on_threads_give_sosfilts_bits(n_channels, threads):
+    # Reference: scipy.signal.sosfilt along axis 0 in one call. A block of at least
+    # THREADS_FROM_VALUES values is filtered in channel groups on several threads.
+    import scipy.signal as sig
+
+    from simwave.discrete.filter import THREADS_FROM_VALUES, run_sections
+    from simwave.threads import set_filter_threads
+
+    rng = np.random.default_rng(100 * threads + n_channels)
+    sos = sig.butter(4, 0.02, output="sos")
+    x = rng.standard_normal((THREADS_FROM_VALUES // n_channels + 1001, n_channels))
+    x[10:20, -1] = -0.0
+    x[30, 0] = np.inf  # stays in its own channel
+    x[40, n_channels // 2] = np.nan
+    zi = rng.standard_normal((sos.shape[0], 2, n_channels))
+    zi_before = zi.copy()
+    set_filter_threads(threads)
+    try:
+        with np.errstate(invalid="ignore"):
+            y, zf = run_sections(sos, x, zi)
+            y_ref, zf_ref = sig.sosfilt(sos, x, axis=0, zi=zi)
+    finally:
+        set_filter_threads(None)
+    assert np.array_equal(y.view(np.uint64), y_ref.view(np.uint64))
+    assert np.array_equal(zf.view(np.uint64), zf_ref.view(np.uint64))
+    assert np.array_equal(zi, zi_before)
+
+
 @pytest.mark.parametrize("n_channels", [1, 2, 3, 4, 8, 16, 17, 64])
 def test_channel_major_pieces_give_sosfilts_bits(n_channels):
     # Reference: scipy.signal.sosfilt along axis 0 in one call (what process() did before

@@ -20,6 +20,7 @@ from typing import Any
 from simwave.batch.plan import build_system
 from simwave.errors import SimwaveError
 from simwave.run import RunJob, execute
+from simwave.threads import set_filter_threads
 
 
 @dataclass(frozen=True)
@@ -129,6 +130,7 @@ def run_pair(task: PairTask, capture_warnings: bool = True) -> dict[str, Any]:
         Any ``Exception`` becomes a failed result; a stop request (KeyboardInterrupt,
         :class:`WorkerStop`) propagates after ``execute`` cleaned up.
     """
+    set_filter_threads(1)  # a batch's parallelism is its processes (one per core)
     started = time.perf_counter()
     cpu_started = time.process_time()
     base: dict[str, Any] = {"index": task.index, "status": "failed", "error": None,
@@ -169,6 +171,7 @@ def run_task(task: Any, capture_warnings: bool = True) -> dict[str, Any]:
     """
     if isinstance(task, PairTask):
         return run_pair(task, capture_warnings)
+    set_filter_threads(1)
     if _state["stopping"]:
         raise WorkerStop()
     with _EXECUTE_LOCK:
