@@ -166,3 +166,16 @@ def test_cancellation_is_a_plain_warning_line_and_a_note():
         "Warning: zero -1 and pole -1 (nearly) cancel; simwave keeps both (nothing is cancelled)"]
     assert "note: zero -1 and pole -1 (nearly) cancel; both are kept" in result.stdout
     assert "order                 2" in result.stdout  # nothing cancelled
+
+
+@pytest.mark.parametrize("text, want_hz", [
+    # a first-order lag's -3 dB point is its corner, 1/(2 pi tau) (Ogata, Modern Control
+    # Engineering, 5th ed., ch. 7), at the ends of float64's range too
+    ("1/(1e-300*s + 1)", 1e300 / (2 * math.pi)),
+    # (s + a)/(s + 1), a near float64's largest: |H| = sqrt(w^2 + a^2)/sqrt(w^2 + 1) falls to
+    # a/sqrt(2) at w = 1 to within 1/a (the grid's span a*1e4/1e-4 overflowed as a ratio)
+    ("(s+1.797693134862316e+300)/(s+1)", 1 / (2 * math.pi)),
+])
+def test_bandwidth_of_extreme_corners(text, want_hz):
+    d = System.parse(text).to_dict()
+    assert d["bandwidth_3db_hz"] == pytest.approx(want_hz, rel=1e-9)

@@ -531,9 +531,18 @@ class System:
         marks = np.concatenate([marks, np.abs(roots.imag[roots.imag != 0])])
         if marks.size == 0:
             return None, "the magnitude is the same at all frequencies"
+        # four decades beyond the outermost marks
         lo, hi = float(np.min(marks)) * 1e-4, float(np.max(marks)) * 1e4
-        decades = math.log10(hi / lo)
-        grid = np.logspace(math.log10(lo), math.log10(hi), int(200 * decades) + 1)
+        if lo > 0 and math.isfinite(hi / lo):
+            log_lo, log_hi = math.log10(lo), math.log10(hi)
+            decades = math.log10(hi / lo)
+        else:
+            # marks near float64's ends: the span overflows as a ratio (or the low end
+            # underflows); take it in logarithms, within float64's normal range
+            log_lo = max(math.log10(float(np.min(marks))) - 4.0, -307.0)
+            log_hi = min(math.log10(float(np.max(marks))) + 4.0, 308.0)
+            decades = log_hi - log_lo
+        grid = np.logspace(log_lo, log_hi, int(200 * decades) + 1)
         near = np.concatenate([marks * (1 + d) for d in (-1e-2, -1e-3, -1e-5, 0, 1e-5, 1e-3, 1e-2)])
         w = np.unique(np.concatenate([grid, near]))
         mag = np.abs(self.frequency_response(w / (2 * np.pi)))
