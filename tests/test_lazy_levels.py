@@ -52,10 +52,13 @@ def test_never_computed_when_all_three_are_set():
 
 
 def _eager(monkeypatch):
+    # as before: every channel's histogram filled in the state-levels pass, and its levels
+    # computed at once
     def defer_levels(self, compute):
         self._pending = None
         self._levels, self._two_state_fraction, self._refs = compute()
     monkeypatch.setattr(Channel, "defer_levels", defer_levels)
+    monkeypatch.setattr(state_levels_stage, "histogram_later", lambda w: set())
 
 
 RATE = 10_000.0
@@ -78,6 +81,8 @@ def _cases():
         ("pulse train, ringing", pulses, ringing),
         ("pulse train, notch (output ignores the input's levels)", pulses,
          "(s^2 + (2*pi*5)^2)/(s^2 + 2*pi*5*s + (2*pi*5)^2)"),
+        ("pulse train, high-pass (back to 0 after every edge: the input's levels are not "
+         "followed, the histogram's are kept)", pulses, "s/(s + 2*pi*500)"),
         ("staircase, lag", stairs, lag),
         ("sine, ringing", sine, ringing),
         ("no transition in the input", flat, lag),
@@ -100,6 +105,24 @@ def test_same_numbers_as_computing_the_levels_at_once(case, monkeypatch):
         _eager(m)
         eager = measured()
     assert lazy == eager, name
+
+
+def test_some_cases_fill_the_output_histogram_later(monkeypatch):
+    # the comparison above covers both ways: outputs whose histogram is never filled, and
+    # outputs whose levels are read after all (filled then, in a pass of their own)
+    late = []
+    real = state_levels_stage.histogram_levels
+
+    def watching(w, hist, c):
+        late.append(c in w.hist_later)
+        return real(w, hist, c)
+
+    monkeypatch.setattr(state_levels_stage, "histogram_levels", watching)
+    for _name, x, system in _cases():
+        src = simwave.Waveform(x[:, None], RATE)
+        simwave.measure(simwave.simulate(system, src), reference=src, system=system,
+                        rest_before_record=True)
+    assert any(late) and not all(late)
 
 
 def test_the_output_beside_a_step_input_needs_no_histogram_levels(monkeypatch):

@@ -95,10 +95,13 @@ class LevelHistogram:
         """Add a block of samples, shape ``(n, n_channels)``."""
         self.add_columns([block[:, c] for c in range(self.counts.shape[0])])
 
-    def add_columns(self, columns: Sequence[np.ndarray]) -> None:
+    def add_columns(self, columns: Sequence[np.ndarray],
+                    channels: Sequence[int] | None = None) -> None:
         """Add a block of samples given as one 1-D array per channel (the same counts and
-        sums as :meth:`add` of those columns side by side, without joining them)."""
-        for c, x in enumerate(columns):
+        sums as :meth:`add` of those columns side by side, without joining them); only
+        those of ``channels`` (indices into ``columns``) when given."""
+        for c in range(len(columns)) if channels is None else channels:
+            x = columns[c]
             # (x - lo) * scale in one temporary: the same two roundings as the expression
             t = np.subtract(x, self.lo[c])
             t *= self._scale[c]

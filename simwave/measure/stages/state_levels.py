@@ -56,12 +56,14 @@ def pass_levels(w: Work) -> None:
     hist = lv.LevelHistogram(np.array([c.lo for c in chans]), np.array([c.hi for c in chans]))
     parts: list[list[np.ndarray]] = [[] for _ in chans]
     n_out = len(w.outs)
+    w.hist_later = histogram_later(w)
+    now = [c for c in range(len(chans)) if c not in w.hist_later]
     wsize = pl.window_size(w.n, w.rate)
     for ch in chans:
         ch.windows = pl.WindowStats(wsize)
     for start, a, b in w.src.blocks():
         cols = work.columns(a, b)
-        hist.add_columns(cols)
+        hist.add_columns(cols, now)
         for ch, col in zip(chans, cols, strict=True):
             ch.windows.feed(col)
         end = start + a.shape[0]
@@ -81,9 +83,23 @@ def pass_levels(w: Work) -> None:
     w.hist = hist
 
 
+def histogram_later(w: Work) -> set[int]:
+    """The output channels whose level histogram the state-levels pass leaves for later:
+    those beside a reference input. They are measured on the input's transitions as a
+    rule, and their histogram is then never read; it is filled, in a pass of its own, only
+    if their levels are (:func:`histogram_levels`)."""
+    return {c for c in range(len(w.outs)) if w.ref_for(c) is not None}
+
+
 def histogram_levels(w: Work, hist: lv.LevelHistogram, c: int) -> tuple:
     """Channel ``c``'s state levels from ``hist``, the fraction of its samples near them and
-    its reference levels (computed when first needed: :meth:`Channel.defer_levels`)."""
+    its reference levels (computed when first needed: :meth:`Channel.defer_levels`). A
+    histogram left for later (``w.hist_later``) is filled first, from the same blocks in
+    the same order as the state-levels pass would have (the same counts and sums)."""
+    if c in w.hist_later:
+        w.hist_later.discard(c)
+        for _start, a, b in w.src.blocks():
+            hist.add_columns(work.columns(a, b), [c])
     levels = lv.state_levels(hist, c, w.o.state_level_method)
     half = 0.1 * levels.amplitude
     return (levels, hist.fraction_near(c, (levels.low, levels.high), half),

@@ -223,6 +223,8 @@ class Work:
         self.w_start = 0  # first sample of the steady-state window
         # state levels stage: the level histogram of every channel (outputs, then references)
         self.hist: lv.LevelHistogram | None = None
+        # channels whose histogram the state-levels pass left for when it is read
+        self.hist_later: set[int] = set()
         # transition metrics stage: per output channel its transitions' regions, the output
         # just before the last input transition (index and value) and the sample values read
         # at the instants the transitions need, per channel (outputs, then references)
