@@ -50,3 +50,28 @@ def test_a_many_channel_simulate_is_the_same_on_one_thread_and_on_several():
     threads.set_filter_threads(3)
     several = simwave.simulate(system, w).data
     assert np.array_equal(one.view(np.uint64), several.view(np.uint64))
+
+
+def test_a_forked_child_gets_a_pool_of_its_own(tmp_path):
+    # POSIX fork copies only the calling thread (fork(2)): a thread pool made before the
+    # fork has no threads in the child, and work handed to it would never run
+    import multiprocessing
+
+    import simwave
+    from simwave.discrete import filter as filt
+
+    x = np.random.default_rng(5).standard_normal((70_000, 4))
+    w = simwave.Waveform(x, 48000.0)
+    threads.set_filter_threads(2)
+    want = simwave.simulate("1/(1m*s + 1)", w).data  # makes the pool in this process
+    assert filt._POOL[0] is not None
+    ctx = multiprocessing.get_context("fork")
+    with ctx.Pool(1) as pool:
+        got = pool.apply_async(_simulate_in_child, (x,)).get(timeout=60)
+    assert np.array_equal(got.view(np.uint64), want.view(np.uint64))
+
+
+def _simulate_in_child(x):
+    import simwave
+
+    return simwave.simulate("1/(1m*s + 1)", simwave.Waveform(x, 48000.0)).data

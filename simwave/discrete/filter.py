@@ -41,6 +41,7 @@ model's modes, so the fit is exact up to rounding; its residual is checked).
 from __future__ import annotations
 
 import math
+import os
 from dataclasses import dataclass
 from typing import Any
 
@@ -215,19 +216,22 @@ def run_sections(sos: np.ndarray, x: np.ndarray, zi: np.ndarray) -> tuple[np.nda
 #: 2^18 values are ~2 ms of the loop at order 4).
 THREADS_FROM_VALUES = 1 << 18
 
-_POOL: list = [None, 0]
+_POOL: list = [None, 0, 0]  # the pool, its workers, the process it was made in
 
 
 def _thread_pool(threads: int):
-    """A thread pool with at least ``threads - 1`` workers, kept for the process."""
-    pool, size = _POOL
-    if pool is None or size < threads - 1:
+    """A thread pool with at least ``threads - 1`` workers, kept for the process.
+
+    A child made by ``fork`` inherits the pool object but none of its threads (its work
+    would wait for ever): a pool made in another process is replaced, not reused."""
+    pool, size, pid = _POOL
+    if pool is None or size < threads - 1 or pid != os.getpid():
         from concurrent.futures import ThreadPoolExecutor
 
-        if pool is not None:
+        if pool is not None and pid == os.getpid():
             pool.shutdown(wait=False)
         pool = ThreadPoolExecutor(max_workers=threads - 1, thread_name_prefix="simwave-filter")
-        _POOL[:] = [pool, threads - 1]
+        _POOL[:] = [pool, threads - 1, os.getpid()]
     return pool
 
 
