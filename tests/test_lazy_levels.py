@@ -90,14 +90,16 @@ def _cases():
     ]
 
 
+@pytest.mark.parametrize("method", ["histogram", "minmax"])
 @pytest.mark.parametrize("case", range(len(_cases())))
-def test_same_numbers_as_computing_the_levels_at_once(case, monkeypatch):
+def test_same_numbers_as_computing_the_levels_at_once(case, method, monkeypatch):
     name, x, system = _cases()[case]
     src = simwave.Waveform(x[:, None], RATE)
     y = simwave.simulate(system, src)
 
     def measured() -> str:
-        res = simwave.measure(y, reference=src, system=system, rest_before_record=True)
+        res = simwave.measure(y, reference=src, system=system, rest_before_record=True,
+                              state_level_method=method)
         return json.dumps(res.to_dict(), sort_keys=True, default=str)
 
     lazy = measured()

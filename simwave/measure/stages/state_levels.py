@@ -87,7 +87,11 @@ def histogram_later(w: Work) -> set[int]:
     """The output channels whose level histogram the state-levels pass leaves for later:
     those beside a reference input. They are measured on the input's transitions as a
     rule, and their histogram is then never read; it is filled, in a pass of its own, only
-    if their levels are (:func:`histogram_levels`)."""
+    if their levels are (:func:`histogram_levels`). None with the min/max method: the
+    transitions stage then reads every output's levels (no input-aligned stage), and
+    leaving them for later would only add that pass."""
+    if w.o.state_level_method == "minmax":
+        return set()
     return {c for c in range(len(w.outs)) if w.ref_for(c) is not None}
 
 

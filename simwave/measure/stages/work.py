@@ -75,6 +75,21 @@ def scan(arrays, label: str, channels: list[str], rate: float, t0: float) -> Sca
     return s
 
 
+class _FromHistogram:
+    """A :class:`Channel` field whose value, unless set before it is first read, is the
+    histogram's (:meth:`Channel.defer_levels`); kept as ``_<name>``. Not a dataclass
+    field (no annotation): the constructor does not take it."""
+
+    def __set_name__(self, owner: type, name: str) -> None:
+        self.name = name
+
+    def __get__(self, ch: Any, owner: type | None = None) -> Any:
+        return self if ch is None else ch._get(self.name)
+
+    def __set__(self, ch: Any, value: Any) -> None:
+        ch._assign(self.name, value)
+
+
 @dataclass
 class Channel:
     """Working state of one channel (output or reference) through the passes."""
@@ -90,6 +105,9 @@ class Channel:
     _levels: lv.StateLevels | None = None
     _two_state_fraction: float = 0.0
     _refs: tuple | None = None
+    levels = _FromHistogram()  # lv.StateLevels | None
+    two_state_fraction = _FromHistogram()  # float
+    refs = _FromHistogram()  # tuple (low, mid, high reference levels) | None
     kind: str = "other"
     kind_source: str = "auto"
     finder: EdgeFinder | None = None
@@ -166,30 +184,6 @@ class Channel:
             self._set_early.add(name)
             if len(self._set_early) == 3:
                 self._pending = None  # all three replaced: never needed
-
-    @property
-    def levels(self) -> lv.StateLevels | None:
-        return self._get("levels")
-
-    @levels.setter
-    def levels(self, value: lv.StateLevels | None) -> None:
-        self._assign("levels", value)
-
-    @property
-    def two_state_fraction(self) -> float:
-        return self._get("two_state_fraction")
-
-    @two_state_fraction.setter
-    def two_state_fraction(self, value: float) -> None:
-        self._assign("two_state_fraction", value)
-
-    @property
-    def refs(self) -> tuple | None:
-        return self._get("refs")
-
-    @refs.setter
-    def refs(self, value: tuple | None) -> None:
-        self._assign("refs", value)
 
     @property
     def constant(self) -> bool:
