@@ -210,6 +210,61 @@ def test_median_in_place_matches_numpy():
         assert np.signbit(want) == np.signbit(got)
 
 
+def _long_arrays(rng):
+    """Arrays long enough for the bracketed selection, of the kinds segment windows hold."""
+    for t in range(400):
+        n = int(rng.integers(seg.BRACKET_MIN, 120_000))
+        kind = t % 9
+        if kind == 0:  # ties, signed zeros
+            yield rng.choice([0.0, -0.0, 1.0, -1.0, 2.5], size=n)
+        elif kind == 1:  # a slow approach: sorted
+            yield np.sort(rng.standard_normal(n))
+        elif kind == 2:
+            yield np.sort(rng.standard_normal(n))[::-1].copy()
+        elif kind == 3:  # constant: no bracket narrows it
+            yield np.full(n, rng.standard_normal())
+        elif kind == 4:  # 50 Hz hum on a level, 48 kHz
+            hum = np.sin(np.arange(n) * 2 * np.pi * 50 / 48000)
+            yield 0.3 + hum + 1e-3 * rng.standard_normal(n)
+        elif kind == 5:  # a square wave: two values, nearly
+            yield np.where(np.arange(n) % 1024 < 512, 1.0, -1.0) + 1e-9 * rng.standard_normal(n)
+        elif kind == 6:  # heavy tails
+            yield rng.standard_cauchy(n)
+        elif kind == 7:  # quantised (a 2-bit-ish ADC)
+            yield np.round(rng.standard_normal(n) * 3) / 4
+        else:  # the sample every n // 1024 values sees only outliers: the bracket misses
+            a = 1e-3 * rng.standard_normal(n)
+            a[:: max(1, n // seg.BRACKET_SAMPLE)] = 1e9
+            yield a
+
+
+def test_median_in_place_long_arrays_match_numpy():
+    # the bracketed selection (arrays of BRACKET_MIN values or more) against np.median
+    rng = np.random.default_rng(29)
+    for a in _long_arrays(rng):
+        want = float(np.median(a))
+        got = seg.median_in_place(a.copy())
+        assert np.float64(want).tobytes() == np.float64(got).tobytes()
+
+
+def test_bracket_narrows_noise_and_keeps_the_ranks():
+    rng = np.random.default_rng(31)
+    a = 0.3 + 1e-3 * rng.standard_normal(80_640)
+    n = a.size
+    h = n >> 1
+    inner, i, j = seg._bracketed(a.copy(), h - 1, h)
+    assert inner.size < n // 5  # narrowed to a small part of the window
+    s = np.sort(a)
+    inner.partition((i, j))
+    assert (inner[i], inner[j]) == (s[h - 1], s[h])
+    # a bracket that misses the middle (the sample sees only outliers) leaves it whole
+    b = a.copy()
+    b[:: n // seg.BRACKET_SAMPLE] = 1e9
+    left, i2, j2 = seg._bracketed(b.copy(), h - 1, h)
+    assert left.size == n and (i2, j2) == (h - 1, h)
+    assert seg.median_in_place(b.copy()) == float(np.median(b))
+
+
 def test_segment_parts_joined_as_a_copy_would():
     rng = np.random.default_rng(17)
     for t in range(2000):
