@@ -338,11 +338,12 @@ def _bracketed(a: np.ndarray, i: int, j: int) -> tuple[np.ndarray, int, int]:
     """
     while a.size >= BRACKET_MIN:
         n = a.size
-        sample = np.sort(a[:: max(1, n // BRACKET_SAMPLE)])
+        sample = a[:: max(1, n // BRACKET_SAMPLE)].copy()
         m = sample.size
         c = (m * (i + j + 1)) // (2 * n)  # the middle's rank in the sample, about
-        lo = sample[max(c - BRACKET_HALF, 0)]
-        hi = sample[min(c + BRACKET_HALF, m - 1)]
+        r_lo, r_hi = max(c - BRACKET_HALF, 0), min(c + BRACKET_HALF, m - 1)
+        sample.partition((r_lo, r_hi))
+        lo, hi = sample[r_lo], sample[r_hi]
         below = a < lo
         n_below = int(np.count_nonzero(below))
         upto = a <= hi
