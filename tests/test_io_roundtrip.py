@@ -51,6 +51,29 @@ def test_float32_wav_default_round_trip_within_float32_precision(tmp_path, wave3
     np.testing.assert_array_equal(back.data, wave3.data.astype(np.float32).astype(np.float64))
 
 
+@pytest.mark.parametrize("ext", ["wav", "aiff", "rf64", "w64", "caf"])
+def test_float_samples_stored_as_libsndfile_stores_doubles(tmp_path, ext):
+    # simwave rounds FLOAT blocks to binary32 itself (one write instead of libsndfile's
+    # buffered conversion); the stored samples must be the ones libsndfile's own conversion
+    # of the doubles gives (a C cast, round to nearest: IEEE Std 754-2019, sec. 5.4.2),
+    # big-endian containers (AIFF, CAF) included. Ties at half a binary32 step, the
+    # subnormal range, signed zeros and values near the binary32 largest are included.
+    rng = np.random.default_rng(11)
+    x = rng.standard_normal((30000, 2)) * 0.3
+    f32 = rng.standard_normal(1000).astype(np.float32).astype(np.float64)
+    ulp = np.spacing(f32.astype(np.float32)).astype(np.float64)
+    x[:1000, 0] = f32 + ulp / 2  # exact ties: round half to even
+    x[:1000, 1] = f32 - ulp / 2
+    x[1000:1008, 0] = [0.0, -0.0, 1e-45, -1e-45, 7e-46, 1.5e-40, 3.4e38, -3.4028234e38]
+    ref = tmp_path / f"ref.{ext}"
+    sf.write(ref, x, 48000, subtype="FLOAT")
+    ours = tmp_path / f"ours.{ext}"
+    simwave.write(ours, Waveform(x, 48000.0))
+    got, _ = sf.read(ours, dtype="float32")
+    want, _ = sf.read(ref, dtype="float32")
+    assert got.tobytes() == want.tobytes()
+
+
 @pytest.mark.parametrize("subtype,bits", [("PCM_U8", 8), ("PCM_16", 16), ("PCM_24", 24),
                                           ("PCM_32", 32)])
 @pytest.mark.parametrize("container", ["wav", "flac", "rf64", "wavex"])
