@@ -74,6 +74,23 @@ def test_float_samples_stored_as_libsndfile_stores_doubles(tmp_path, ext):
     assert got.tobytes() == want.tobytes()
 
 
+@pytest.mark.parametrize("ext", ["wav", "aiff", "caf"])
+def test_float_files_read_as_libsndfile_widens_them(tmp_path, ext):
+    # FLOAT files are read as binary32 and widened by numpy; the values (bits, NaN and
+    # infinities included) must be those libsndfile's own reading as doubles gives
+    rng = np.random.default_rng(12)
+    x = (rng.standard_normal((70000, 3)) * 0.3).astype(np.float32)
+    x[:8, 0] = [0.0, -0.0, 1e-45, -1.4e-40, np.inf, -np.inf, np.nan, 3.4028235e38]
+    path = tmp_path / f"f.{ext}"
+    sf.write(path, x, 48000, subtype="FLOAT")
+    want, _ = sf.read(path, dtype="float64", always_2d=True)
+    for select in ([0, 1, 2], [2], [1, 0]):
+        src = simwave.signals.audio.AudioSource(str(path))
+        got = np.concatenate([r.values for r in src.rows(select)])
+        src.close()
+        assert got.dtype == np.float64 and got.tobytes() == want[:, select].tobytes()
+
+
 @pytest.mark.parametrize("subtype,bits", [("PCM_U8", 8), ("PCM_16", 16), ("PCM_24", 24),
                                           ("PCM_32", 32)])
 @pytest.mark.parametrize("container", ["wav", "flac", "rf64", "wavex"])

@@ -189,14 +189,20 @@ class AudioSource:
         # a mono file's one column needs no copy (with more channels the selecting copy's
         # layout, channel-major, is what later sums per channel have always run on)
         every = self.f.channels == 1 and list(select) == [0]
+        # binary32 samples read as they are stored (one read a block; doubles go through
+        # libsndfile's 8 kB buffer) and widened by numpy: exact, the same values as
+        # libsndfile's own widening (a plain cast)
+        stored = "float32" if self.f.subtype == "FLOAT" else "float64"
         while True:
             try:
-                data = self.f.read(self.read_chunk, dtype="float64", always_2d=True)
+                data = self.f.read(self.read_chunk, dtype=stored, always_2d=True)
             except (sf.LibsndfileError, RuntimeError) as exc:
                 raise WaveformError(
                     f"{self.path}, sample {got}: cannot decode audio ({exc})") from None
             if data.shape[0] == 0:
                 break
+            if data.dtype != np.float64:
+                data = data.astype(np.float64)
             if self.scale is not None:
                 data = data * self.scale + self.offset
             yield Rows(data if every else data[:, select], None,
