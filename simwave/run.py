@@ -12,7 +12,6 @@ three stages overlapped.
 from __future__ import annotations
 
 import copy
-import datetime as _dt
 import math
 import os
 import threading
@@ -671,12 +670,9 @@ def simulate(
 def _written_time() -> str:
     """UTC time for the provenance; SOURCE_DATE_EPOCH (reproducible-builds.org) overrides it,
     so that repeated runs can give byte-identical files."""
-    epoch = os.environ.get("SOURCE_DATE_EPOCH")
-    if epoch and epoch.strip().isdigit():
-        when = _dt.datetime.fromtimestamp(int(epoch), _dt.timezone.utc)
-    else:
-        when = _dt.datetime.now(_dt.timezone.utc)
-    return when.isoformat(timespec="seconds")
+    from simwave.epoch import utc_now
+
+    return utc_now().isoformat(timespec="seconds")
 
 
 def _write_dict(result: Any) -> dict[str, Any] | None:

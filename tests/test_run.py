@@ -360,6 +360,22 @@ def test_source_date_epoch_makes_outputs_byte_identical(tmp_path, monkeypatch):
     assert simwave.read(a).attrs["written"] == "2023-11-14T22:13:20+00:00"
 
 
+@pytest.mark.parametrize("subtype", ["FLOAT", "DOUBLE"])
+def test_source_date_epoch_leaves_out_the_float_wav_time_stamp(tmp_path, monkeypatch, subtype):
+    # libsndfile's PEAK chunk of float WAV files holds the time of writing (time(NULL), to
+    # the second), so two runs a second apart differed; with SOURCE_DATE_EPOCH it is left
+    # out, and without it the file keeps its PEAK chunk as before
+    wave = Waveform(np.sin(np.arange(2000) / 30.0), 48000.0)
+    simwave.write(tmp_path / "plain.wav", wave, subtype=subtype)
+    assert b"PEAK" in (tmp_path / "plain.wav").read_bytes()
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", "1700000000")
+    a, b = tmp_path / "a.wav", tmp_path / "b.wav"
+    for path in (a, b):
+        simwave.write(path, wave, subtype=subtype)
+    assert b"PEAK" not in a.read_bytes() and a.read_bytes() == b.read_bytes()
+    np.testing.assert_array_equal(simwave.read(a).data, simwave.read(tmp_path / "plain.wav").data)
+
+
 @settings(max_examples=60, deadline=None)
 @given(st.lists(st.floats(allow_nan=True, allow_infinity=True), min_size=1, max_size=20),
        st.text(max_size=8))

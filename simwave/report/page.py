@@ -977,12 +977,9 @@ def _version() -> str:
 
 def _now() -> str:
     """Now in UTC (``SOURCE_DATE_EPOCH`` fixes it, as for the runs' provenance)."""
-    epoch = os.environ.get("SOURCE_DATE_EPOCH")
-    if epoch and epoch.strip().isdigit():
-        t = _dt.datetime.fromtimestamp(int(epoch), _dt.timezone.utc)
-    else:
-        t = _dt.datetime.now(_dt.timezone.utc)
-    return t.replace(microsecond=0).isoformat()
+    from simwave.epoch import utc_now
+
+    return utc_now().isoformat()
 
 
 def _when(stamp: str) -> str:

@@ -27,6 +27,7 @@ import numpy as np
 import soundfile as sf
 
 from simwave import __version__
+from simwave.epoch import fixed_epoch
 from simwave.errors import WaveformError
 from simwave.signals.common import WriteResult, dbfs, dumps, per_channel
 from simwave.signals.stream import Rows, sample_places
@@ -37,6 +38,9 @@ PCM_BITS = {"PCM_S8": 8, "PCM_U8": 8, "PCM_16": 16, "PCM_24": 24, "PCM_32": 32}
 NORMALIZE_LEVEL_DBFS = -1.0
 #: Subtypes that hold values beyond full scale unharmed.
 FLOAT_SUBTYPES = {"FLOAT", "DOUBLE"}
+#: libsndfile's command to write (SF_TRUE) or leave out (SF_FALSE) the PEAK chunk of float
+#: files (sndfile.h; soundfile does not export it)
+SFC_SET_ADD_PEAK_CHUNK = 0x1050
 #: Largest magnitude a FLOAT (IEEE 754 binary32) sample holds; beyond it the value is stored
 #: as infinite (IEEE Std 754-2019, binary32 format: (2 - 2**-23) * 2**127).
 FLOAT32_MAX = float(np.finfo(np.float32).max)
@@ -389,6 +393,10 @@ class AudioSink:
                                         self.subtype, format=self.format)
         except (sf.LibsndfileError, RuntimeError, ValueError) as exc:
             raise WaveformError(f"{self.where}: cannot write {self.format} ({exc})") from None
+        if self.subtype in FLOAT_SUBTYPES and fixed_epoch() is not None:
+            # libsndfile's PEAK chunk (float files) holds the time of writing, which would
+            # make repeated runs differ; with SOURCE_DATE_EPOCH it is left out
+            sf._snd.sf_command(self.f._file, SFC_SET_ADD_PEAK_CHUNK, sf._ffi.NULL, 0)
         meta = self._meta()
         if meta:
             try:
