@@ -145,3 +145,48 @@ def test_the_output_beside_a_step_input_needs_no_histogram_levels(monkeypatch):
     # a first-order lag's 10-90 % rise time is tau ln 9 (Ogata, Modern Control
     # Engineering, 5th ed., sec. 5-2); sampled at 10 kHz, to within a sample
     assert edge["rise_time_s"] == pytest.approx(2e-3 * np.log(9), abs=1e-4)
+
+
+segments_module = importlib.import_module("simwave.measure.segments")
+source_module = importlib.import_module("simwave.measure.source")
+
+
+@pytest.mark.parametrize("case", range(len(_cases())))
+def test_turning_point_search_left_for_later_gives_the_same_numbers(case, monkeypatch):
+    # a segment that is a view of a record held in memory has its turning-point search run
+    # only if its result is read (an end that has not settled); measured as before (every
+    # search at once: no array counted as outliving the pass) the JSON is the same
+    name, x, system = _cases()[case]
+    src = simwave.Waveform(x[:, None], RATE)
+    y = simwave.simulate(system, src)
+
+    def measured() -> str:
+        res = simwave.measure(y, reference=src, system=system, rest_before_record=True)
+        return json.dumps(res.to_dict(), sort_keys=True, default=str)
+
+    lazy = measured()
+    with monkeypatch.context() as m:
+        m.setattr(source_module.MeasureSource, "held_output", lambda self: [])
+        eager = measured()
+    assert lazy == eager, name
+
+
+def test_turning_point_searches_skipped_and_run_late(monkeypatch):
+    # over the cases, some deferred searches are never run (settled ends) and some run when
+    # read (ends still ringing, whose level is extrapolated), so both ways are compared above
+    deferred = []
+    real_analyse = segments_module.analyse_segment
+
+    def analyse(seg, *a, **k):
+        real_analyse(seg, *a, **k)
+        if seg._turning_later is not None:
+            deferred.append(seg)
+
+    monkeypatch.setattr(segments_module, "analyse_segment", analyse)
+    for _name, x, system in _cases():
+        src = simwave.Waveform(x[:, None], RATE)
+        simwave.measure(simwave.simulate(system, src), reference=src, system=system,
+                        rest_before_record=True)
+    never = sum(1 for s in deferred if s._turning_later is not None)
+    late = len(deferred) - never
+    assert never > 0 and late > 0

@@ -11,10 +11,11 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["c_rows", "joined_1d", "joined_rows"]
+__all__ = ["array_root", "c_rows", "joined_1d", "joined_rows"]
 
 
-def _root(a: np.ndarray) -> np.ndarray:
+def array_root(a: np.ndarray) -> np.ndarray:
+    """The array whose memory ``a`` is a view of (``a`` itself when it owns its data)."""
     while isinstance(a.base, np.ndarray):
         a = a.base
     return a
@@ -38,7 +39,7 @@ def joined_rows(parts: list[np.ndarray]) -> np.ndarray:
     if len(parts) == 1:
         return parts[0]
     p0 = parts[0]
-    root = _root(p0)
+    root = array_root(p0)
     if (p0.ndim == 2 and root.flags.c_contiguous and root.dtype == p0.dtype
             and all(c_rows(p) and p.dtype == p0.dtype and p.shape[1] == p0.shape[1]
                     for p in parts)):
@@ -46,7 +47,7 @@ def joined_rows(parts: list[np.ndarray]) -> np.ndarray:
         row = p0.itemsize * width
         at = p0.ctypes.data
         for p in parts:
-            if p.ctypes.data != at or _root(p) is not root:
+            if p.ctypes.data != at or array_root(p) is not root:
                 break
             at += p.shape[0] * row
         else:

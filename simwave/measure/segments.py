@@ -64,11 +64,12 @@ from __future__ import annotations
 
 import functools
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
 
-from simwave.measure.joining import joined_1d
+from simwave.measure.joining import array_root, joined_1d
 
 #: Default part of a segment, at its end, whose median is the segment's level (the brief
 #: of this method: the last 10-20 %; our choice).
@@ -137,10 +138,11 @@ class Segment:
     # how long the segment has stayed near its end level
     back_k: np.ndarray = field(default_factory=lambda: np.empty(0, dtype=np.int64))
     back_dev: np.ndarray = field(default_factory=lambda: np.empty(0))
-    extrapolated: float | None = None
-    residual: float | None = None  # size of the last turning point used (abs)
-    turning_points: int = 0
-    tp_reason: str | None = None
+    # the turning-point search's result, (extrapolated, turning_points, residual,
+    # tp_reason) (see the properties below), or the arguments of a search left for when it
+    # is first read
+    _turning: tuple = field(default=(None, 0, None, None), repr=False)
+    _turning_later: tuple | None = field(default=None, repr=False)
     # the decision
     level: float = math.nan
     method: str = ""
@@ -150,6 +152,32 @@ class Segment:
     @property
     def length(self) -> int:
         return self.end - self.start + 1
+
+    def _turning_result(self) -> tuple:
+        if self._turning_later is not None:
+            args, self._turning_later = self._turning_later, None
+            self._turning = turning_point_level(*args)
+        return self._turning
+
+    @property
+    def extrapolated(self) -> float | None:
+        """Level from the last three turning points of the end's ringing, or None."""
+        return self._turning_result()[0]
+
+    @property
+    def turning_points(self) -> int:
+        """Turning points of the ringing found (0: none searched or none found)."""
+        return self._turning_result()[1]
+
+    @property
+    def residual(self) -> float | None:
+        """Size (abs) of the last turning point used, or None."""
+        return self._turning_result()[2]
+
+    @property
+    def tp_reason(self) -> str | None:
+        """Why there is no extrapolated level, when one was searched and none found."""
+        return self._turning_result()[3]
 
     def decide(
         self, amplitude: float, band_pct: float, away: int = 0, disturbance: float = 0.0,
@@ -559,9 +587,16 @@ def turning_point_level(
     return level0 + lim, closed, abs(e3), None
 
 
-def analyse_segment(seg: Segment, y: np.ndarray, first: int, fraction: float) -> None:
+def analyse_segment(
+    seg: Segment, y: np.ndarray, first: int, fraction: float, later: bool = False
+) -> None:
     """Fill ``seg``'s measured fields from its samples ``y`` (global index of ``y[0]`` is
-    ``first``; ``y`` ends at ``seg.end`` and may hold only the segment's last part)."""
+    ``first``; ``y`` ends at ``seg.end`` and may hold only the segment's last part).
+
+    ``later``: ``y`` stays as it is after the pass (a view of a record held in memory), so
+    the turning-point search, a dozen passes over the segment, runs only if its result is
+    read (:meth:`Segment.decide` reads it for an end that has not settled); the result is
+    the same whenever it runs."""
     n_seg = seg.length
     w_len = min(max(int(round(fraction * n_seg)), MIN_END_WINDOW), n_seg, y.size)
     w_len = max(w_len, 1)
@@ -607,16 +642,13 @@ def analyse_segment(seg: Segment, y: np.ndarray, first: int, fraction: float) ->
         seg.quarters = ()
         seg.drift = float(np.ptp(w)) if w.size else 0.0
         seg.allowance = 0.0
+    seg._turning, seg._turning_later = (None, 0, None, None), None
     if y.size >= MIN_END_WINDOW and seg.drift > seg.allowance:
-        lvl, count, resid, why = turning_point_level(y, seg.median, seg.noise)
-        seg.extrapolated, seg.turning_points, seg.residual, seg.tp_reason = (
-            lvl,
-            count,
-            resid,
-            why,
-        )
-    else:
-        seg.extrapolated, seg.turning_points, seg.residual, seg.tp_reason = None, 0, None, None
+        args = (y, seg.median, seg.noise)
+        if later:
+            seg._turning_later = args
+        else:
+            seg._turning = turning_point_level(*args)
 
 
 class SegmentCollector:
@@ -630,12 +662,23 @@ class SegmentCollector:
         End-window fraction (see :func:`analyse_segment`).
     cap : int
         Most samples of one segment held (its last ones).
+    kept : sequence of ndarray
+        Arrays the fed blocks may be views of that outlive the pass (a record held in
+        memory): a segment that is a view of one of them has its turning-point search left
+        until it is read (see :func:`analyse_segment`).
     """
 
-    def __init__(self, segments: list[Segment], fraction: float, cap: int = DEFAULT_CAP) -> None:
+    def __init__(
+        self,
+        segments: list[Segment],
+        fraction: float,
+        cap: int = DEFAULT_CAP,
+        kept: Sequence[np.ndarray] = (),
+    ) -> None:
         self.segments = segments
         self.fraction = fraction
         self.cap = max(int(cap), MIN_END_WINDOW)
+        self.kept = kept
         self.cur = 0
         self.parts: list[np.ndarray] = []
         self.held = 0
@@ -647,7 +690,11 @@ class SegmentCollector:
         # record held in memory (analyse_segment only reads them), else a copy
         y = joined_1d(self.parts) if self.parts else np.empty(0)
         if y.size:
-            analyse_segment(seg, y, self.first, self.fraction)
+            # a view of an array that outlives the pass (``kept``) may wait for its
+            # turning-point search: holding it costs no memory
+            root = array_root(y)
+            later = any(root is k for k in self.kept)
+            analyse_segment(seg, y, self.first, self.fraction, later)
         self.parts, self.held = [], 0
         self.cur += 1
 

@@ -19,7 +19,7 @@ from typing import Any, Iterator
 import numpy as np
 
 from simwave.errors import MeasurementError
-from simwave.measure.joining import c_rows, joined_rows
+from simwave.measure.joining import array_root, c_rows, joined_rows
 from simwave.signals.waveform import Waveform
 
 PathLike = (str, os.PathLike)
@@ -145,6 +145,17 @@ class _Stream:
         blk = np.asarray(data[: self.block_size], dtype=np.float64)
         blk = blk[:, None] if blk.ndim == 1 else blk
         return blk if self.columns is None else blk[:, self.columns]
+
+    def held(self) -> list[np.ndarray]:
+        """The arrays this stream's blocks are views of and that outlive a pass (a
+        Waveform's data, a short file's blocks), when its blocks are such views (no channel
+        selection, which copies); else none."""
+        if self.columns is not None:
+            return []
+        if self.memory is not None:
+            return [array_root(b) for b in self.memory]
+        data = getattr(self.obj, "data", None)
+        return [array_root(data)] if isinstance(data, np.ndarray) else []
 
     def arrays(self) -> Iterator[np.ndarray]:
         if self.rest_sample:
@@ -363,6 +374,10 @@ class MeasureSource:
         self.out.rest_sample = self.rest_sample = True
         self.t0 = self.out.info.t0 - 1.0 / self.rate
         return True
+
+    def held_output(self) -> list[np.ndarray]:
+        """See :meth:`_Stream.held`, for the measured stream."""
+        return self.out.held()
 
     def blocks(self) -> Iterator[tuple[int, np.ndarray, np.ndarray | None]]:
         """Yield ``(start_index, output_block, reference_block_or_None)``; blocks are
