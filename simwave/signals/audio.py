@@ -396,7 +396,11 @@ class AudioSink:
         if self.subtype in FLOAT_SUBTYPES and fixed_epoch() is not None:
             # libsndfile's PEAK chunk (float files) holds the time of writing, which would
             # make repeated runs differ; with SOURCE_DATE_EPOCH it is left out
-            sf._snd.sf_command(self.f._file, SFC_SET_ADD_PEAK_CHUNK, sf._ffi.NULL, 0)
+            # (soundfile's own libsndfile handle: a soundfile without it keeps the chunk,
+            # and tests/test_run.py's reproducibility check says so)
+            snd, ffi = getattr(sf, "_snd", None), getattr(sf, "_ffi", None)
+            if snd is not None and ffi is not None:
+                snd.sf_command(self.f._file, SFC_SET_ADD_PEAK_CHUNK, ffi.NULL, 0)
         meta = self._meta()
         if meta:
             try:
