@@ -166,7 +166,7 @@ def test_turning_point_search_left_for_later_gives_the_same_numbers(case, monkey
 
     lazy = measured()
     with monkeypatch.context() as m:
-        m.setattr(source_module.MeasureSource, "held_output", lambda self: [])
+        m.setattr(source_module.MeasureSource, "lasting_output_arrays", lambda self: [])
         eager = measured()
     assert lazy == eager, name
 

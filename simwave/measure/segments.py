@@ -109,6 +109,11 @@ METHOD_UNSETTLED = "segment end, not settled"
 METHOD_REST = "at rest before the record (convention)"
 
 
+#: A segment's turning-point result when no search was needed: (extrapolated,
+#: turning_points, residual, tp_reason).
+NO_TURNING: tuple = (None, 0, None, None)
+
+
 @dataclass
 class Segment:
     """One state's interval of a channel and its level.
@@ -141,7 +146,7 @@ class Segment:
     # the turning-point search's result, (extrapolated, turning_points, residual,
     # tp_reason) (see the properties below), or the arguments of a search left for when it
     # is first read
-    _turning: tuple = field(default=(None, 0, None, None), repr=False)
+    _turning: tuple = field(default=NO_TURNING, repr=False)
     _turning_later: tuple | None = field(default=None, repr=False)
     # the decision
     level: float = math.nan
@@ -330,7 +335,7 @@ def median_in_place(a: np.ndarray) -> float:
     ks: tuple = (i, h, -1) if i != h else (h, -1)
     if n >= BRACKET_MIN:
         a, i, h = _bracketed(a, i, h)
-        ks = (i, h) if i != h else h
+        ks = (i, h) if i != h else (h,)
     # numpy's partition points (np.median's, the last one too; the bracketed values have
     # no need of it), so equal values land alike
     a.partition(ks)
@@ -642,7 +647,7 @@ def analyse_segment(
         seg.quarters = ()
         seg.drift = float(np.ptp(w)) if w.size else 0.0
         seg.allowance = 0.0
-    seg._turning, seg._turning_later = (None, 0, None, None), None
+    seg._turning, seg._turning_later = NO_TURNING, None
     if y.size >= MIN_END_WINDOW and seg.drift > seg.allowance:
         args = (y, seg.median, seg.noise)
         if later:
@@ -662,7 +667,7 @@ class SegmentCollector:
         End-window fraction (see :func:`analyse_segment`).
     cap : int
         Most samples of one segment held (its last ones).
-    kept : sequence of ndarray
+    lasting : sequence of ndarray
         Arrays the fed blocks may be views of that outlive the pass (a record held in
         memory): a segment that is a view of one of them has its turning-point search left
         until it is read (see :func:`analyse_segment`).
@@ -673,12 +678,12 @@ class SegmentCollector:
         segments: list[Segment],
         fraction: float,
         cap: int = DEFAULT_CAP,
-        kept: Sequence[np.ndarray] = (),
+        lasting: Sequence[np.ndarray] = (),
     ) -> None:
         self.segments = segments
         self.fraction = fraction
         self.cap = max(int(cap), MIN_END_WINDOW)
-        self.kept = kept
+        self.lasting = lasting
         self.cur = 0
         self.parts: list[np.ndarray] = []
         self.held = 0
@@ -690,10 +695,10 @@ class SegmentCollector:
         # record held in memory (analyse_segment only reads them), else a copy
         y = joined_1d(self.parts) if self.parts else np.empty(0)
         if y.size:
-            # a view of an array that outlives the pass (``kept``) may wait for its
+            # a view of an array that outlives the pass (``lasting``) may wait for its
             # turning-point search: holding it costs no memory
             root = array_root(y)
-            later = any(root is k for k in self.kept)
+            later = any(root is k for k in self.lasting)
             analyse_segment(seg, y, self.first, self.fraction, later)
         self.parts, self.held = [], 0
         self.cur += 1

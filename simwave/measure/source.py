@@ -146,7 +146,7 @@ class _Stream:
         blk = blk[:, None] if blk.ndim == 1 else blk
         return blk if self.columns is None else blk[:, self.columns]
 
-    def held(self) -> list[np.ndarray]:
+    def lasting_arrays(self) -> list[np.ndarray]:
         """The arrays this stream's blocks are views of and that outlive a pass (a
         Waveform's data, a short file's blocks), when its blocks are such views (no channel
         selection, which copies); else none."""
@@ -375,9 +375,9 @@ class MeasureSource:
         self.t0 = self.out.info.t0 - 1.0 / self.rate
         return True
 
-    def held_output(self) -> list[np.ndarray]:
-        """See :meth:`_Stream.held`, for the measured stream."""
-        return self.out.held()
+    def lasting_output_arrays(self) -> list[np.ndarray]:
+        """See :meth:`_Stream.lasting_arrays`, for the measured stream."""
+        return self.out.lasting_arrays()
 
     def blocks(self) -> Iterator[tuple[int, np.ndarray, np.ndarray | None]]:
         """Yield ``(start_index, output_block, reference_block_or_None)``; blocks are

@@ -488,7 +488,7 @@ class AudioSink:
             # round to nearest), so the same bytes; libsndfile then stores the block with
             # one write where doubles go through its 8 kB buffer (~240 writes a 10-s
             # record, a quarter of its cost)
-            data = np.asarray(x, dtype=np.float64).astype(np.float32)
+            data = x.astype(np.float32)
         else:
             data = np.ascontiguousarray(x, dtype=np.float64)
         self.f.write(data)

@@ -275,9 +275,9 @@ def columns(a: np.ndarray, b: np.ndarray | None) -> list[np.ndarray]:
 def collect(w: Work, segs_by_c: dict[int, list]) -> None:
     """One pass: each output channel's segments analysed at their ends (the pass stops
     early once every list is done)."""
-    kept = w.src.held_output()
+    lasting = w.src.lasting_output_arrays()
     cols = {
-        c: seg.SegmentCollector(ss, w.o.segment_end_fraction, w.o.max_window_samples, kept)
+        c: seg.SegmentCollector(ss, w.o.segment_end_fraction, w.o.max_window_samples, lasting)
         for c, ss in segs_by_c.items()
         if ss
     }
